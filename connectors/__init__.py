@@ -1,0 +1,1 @@
+"""Sources and sinks that move baskets in and out of stream-miner."""

@@ -1,0 +1,1 @@
+"""Synthetic basket generators, a data-set CLI and naive benchmark baselines."""

@@ -1,0 +1,62 @@
+"""Item vocabulary: arbitrary Unicode item names mapped to dense integer ids."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+
+class ItemVocabulary:
+    """Assigns dense ids 0, 1, 2, ... to item names in order of first sight.
+
+    >>> vocab = ItemVocabulary()
+    >>> vocab.encode(["tea", "scone", "tea"])
+    [0, 1, 0]
+    >>> vocab.name(1)
+    'scone'
+    """
+
+    __slots__ = ("_ids", "_names")
+
+    def __init__(self, names: Iterable[str] = ()) -> None:
+        self._names: list[str] = []
+        self._ids: dict[str, int] = {}
+        for name in names:
+            self.id_of(name)
+
+    def __len__(self) -> int:
+        return len(self._names)
+
+    def __contains__(self, name: object) -> bool:
+        return name in self._ids
+
+    def id_of(self, name: str) -> int:
+        """Return the id of ``name``, assigning the next free id if it is new. O(1)."""
+        item_id = self._ids.get(name)
+        if item_id is None:
+            if not isinstance(name, str):
+                raise TypeError(f"item names must be strings, got {type(name).__name__}")
+            item_id = len(self._names)
+            self._ids[name] = item_id
+            self._names.append(name)
+        return item_id
+
+    def lookup(self, name: str) -> int | None:
+        """Return the id of ``name`` or None when it was never seen (assigns nothing)."""
+        return self._ids.get(name)
+
+    def encode(self, names: Iterable[str]) -> list[int]:
+        """Map names to ids, assigning ids to new names."""
+        get = self._ids.get
+        out = []
+        for name in names:
+            item_id = get(name)
+            out.append(self.id_of(name) if item_id is None else item_id)
+        return out
+
+    def name(self, item_id: int) -> str:
+        """Return the name of ``item_id``."""
+        return self._names[item_id]
+
+    def names(self) -> list[str]:
+        """All names, indexed by id (a copy)."""
+        return list(self._names)
