@@ -1,0 +1,130 @@
+"""The window miner against brute force: count and event-time windows, batching, re-ordering."""
+
+from __future__ import annotations
+
+import math
+from fractions import Fraction
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from brute_force import frequent_itemsets
+from stream_miner.engine import MiningParams, WindowMiner
+from stream_miner.hygiene import BasketPolicy, Oversize, Verdict
+from stream_miner.window import CountWindow, TimeWindow
+
+names_st = st.lists(st.sampled_from("abcdefgh"), min_size=1, max_size=6)
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    st.lists(names_st, min_size=1, max_size=60),
+    st.integers(1, 20),
+    st.integers(1, 9),
+    st.lists(st.integers(1, 60), min_size=1, max_size=6),
+    st.integers(1, 3),
+)
+def test_count_window_equals_brute_force_at_every_check(stream, size, batch, checks, min_count):
+    miner = WindowMiner(CountWindow(size), batch_size=batch)
+    seen = []
+    for i, basket in enumerate(stream, start=1):
+        miner.add(basket)
+        seen.append(basket)
+        if i in checks or i == len(stream):
+            window = seen[-size:]
+            assert miner.mine(MiningParams(min_count=min_count)).itemsets == frequent_itemsets(window, min_count)
+            miner.check_invariants()
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    st.lists(st.tuples(names_st, st.integers(0, 50)), min_size=1, max_size=50),
+    st.integers(1, 15),
+    st.integers(1, 7),
+    st.fractions(Fraction(1, 20), Fraction(1, 2)),
+)
+def test_time_window_equals_brute_force_with_out_of_order_times(stream, seconds, batch, support):
+    miner = WindowMiner(TimeWindow(seconds), batch_size=batch)
+    arrived = []
+    for basket, ts in stream:
+        miner.add(basket, ts=ts)
+        arrived.append((basket, ts))
+        newest = max(t for _, t in arrived)
+        window = [b for b, t in arrived if t > newest - seconds]
+        result = miner.mine(MiningParams(min_support=support))
+        assert result.n_baskets == len(window)
+        min_count = max(1, math.ceil(support * len(window)))
+        assert result.min_count == min_count
+        assert result.itemsets == frequent_itemsets(window, min_count)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(names_st, min_size=2, max_size=80), st.integers(2, 30))
+def test_restructure_keeps_results_and_reorders_by_current_frequency(stream, size):
+    miner = WindowMiner(CountWindow(size), batch_size=4)
+    for basket in stream:
+        miner.add(basket)
+    before = miner.mine(MiningParams(min_count=1)).itemsets
+    miner.restructure()
+    miner.check_invariants()
+    assert miner.mine(MiningParams(min_count=1)).itemsets == before
+    counts = {}
+    for basket in stream[-size:]:
+        for item in set(basket):
+            counts[item] = counts.get(item, 0) + 1
+    rank = miner.tree.rank
+    ids = {name: miner.vocabulary.lookup(name) for name in counts}
+    by_rank = sorted(counts, key=lambda name: rank[ids[name]])
+    assert [counts[n] for n in by_rank] == sorted(counts.values(), reverse=True)
+
+
+def test_threshold_is_compared_in_exact_integers():
+    # 0.07 * 100 is 7.000000000000001 in floating point; the threshold must be exactly 7
+    params = MiningParams(min_support=Fraction("0.07"))
+    assert params.threshold(100) == 7
+    assert MiningParams(min_support=Fraction("0.02")).threshold(3000) == 60
+    assert MiningParams(min_support=Fraction(1, 3)).threshold(10) == 4  # ceil(3.33...)
+    assert MiningParams(min_support=Fraction(1, 100)).threshold(0) == 1
+
+
+def test_max_len_and_include_exclude_lists():
+    miner = WindowMiner()
+    for basket in (["a", "b", "c"], ["a", "b", "c"], ["a", "c"], ["b", "d"]):
+        miner.add(basket)
+    full = frequent_itemsets([["a", "b", "c"], ["a", "b", "c"], ["a", "c"], ["b", "d"]], 2)
+    assert miner.mine(MiningParams(min_count=2, max_len=2)).itemsets == {
+        k: v for k, v in full.items() if len(k) <= 2
+    }
+    only_ab = miner.mine(MiningParams(min_count=2, include=frozenset("ab"))).itemsets
+    assert only_ab == {k: v for k, v in full.items() if set(k) <= {"a", "b"}}
+    no_c = miner.mine(MiningParams(min_count=2, exclude=frozenset("c"))).itemsets
+    assert no_c == {k: v for k, v in full.items() if "c" not in k}
+
+
+def test_basket_hygiene_repeats_oversize_and_empty():
+    miner = WindowMiner(policy=BasketPolicy(max_items=3, oversize=Oversize.SKIP))
+    assert miner.add(["x", "x", "y"]) is Verdict.ACCEPTED
+    assert miner.add(["a", "b", "c", "d"]) is Verdict.SKIPPED_OVERSIZE
+    assert miner.add([]) is Verdict.SKIPPED_EMPTY
+    result = miner.mine(MiningParams(min_count=1))
+    assert result.n_baskets == 1 and result.itemsets[("x",)] == 1
+    truncating = WindowMiner(policy=BasketPolicy(max_items=2, oversize=Oversize.TRUNCATE))
+    assert truncating.add(["p", "q", "p", "r"]) is Verdict.TRUNCATED
+    assert truncating.mine(MiningParams(min_count=1)).itemsets == {("p",): 1, ("q",): 1, ("p", "q"): 1}
+    assert miner.verdicts[Verdict.SKIPPED_OVERSIZE] == 1 and miner.verdicts[Verdict.SKIPPED_EMPTY] == 1
+
+
+def test_bad_configuration_is_refused_with_clear_errors():
+    with pytest.raises(ValueError, match="exactly one"):
+        MiningParams()
+    with pytest.raises(ValueError, match="min support"):
+        MiningParams(min_support=Fraction(0))
+    with pytest.raises(ValueError, match="window size"):
+        CountWindow(0)
+    with pytest.raises(ValueError, match="duration"):
+        TimeWindow(0)
+    with pytest.raises(ValueError, match="event time"):
+        WindowMiner(TimeWindow(10)).add(["a"])
+    with pytest.raises(ValueError, match="max_items"):
+        BasketPolicy(max_items=0)
