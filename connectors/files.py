@@ -10,7 +10,9 @@ line stops the run or is skipped and counted.
   (string or integer) and ``ts`` (epoch seconds, or an ISO-8601 string); blank lines are
   ignored.
 - ``csv``: long format with a header row, one line item per row; the transaction-id and item
-  columns are chosen by name. Rows of one transaction must be contiguous.
+  columns are chosen by name. Rows of one transaction must be contiguous; blank lines are
+  ignored.
+A UTF-8 byte-order mark at the start of a file is ignored.
 """
 
 from __future__ import annotations
@@ -70,6 +72,8 @@ def _decoded_lines(stream: BinaryIO) -> Iterator[tuple[int, bytes, str | BadReco
         except UnicodeDecodeError as error:
             yield number, raw, BadRecord(number, "invalid UTF-8", str(error), raw)
             continue
+        if number == 1:
+            text = text.removeprefix("\ufeff")  # a byte-order mark is not part of the data
         yield number, raw, text.rstrip("\r\n")
 
 
@@ -95,8 +99,8 @@ def parse_json_basket(text: str, line: int, raw: bytes) -> Record:
     """One JSON Lines record as a basket, or the reason it is not one."""
     try:
         value = json.loads(text)
-    except json.JSONDecodeError as error:
-        return BadRecord(line, "invalid JSON", str(error), raw)
+    except (ValueError, RecursionError) as error:  # also too-long integers, too-deep nesting
+        return BadRecord(line, "invalid JSON", str(error) or type(error).__name__, raw)
     if not isinstance(value, dict):
         return BadRecord(line, "not a JSON object", f"got {type(value).__name__}", raw)
     items = value.get("items")
@@ -124,9 +128,13 @@ def parse_event_time(value: object) -> float:
     if isinstance(value, bool):
         raise ValueError(f"event time must be a number or an ISO-8601 string, got {value!r}")
     if isinstance(value, (int, float)):
-        if not math.isfinite(value):
+        try:
+            seconds = float(value)
+        except OverflowError:
+            raise ValueError("event time is out of range") from None
+        if not math.isfinite(seconds):
             raise ValueError(f"event time must be finite, got {value!r}")
-        return float(value)
+        return seconds
     if isinstance(value, str):
         try:
             moment = datetime.fromisoformat(value.replace("Z", "+00:00"))
@@ -140,7 +148,7 @@ def parse_event_time(value: object) -> float:
 
 def read_csv(stream: BinaryIO, *, id_column: str, item_column: str) -> Iterator[Record]:
     """Long-format CSV: one row per line item, grouped into baskets by transaction id."""
-    text = io.TextIOWrapper(stream, encoding="utf-8", errors="surrogateescape", newline="")
+    text = io.TextIOWrapper(stream, encoding="utf-8-sig", errors="surrogateescape", newline="")
     reader = csv.reader(text)
     try:
         header = next(reader)
@@ -169,6 +177,8 @@ def read_csv(stream: BinaryIO, *, id_column: str, item_column: str) -> Iterator[
         except csv.Error as error:
             raise InputError(f"line {reader.line_num}: unreadable CSV: {error}") from None
         line = reader.line_num
+        if not row:
+            continue  # a blank line holds no line item
         if _has_undecodable(row):
             yield BadRecord(line, "invalid UTF-8", "a field is not valid UTF-8")
             continue

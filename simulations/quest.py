@@ -30,7 +30,8 @@ def quest_baskets(
     its corruption level. An itemset that would overflow the basket is added anyway half of
     the time and otherwise carried over to the next basket (an empty basket always takes it).
     As in the authors' reference generator, sizes are 1 + Poisson(mean - 1), so nothing is
-    empty. Baskets are sorted lists of distinct item ids in 0..n_items-1.
+    empty; basket targets are capped at the number of items the pool covers. Baskets are
+    sorted lists of distinct item ids in 0..n_items-1.
     """
     if n_baskets < 0 or n_patterns < 1 or n_items < 1 or avg_size < 1 or avg_pattern_size < 1:
         raise ValueError("need n_baskets >= 0, n_patterns >= 1, n_items >= 1 and mean sizes >= 1")
@@ -42,7 +43,8 @@ def quest_baskets(
     weights = rng.exponential(1.0, n_patterns)
     weights /= weights.sum()
     corruption = rng.normal(_CORRUPTION_MEAN, _CORRUPTION_SD, n_patterns).clip(0.0, _CORRUPTION_MAX)
-    targets = (1 + rng.poisson(avg_size - 1, n_baskets)).tolist()
+    reachable = np.unique(flat).size  # a basket can never hold more items than the pool covers
+    targets = np.minimum(1 + rng.poisson(avg_size - 1, n_baskets), reachable).tolist()
 
     baskets: list[list[int]] = []
     items: list[int] = []

@@ -85,7 +85,7 @@ def _parser() -> argparse.ArgumentParser:
                      help="these items never appear (repeatable)")
     rules = mine.add_argument_group("rules")
     rules.add_argument("--rules", action="store_true", help="also derive association rules")
-    rules.add_argument("--min-confidence", type=_fraction, default=Fraction(1, 2), metavar="F",
+    rules.add_argument("--min-confidence", type=_fraction, metavar="F",
                        help="minimum confidence (default: 0.5)")
     rules.add_argument("--min-lift", type=_non_negative_fraction, metavar="X", help="minimum lift")
     rules.add_argument("--max-antecedent", type=_positive_int, metavar="N", help="most items on the left")
@@ -95,7 +95,7 @@ def _parser() -> argparse.ArgumentParser:
     rules.add_argument("--consequent-item", action="append", metavar="ITEM",
                        help="only these items may appear on the right (repeatable)")
     rules.add_argument("--max-rules", type=_positive_int, metavar="N", help="keep only the N best rules")
-    rules.add_argument("--rank-by", choices=RANK_MEASURES, default="confidence",
+    rules.add_argument("--rank-by", choices=RANK_MEASURES,
                        help="measure that picks the best rules for --max-rules (default: confidence)")
     out = mine.add_argument_group("output")
     out.add_argument("--json", action="store_true", help="JSON Lines instead of a table")
@@ -184,8 +184,9 @@ def _mining_params(args: argparse.Namespace) -> MiningParams:
     rule_filter = None
     if args.rules:
         rule_filter = _rule_filter(args)
-    elif any(v is not None for v in (args.min_lift, args.max_antecedent, args.max_consequent,
-                                      args.antecedent_item, args.consequent_item, args.max_rules)):
+    elif any(v is not None for v in (args.min_confidence, args.min_lift, args.max_antecedent,
+                                      args.max_consequent, args.antecedent_item,
+                                      args.consequent_item, args.max_rules, args.rank_by)):
         raise UsageError("rule options need --rules")
     min_support = args.min_support
     if min_support is None and args.min_count is None:
@@ -202,14 +203,14 @@ def _mining_params(args: argparse.Namespace) -> MiningParams:
 
 def _rule_filter(args: argparse.Namespace) -> RuleFilter:
     return RuleFilter(
-        min_confidence=args.min_confidence,
+        min_confidence=Fraction(1, 2) if args.min_confidence is None else args.min_confidence,
         min_lift=args.min_lift,
         max_antecedent=args.max_antecedent,
         max_consequent=args.max_consequent,
         antecedent_items=None if args.antecedent_item is None else frozenset(args.antecedent_item),
         consequent_items=None if args.consequent_item is None else frozenset(args.consequent_item),
         max_rules=args.max_rules,
-        rank_by=args.rank_by,
+        rank_by=args.rank_by or "confidence",
     )
 
 

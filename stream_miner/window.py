@@ -10,7 +10,6 @@ plus 20 bytes per basket.
 from __future__ import annotations
 
 from collections import deque
-from collections.abc import Iterator
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -118,12 +117,6 @@ class WindowStore:
             self._head = 0
         return np.concatenate(out) if out else np.empty(0, dtype=np.int64)
 
-    def baskets(self) -> Iterator[np.ndarray]:
-        """Item arrays of the live baskets, oldest first."""
-        for chunk in self._chunks:
-            for row in np.flatnonzero(chunk.alive).tolist():
-                yield chunk.items[chunk.start[row] : chunk.start[row + 1]]
-
     def contents(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """All live baskets as (items, start, ts) in CSR form, oldest first."""
         items, lengths, ts = [], [], []
@@ -147,11 +140,6 @@ class WindowStore:
         self._head = 0
         self._size = 0
         self.append(items, start, ts, handles)
-
-    def newest_ts(self) -> float:
-        """Largest event time in the window (NaN when empty or unknown)."""
-        values = [np.nanmax(np.where(c.alive, c.ts, -np.inf)) for c in self._chunks if c.n_alive]
-        return max(values) if values else float("nan")
 
     @property
     def nbytes(self) -> int:

@@ -1,0 +1,225 @@
+"""The file readers in ``connectors.files``: format detection, record parsing, event times."""
+
+from __future__ import annotations
+
+import io
+import math
+
+import pytest
+
+from connectors.files import InputError, detect_format, parse_event_time, read_records
+from connectors.records import BadRecord, RawBasket
+
+# 2024-03-01T12:00:00Z by hand: 2024-01-01T00:00:00Z is 1704067200 (19723 days), then
+# January (31) and February (29, leap year) add 60 days, then 12 hours:
+# 1704067200 + 60 * 86400 + 12 * 3600 = 1709294400.
+NOON_2024_03_01 = 1_704_067_200 + 60 * 86_400 + 12 * 3_600
+
+
+def records(data: bytes, fmt: str, **options) -> list:
+    return list(read_records(io.BytesIO(data), fmt, **options))
+
+
+def only_bad(found: list) -> list[tuple[int, str]]:
+    return [(r.line, r.reason) for r in found if isinstance(r, BadRecord)]
+
+
+# ----------------------------------------------------------------------- detection
+@pytest.mark.parametrize("path, fmt", [
+    ("b.dat", "fimi"), ("b.txt", "fimi"), ("b.fimi", "fimi"), ("b.basket", "fimi"),
+    ("data/B.DAT", "fimi"), ("b.jsonl", "jsonl"), ("b.ndjson", "jsonl"), ("x.csv/b.NDJSON", "jsonl"),
+    ("b.csv", "csv"), ("/tmp/run.jsonl/b.Csv", "csv"),
+])
+def test_detect_format(path, fmt):
+    assert detect_format(path) == fmt
+
+
+@pytest.mark.parametrize("path", ["b.xlsx", "baskets", "b.csv.gz", "stdin", "b.json"])
+def test_detect_format_unknown(path):
+    with pytest.raises(InputError, match="--format") as error:
+        detect_format(path)
+    assert repr(path) in str(error.value)
+
+
+def test_unknown_format_name():
+    with pytest.raises(InputError, match="unknown format 'xml'"):
+        read_records(io.BytesIO(b""), "xml")
+
+
+# ----------------------------------------------------------------------- fimi
+def test_fimi_lines_and_numbers():
+    found = records(b"a b\n\n  c\td  \ncaf\xc3\xa9 \xe6\x97\xa5\n", "fimi")
+    assert found == [
+        RawBasket(["a", "b"], line=1),
+        RawBasket([], line=2),  # an empty line is an empty basket
+        RawBasket(["c", "d"], line=3),
+        RawBasket(["café", "日"], line=4),
+    ]
+
+
+def test_fimi_crlf_and_missing_final_newline():
+    found = records(b"a b\r\nc\r\n\r\nd e", "fimi")
+    assert found == [RawBasket(["a", "b"], 1), RawBasket(["c"], 2), RawBasket([], 3), RawBasket(["d", "e"], 4)]
+
+
+def test_fimi_invalid_utf8_is_a_bad_record():
+    found = records(b"a\nb \xff c\nd\n", "fimi")
+    assert [r.line for r in found] == [1, 2, 3]
+    bad = found[1]
+    assert isinstance(bad, BadRecord)
+    assert bad.reason == "invalid UTF-8"
+    assert bad.raw == b"b \xff c\n"
+    assert bad.message().startswith("line 2: invalid UTF-8: ")
+    assert found[2] == RawBasket(["d"], 3)
+
+
+# ----------------------------------------------------------------------- jsonl
+def test_jsonl_fields_and_line_numbers():
+    data = (b'{"items": ["a"], "id": 7, "ts": 1.5}\n'
+            b"\n"
+            b"   \n"
+            b'{"id": "x", "items": ["b", "a", "b"], "ts": "2024-03-01T12:00:00Z"}\n'
+            b'{"items": [], "id": null, "extra": {"k": 1}}\n')
+    assert records(data, "jsonl") == [
+        RawBasket(["a"], line=1, id="7", ts=1.5),
+        RawBasket(["b", "a", "b"], line=4, id="x", ts=float(NOON_2024_03_01)),
+        RawBasket([], line=5),
+    ]
+
+
+def test_jsonl_crlf():
+    data = b'{"items": ["a", "b"]}\r\n\r\n{"items": ["c"], "ts": 10}\r\n'
+    assert records(data, "jsonl") == [RawBasket(["a", "b"], 1), RawBasket(["c"], 3, ts=10.0)]
+
+
+BAD_JSONL = {
+    "invalid json": (b'{"items": ["a",}', "invalid JSON"),
+    "not json": (b"not json", "invalid JSON"),
+    "invalid utf-8": (b'{"items": ["\xff"]}', "invalid UTF-8"),
+    "array": (b'["a"]', "not a JSON object"),
+    "string": (b'"a"', "not a JSON object"),
+    "no items": (b"{}", "no items"),
+    "null items": (b'{"items": null}', "no items"),
+    "items string": (b'{"items": "a"}', "items not a list"),
+    "items object": (b'{"items": {"a": 1}}', "items not a list"),
+    "number item": (b'{"items": ["a", 1]}', "item not a string"),
+    "null item": (b'{"items": ["a", null]}', "item not a string"),
+    "bool id": (b'{"items": ["a"], "id": true}', "bad id"),
+    "list id": (b'{"items": ["a"], "id": [1]}', "bad id"),
+    "ts text": (b'{"items": ["a"], "ts": "soon"}', "bad event time"),
+    "ts bool": (b'{"items": ["a"], "ts": false}', "bad event time"),
+    "ts infinity": (b'{"items": ["a"], "ts": Infinity}', "bad event time"),
+    "ts huge int": (b'{"items": ["a"], "ts": 1' + b"0" * 400 + b"}", "bad event time"),
+    "int over digit limit": (b'{"items": ["a"], "n": ' + b"9" * 5000 + b"}", "invalid JSON"),
+    "nested too deep": (b"[" * 100_000 + b"]" * 100_000, "invalid JSON"),
+}
+
+
+@pytest.mark.parametrize("line, reason", BAD_JSONL.values(), ids=BAD_JSONL.keys())
+def test_jsonl_bad_records(line, reason):
+    found = records(b'{"items": ["ok"]}\n' + line + b'\r\n{"items": ["ok"]}\n', "jsonl")
+    assert found[0] == RawBasket(["ok"], 1) and found[2] == RawBasket(["ok"], 3)
+    bad = found[1]
+    assert isinstance(bad, BadRecord)
+    assert (bad.line, bad.reason) == (2, reason)
+    assert bad.raw.rstrip(b"\r\n") == line
+    assert bad.message().startswith(f"line 2: {reason}: ")
+
+
+# ----------------------------------------------------------------------- csv
+def test_csv_groups_contiguous_rows():
+    data = b'transaction_id,item\nT1,a\nT1,"salt, sea"\nT2,c\n7,a\n7,a\n'
+    assert records(data, "csv") == [
+        RawBasket(["a", "salt, sea"], line=2, id="T1"),
+        RawBasket(["c"], line=4, id="T2"),
+        RawBasket(["a", "a"], line=5, id="7"),  # repeats are kept here; hygiene removes them later
+    ]
+
+
+def test_csv_crlf_and_custom_columns():
+    data = b"qty,product,order\r\n1,tea,o1\r\n2,jam,o1\r\n1,scone,o2\r\n"
+    found = records(data, "csv", csv_id_column="order", csv_item_column="product")
+    assert found == [RawBasket(["tea", "jam"], line=2, id="o1"), RawBasket(["scone"], line=4, id="o2")]
+
+
+def test_csv_bad_rows_keep_their_line_and_do_not_break_grouping():
+    data = (b"transaction_id,item\n"  # 1
+            b"T1,a\n"  # 2
+            b"T1,b,extra\n"  # 3 wrong number of fields
+            b"T1,\n"  # 4 empty item
+            b"T1,\xff\n"  # 5 invalid UTF-8
+            b"T1,c\n"  # 6 still T1
+            b"T2,d\n"  # 7
+            b"T1,e\n"  # 8 T1 again, after T2
+            b"T3,f\n")  # 9
+    found = records(data, "csv")
+    assert only_bad(found) == [(3, "wrong number of fields"), (4, "empty field"), (5, "invalid UTF-8"),
+                               (8, "transaction not contiguous")]
+    assert [r for r in found if isinstance(r, RawBasket)] == [
+        RawBasket(["a", "c"], line=2, id="T1"),
+        RawBasket(["d"], line=7, id="T2"),
+        RawBasket(["f"], line=9, id="T3"),
+    ]
+
+
+def test_csv_missing_column_is_an_input_error():
+    with pytest.raises(InputError, match="'transaction_id'") as error:
+        records(b"order,item\no1,a\n", "csv")
+    assert "--csv-id-column" in str(error.value)
+    with pytest.raises(InputError, match="'product'"):
+        records(b"transaction_id,item\nT1,a\n", "csv", csv_item_column="product")
+
+
+def test_csv_invalid_utf8_header_is_an_input_error():
+    with pytest.raises(InputError, match="line 1"):
+        records(b"transaction_id,it\xffem\nT1,a\n", "csv")
+
+
+def test_csv_empty_stream_and_header_only():
+    assert records(b"", "csv") == []
+    assert records(b"transaction_id,item\n", "csv") == []
+
+
+# ----------------------------------------------------------------------- event times
+@pytest.mark.parametrize("text, expected", [
+    ("2024-03-01T12:00:00Z", NOON_2024_03_01),
+    ("2024-03-01T12:00:00+00:00", NOON_2024_03_01),
+    ("2024-03-01T14:30:00+02:30", NOON_2024_03_01),
+    ("2024-03-01T07:00:00-05:00", NOON_2024_03_01),
+    ("2024-03-01T12:00:00", NOON_2024_03_01),  # naive: UTC
+    ("2024-03-01 12:00:00", NOON_2024_03_01),
+    ("2024-03-01T12:00:00.250Z", NOON_2024_03_01 + 0.25),
+    ("2024-03-01", NOON_2024_03_01 - 12 * 3_600),
+    ("1970-01-01T00:00:00Z", 0),
+    ("1969-12-31T23:00:00Z", -3_600),
+])
+def test_parse_event_time_iso(text, expected):
+    assert parse_event_time(text) == expected
+
+
+@pytest.mark.parametrize("value", [0, 1_709_294_400, 1.5, -86_400, 1e12])
+def test_parse_event_time_epoch(value):
+    result = parse_event_time(value)
+    assert type(result) is float and result == value
+
+
+@pytest.mark.parametrize("value", [
+    True, False, None, [1], {"ts": 1}, "", "yesterday", "2024-13-01", "2024-03-01T25:00:00",
+    math.nan, math.inf, -math.inf, 10**400,
+], ids=lambda value: "huge int" if value == 10**400 else repr(value))
+def test_parse_event_time_rejects(value):
+    with pytest.raises(ValueError):
+        parse_event_time(value)
+
+
+def test_byte_order_mark_is_not_part_of_the_data():
+    bom = b"\xef\xbb\xbf"
+    assert records(bom + b"tea scone\n", "fimi")[0].items == ["tea", "scone"]
+    assert records(bom + b'{"items": ["tea"]}\n', "jsonl")[0].items == ["tea"]
+    found = records(bom + b"transaction_id,item\nt1,tea\n", "csv")
+    assert found == [RawBasket(items=["tea"], line=2, id="t1")]
+
+
+def test_csv_blank_lines_are_ignored():
+    found = records(b"transaction_id,item\nt1,tea\n\nt1,jam\n\n", "csv")
+    assert found == [RawBasket(items=["tea", "jam"], line=2, id="t1")]
