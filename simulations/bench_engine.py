@@ -12,8 +12,8 @@ than absolute figures); each timing is the median of its repeats. Sections:
   one basket at a time, and end to end through WindowMiner.add (names as strings);
 - mining: mine_tree on the first window's tree against mlxtend, pyfim and the naive
   FP-growth, all checked to find exactly the same itemsets and counts;
-- memory (Quest only): peak RSS per windowed basket, measured in child processes
-  (simulations.bench_memory) that stream a FIMI file.
+- memory (Quest only; --memory-window 0 skips it): peak RSS per windowed basket, measured
+  in fresh child processes (simulations.bench_memory) that stream a FIMI file.
 
 Generated data sets are cached under the system temp dir. Prints one JSON object to stdout,
 progress to stderr.
@@ -23,6 +23,8 @@ from __future__ import annotations
 
 import argparse
 import gc
+import hashlib
+import inspect
 import json
 import os
 import platform
@@ -55,16 +57,16 @@ Itemsets = dict[tuple[int, ...], int]
 T = TypeVar("T")
 
 CACHE_DIR = Path(tempfile.gettempdir()) / "stream-miner-bench"
-ENGINE_POLICY_BASKETS = 8192  # the engine ranks items on its first batch of this many baskets
 HEAVY_BIG_BASKET_RATE = 0.001
 BASE_SLIDES = (1_000, 10_000)
 MEMORY_EXTRA = 100_000  # baskets streamed past a full memory window
 MEMORY_BATCH = 10_000
-DATASETS: dict[str, tuple[str, Callable[[int, int], Baskets]]] = {
-    "quest": ("quest-T10-I4-N1000", lambda n, seed: quest_baskets(n, seed=seed)),
+DATASETS: dict[str, tuple[str, Callable[..., Baskets], dict[str, float]]] = {
+    "quest": ("quest-T10-I4-N1000", quest_baskets, {}),
     "heavy": (
         f"heavy-big{HEAVY_BIG_BASKET_RATE}",
-        lambda n, seed: heavy_tailed_baskets(n, seed=seed, big_basket_rate=HEAVY_BIG_BASKET_RATE),
+        heavy_tailed_baskets,
+        {"big_basket_rate": HEAVY_BIG_BASKET_RATE},
     ),
 }
 
@@ -77,16 +79,30 @@ def log(message: str) -> None:
 
 
 # ------------------------------------------------------------------------- data
+def generate(data: str, n: int, seed: int) -> Baskets:
+    """Generate ``n`` baskets of the named data set."""
+    _, generator, options = DATASETS[data]
+    return generator(n, seed=seed, **options)
+
+
+def cache_path(data: str, n: int, seed: int, suffix: str) -> Path:
+    """Cache file of a data set, keyed by its parameters and its generator's source code."""
+    label, generator, _ = DATASETS[data]
+    source = inspect.getsourcefile(generator)
+    assert source is not None
+    digest = hashlib.sha1(Path(source).read_bytes()).hexdigest()[:10]
+    return CACHE_DIR / f"{label}-n{n}-seed{seed}-{digest}{suffix}"
+
+
 def load_baskets(data: str, n: int, seed: int) -> Baskets:
-    """Generated baskets, cached as CSR arrays in the temp dir keyed by generator, n and seed."""
-    key, generate = DATASETS[data]
-    path = CACHE_DIR / f"{key}-n{n}-seed{seed}.npz"
+    """Generated baskets, cached as CSR arrays in the temp dir."""
+    path = cache_path(data, n, seed, ".npz")
     if path.exists():
         with np.load(path) as cached:
             flat, start = cached["items"].tolist(), cached["start"].tolist()
         return [flat[lo:hi] for lo, hi in zip(start[:-1], start[1:])]
     log(f"generating {n} {data} baskets (seed {seed})")
-    baskets = generate(n, seed)
+    baskets = generate(data, n, seed)
     start = np.zeros(n + 1, dtype=np.int64)
     np.cumsum([len(b) for b in baskets], out=start[1:])
     items = np.fromiter((i for b in baskets for i in b), dtype=np.int32, count=int(start[-1]))
@@ -99,14 +115,13 @@ def load_baskets(data: str, n: int, seed: int) -> Baskets:
 
 def fimi_file(data: str, n: int, seed: int) -> Path:
     """A cached FIMI text file (one basket of item ids a line) of ``n`` generated baskets."""
-    key, generate = DATASETS[data]
-    path = CACHE_DIR / f"{key}-n{n}-seed{seed}.dat"
+    path = cache_path(data, n, seed, ".dat")
     if not path.exists():
         log(f"writing {n} {data} baskets to {path}")
         CACHE_DIR.mkdir(parents=True, exist_ok=True)
         partial = path.with_suffix(".partial")
         with open(partial, "w", encoding="utf-8") as out:
-            out.writelines(" ".join(map(str, b)) + "\n" for b in generate(n, seed))
+            out.writelines(" ".join(map(str, b)) + "\n" for b in generate(data, n, seed))
         partial.replace(path)
     return path
 
@@ -164,7 +179,7 @@ def compactness(window: Baskets) -> dict[str, object]:
     """Tree nodes for the window under whole-window, engine-policy and canonical item orders."""
     orders = {
         "window_frequency": item_rank(window),
-        f"first_{ENGINE_POLICY_BASKETS}_frequency": item_rank(window[:ENGINE_POLICY_BASKETS]),
+        f"first_{DEFAULT_BATCH}_frequency": item_rank(window[:DEFAULT_BATCH]),  # engine policy
         "canonical_item_id": np.empty(0, dtype=np.int64),
     }
     out: dict[str, object] = {"baskets": len(window)}
@@ -389,30 +404,37 @@ def child(*args: str) -> dict[str, object]:
 def memory(args: argparse.Namespace) -> dict[str, object]:
     """Peak RSS per windowed basket (large and benchmark windows) and the naive tree's."""
     path = str(fimi_file("quest", args.memory_window + MEMORY_EXTRA, args.seed))
-    batch = str(MEMORY_BATCH)
-    large = child("engine", "--file", path, "--window", str(args.memory_window), "--batch", batch)
+    engine = ("engine", "--file", path, "--batch", str(MEMORY_BATCH))
+    large = child(*engine, "--window", str(args.memory_window))
     small = child(
-        "engine", "--file", path, "--window", str(args.window),
-        "--baskets", str(args.window + MEMORY_EXTRA), "--batch", batch,
-    )  # fmt: skip
+        *engine, "--window", str(args.window), "--baskets", str(args.window + MEMORY_EXTRA)
+    )
     naive = child("naive", "--file", path, "--baskets", str(args.window))
-    naive_per_basket = naive["peak_minus_baseline_per_basket"]
-    small_per_basket = small["peak_minus_baseline_per_basket"]
-    assert isinstance(naive_per_basket, float) and isinstance(small_per_basket, float)
+    naive_bytes = naive["peak_minus_baseline_per_basket"]
+    engine_peak = small["peak_minus_baseline_per_basket"]
+    engine_final = small["final_minus_baseline_per_basket"]
+    assert isinstance(naive_bytes, float)
+    assert isinstance(engine_peak, float) and isinstance(engine_final, float)
     return {
         "data": f"quest, {args.memory_window + MEMORY_EXTRA} baskets streamed from {path}",
         f"engine_window_{args.memory_window}": large,
         f"engine_window_{args.window}": small,
         f"naive_{args.window}_baskets": naive,
-        "naive_over_engine_bytes_per_basket": round(naive_per_basket / small_per_basket, 2),
+        "naive_over_engine_peak_bytes_per_basket": round(naive_bytes / engine_peak, 2),
+        "naive_over_engine_final_bytes_per_basket": round(naive_bytes / engine_final, 2),
+        "notes": "bytes per basket above the child's RSS before loading data; the naive tree "
+        "only inserts, so its peak is also its final size",
     }
 
 
 # ------------------------------------------------------------------------ main
 def parse_args(argv: Sequence[str] | None) -> argparse.Namespace:
     """Command-line options, validated."""
-    parser = argparse.ArgumentParser(prog="python -m simulations.bench_engine", description=__doc__,
-                                     formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser = argparse.ArgumentParser(
+        prog="python -m simulations.bench_engine",
+        description=__doc__,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
     parser.add_argument("--baskets", type=int, default=200_000, help="baskets streamed")
     parser.add_argument("--window", type=int, default=100_000, help="window size in baskets")
     parser.add_argument("--min-support", type=Fraction, default=Fraction("0.005"))

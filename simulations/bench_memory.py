@@ -1,6 +1,7 @@
 """Child process of the engine benchmark: peak memory of a window tree fed from a FIMI file.
 
-Run in a fresh interpreter so that nothing else inflates the resident set size (RSS):
+Run in a fresh interpreter so that nothing else inflates the resident set size (RSS); the
+peak is the process image's high-water mark (VmHWM), which a fresh exec resets:
 
     python -m simulations.bench_memory engine --file F --window W [--baskets N] [--batch B]
     python -m simulations.bench_memory naive --file F --baskets N
@@ -36,7 +37,20 @@ def current_rss() -> int:
 
 
 def peak_rss() -> int:
-    """Peak resident set size of this process so far, in bytes (ru_maxrss is KiB on Linux)."""
+    """Peak resident set size of this process image so far, in bytes (VmHWM, Linux).
+
+    Not ru_maxrss: Linux carries the parent's peak over fork and exec into the child's
+    ru_maxrss, so a child of a big benchmark process would report the parent's peak.
+    """
+    with open("/proc/self/status", encoding="ascii") as status:
+        for line in status:
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) * 1024
+    raise RuntimeError("no VmHWM in /proc/self/status")
+
+
+def ru_maxrss() -> int:
+    """getrusage's peak RSS in bytes (KiB on Linux); includes the parent's peak at fork."""
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 
 
@@ -73,7 +87,7 @@ def engine_memory(path: str, window: int, limit: int | None, batch: int) -> dict
         streamed += len(chunk)
     if tree is None:
         raise ValueError(f"no baskets in {path}")
-    peak, n = peak_rss(), len(store)
+    peak, final, n = peak_rss(), current_rss(), len(store)
     nodes, tree_bytes, store_bytes = tree.node_count(), tree.nbytes(), store.nbytes
     return {
         "window_baskets": n,
@@ -83,12 +97,14 @@ def engine_memory(path: str, window: int, limit: int | None, batch: int) -> dict
         "baseline_rss_bytes": baseline,
         "baseline_peak_rss_bytes": baseline_peak,
         "peak_rss_bytes": peak,
-        "final_rss_bytes": current_rss(),
+        "ru_maxrss_bytes": ru_maxrss(),
+        "final_rss_bytes": final,
         "node_count": nodes,
         "tree_nbytes": tree_bytes,
         "store_nbytes": store_bytes,
         "peak_rss_per_basket": peak / n,
         "peak_minus_baseline_per_basket": (peak - baseline) / n,
+        "final_minus_baseline_per_basket": (final - baseline) / n,
         "tree_nbytes_per_basket": tree_bytes / n,
         "tree_nbytes_per_node": tree_bytes / nodes,
         "store_nbytes_per_basket": store_bytes / n,
@@ -114,6 +130,7 @@ def naive_memory(path: str, n: int) -> dict[str, object]:
         "item_order": "frequency of these baskets",
         "baseline_rss_bytes": baseline,
         "peak_rss_bytes": peak,
+        "ru_maxrss_bytes": ru_maxrss(),
         "node_count": nodes,
         "peak_minus_baseline_per_basket": (peak - baseline) / inserted,
         "peak_minus_baseline_per_node": (peak - baseline) / nodes,

@@ -36,7 +36,7 @@ START = datetime(2026, 11, 2, 8, 0, tzinfo=timezone.utc).timestamp()
 def checkouts(n: int, seed: int = 7) -> list[dict]:
     """``n`` checkouts as JSON-ready objects with id, ts and items."""
     rng = np.random.default_rng(seed)
-    popularity = 1.0 / np.arange(1, len(ITEMS) + 1) ** 0.7
+    popularity = 1.0 / np.arange(1, len(ITEMS) + 1) ** 0.5
     order = rng.permutation(len(ITEMS))
     weights = np.empty(len(ITEMS))
     weights[order] = popularity / popularity.sum()

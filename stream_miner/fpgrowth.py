@@ -66,11 +66,7 @@ def mine_tree(
     freq_items = np.flatnonzero(frequent)
     if freq_items.size == 0:
         return {}
-    rank = np.full(n_items, np.iinfo(np.int64).max, dtype=np.int64)
-    ranked = min(n_items, len(tree.rank))
-    rank[:ranked] = tree.rank[:ranked]
-    unranked = rank == np.iinfo(np.int64).max
-    rank[unranked] = (1 << 40) + np.flatnonzero(unranked)
+    rank = tree.rank[:n_items]
     by_tree_order = freq_items[np.argsort(rank[freq_items], kind="stable")]
     code_of = np.full(n_items, -1, dtype=np.int64)
     code_of[by_tree_order] = np.arange(by_tree_order.size)

@@ -13,7 +13,8 @@ where their path ends) by walking parent links upwards, vectorised. Single-baske
 :meth:`insert` and :meth:`expire` are batches of one.
 
 Item order: every basket is stored as a path sorted by the tree's ``rank`` of each item
-(smaller rank nearer the root); items never ranked go last, in id order. Any fixed order
+(smaller rank nearer the root), a permutation of the item ids; items first seen later are
+appended to it in id order. Any fixed order
 gives exact mining; a frequency-descending order gives a more compact tree. Changing the
 order means rebuilding (:meth:`PrefixTree.build`), which the engine does on a schedule.
 The header table (item totals and node links) is built on demand by :func:`header_table`.
@@ -22,6 +23,7 @@ The header table (item totals and node links) is built on demand by :func:`heade
 from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
+from itertools import chain
 from dataclasses import dataclass
 
 import numpy as np
@@ -31,7 +33,7 @@ from stream_miner.node_index import NodeIndex
 ROOT = 0
 _SHIFT = np.int64(32)
 _ITEM_MASK = np.int64(0xFFFFFFFF)
-_UNRANKED = 1 << 40
+_GROWTH = 1.25
 
 
 @dataclass(frozen=True)
@@ -44,7 +46,7 @@ class TreeArrays:
     item: np.ndarray
     parent: np.ndarray
     count: np.ndarray
-    rank: np.ndarray  # rank of each item id (never-ranked items: large values)
+    rank: np.ndarray  # rank of each item id: a permutation of 0..len-1
     n_baskets: int
 
 
@@ -87,7 +89,9 @@ class PrefixTree:
     {(1,): 1}
     """
 
-    __slots__ = ("_key", "_count", "_tail", "_used", "_free", "_n_free", "_index", "_rank")
+    __slots__ = (
+        "_key", "_count", "_tail", "_used", "_free", "_n_free", "_index", "_rank", "_item_at_rank"
+    )
 
     def __init__(self, rank: Sequence[int] | np.ndarray = (), capacity_hint: int = 1024) -> None:
         capacity = max(16, capacity_hint)
@@ -99,17 +103,21 @@ class PrefixTree:
         self._n_free = 0
         self._index = NodeIndex(capacity)
         self._rank = np.asarray(rank, dtype=np.int64).copy()
+        if not np.array_equal(np.sort(self._rank), np.arange(self._rank.size)):
+            raise ValueError("rank must be a permutation of 0..len(rank)-1")
+        self._item_at_rank = np.argsort(self._rank)
 
     # ----------------------------------------------------------------- ordering
     @property
     def rank(self) -> np.ndarray:
-        """Rank of each item id (a copy); unranked items sort after all ranked ones."""
+        """Rank of each item id (a copy): a permutation of 0..len-1."""
         return self._rank.copy()
 
     def _ensure_ranked(self, max_item: int) -> None:
         if max_item >= self._rank.size:
-            extra = np.arange(self._rank.size, max_item + 1, dtype=np.int64) + _UNRANKED
+            extra = np.arange(self._rank.size, max_item + 1, dtype=np.int64)
             self._rank = np.concatenate([self._rank, extra])
+            self._item_at_rank = np.concatenate([self._item_at_rank, extra])
 
     def path_of(self, basket: Iterable[int]) -> list[int]:
         """The basket's items in tree order (the path it takes from the root)."""
@@ -117,21 +125,23 @@ class PrefixTree:
 
     def paths_of(self, baskets: Sequence[Sequence[int]]) -> PathBatch:
         """Sort each basket's items into tree order, vectorised."""
-        lengths = np.fromiter((len(b) for b in baskets), dtype=np.int64, count=len(baskets))
+        lengths = np.fromiter(map(len, baskets), dtype=np.int64, count=len(baskets))
         start = np.zeros(len(baskets) + 1, dtype=np.int64)
         np.cumsum(lengths, out=start[1:])
-        items = np.fromiter((i for b in baskets for i in b), dtype=np.int64, count=int(start[-1]))
+        items = np.fromiter(chain.from_iterable(baskets), dtype=np.int64, count=int(start[-1]))
         return self.order_paths(items, start)
 
     def order_paths(self, items: np.ndarray, start: np.ndarray) -> PathBatch:
         """Sort the items of each row (CSR form) into tree order."""
-        if items.size and items.min() < 0:
-            raise ValueError("item ids must be non-negative")
-        if items.size:
-            self._ensure_ranked(int(items.max()))
+        if items.size == 0:
+            return PathBatch(items=items.astype(np.int64), start=start)
+        if items.min() < 0 or items.max() > _ITEM_MASK:
+            raise ValueError("item ids must lie in 0..2**32-1")
+        self._ensure_ranked(int(items.max()))
         rows = np.repeat(np.arange(start.size - 1, dtype=np.int64), np.diff(start))
-        order = np.lexsort((self._rank[items], rows))
-        return PathBatch(items=items[order], start=start)
+        keys = (rows << _SHIFT) | self._rank[items]
+        keys.sort()
+        return PathBatch(items=self._item_at_rank[keys & _ITEM_MASK], start=start)
 
     # ------------------------------------------------------------------ updates
     def insert(self, basket: Iterable[int]) -> int:
@@ -219,7 +229,8 @@ class PrefixTree:
         np.add.at(self._count, all_nodes, np.full(all_nodes.size, -1, dtype=np.int32))
         dead = all_nodes[self._count[all_nodes] == 0]
         if dead.size:
-            dead = np.unique(dead)
+            dead.sort()
+            dead = dead[np.append(True, dead[1:] != dead[:-1])]
             self._index.remove(self._key[dead], self._key)
             self._key[dead] = -1
             self._push_free(dead)
@@ -244,12 +255,12 @@ class PrefixTree:
         self._n_free += nodes.size
 
     def _grow(self, needed: int) -> None:
-        capacity = max(needed, int(self._key.size * 1.5))
-        for name, fill in (("_key", -1), ("_count", 0), ("_tail", 0)):
-            old = getattr(self, name)
-            new = np.full(capacity, fill, dtype=old.dtype)
-            new[: old.size] = old
-            setattr(self, name, new)
+        """Enlarge the node arrays in place (realloc: no second copy held at once)."""
+        old = self._key.size
+        capacity = max(needed, int(old * _GROWTH))
+        for array, fill in ((self._key, -1), (self._count, 0), (self._tail, 0)):
+            array.resize(capacity, refcheck=False)
+            array[old:] = fill
 
     # ------------------------------------------------------------------ queries
     @property

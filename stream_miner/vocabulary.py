@@ -31,10 +31,10 @@ class ItemVocabulary:
 
     def id_of(self, name: str) -> int:
         """Return the id of ``name``, assigning the next free id if it is new. O(1)."""
+        if not isinstance(name, str):
+            raise TypeError(f"item names must be strings, got {type(name).__name__}")
         item_id = self._ids.get(name)
         if item_id is None:
-            if not isinstance(name, str):
-                raise TypeError(f"item names must be strings, got {type(name).__name__}")
             item_id = len(self._names)
             self._ids[name] = item_id
             self._names.append(name)
@@ -46,12 +46,11 @@ class ItemVocabulary:
 
     def encode(self, names: Iterable[str]) -> list[int]:
         """Map names to ids, assigning ids to new names."""
-        get = self._ids.get
-        out = []
-        for name in names:
-            item_id = get(name)
-            out.append(self.id_of(name) if item_id is None else item_id)
-        return out
+        ids = self._ids
+        try:
+            return [ids[name] for name in names]
+        except (KeyError, TypeError):
+            return [self.id_of(name) for name in names]
 
     def name(self, item_id: int) -> str:
         """Return the name of ``item_id``."""

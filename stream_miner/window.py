@@ -1,10 +1,11 @@
 """Window store: the baskets currently in the window, kept compactly for exact expiry.
 
 Baskets are stored in arrival order in numpy chunks (one chunk per applied batch): item ids
-(int32, in the tree's path order), row offsets, event times and tree handles. Expiry is exact
-and never needs the tree: a count window drops the oldest baskets, a time window drops every
-basket whose event time has fallen out, in or out of arrival order. About 4 bytes per item
-plus 20 bytes per basket.
+(in the tree's path order; 2 bytes each while ids fit, else 4), row offsets, tree handles
+and event times (only when the baskets carry them). Expiry is exact and never needs the
+tree: a count window drops the oldest baskets, a time window drops every basket whose event
+time has fallen out, in or out of arrival order. About 2 bytes per item plus 9 bytes per
+basket (17 with event times).
 """
 
 from __future__ import annotations
@@ -39,16 +40,23 @@ class TimeWindow:
 
 @dataclass
 class _Chunk:
-    items: np.ndarray  # int32, all baskets' items back to back
-    start: np.ndarray  # int64, len = baskets + 1
-    ts: np.ndarray  # float64 event times (NaN when unknown)
-    handle: np.ndarray  # int64 tree handles
+    items: np.ndarray  # uint16 or int32, all baskets' items back to back
+    start: np.ndarray  # int32, len = baskets + 1
+    handle: np.ndarray  # int32 tree handles
+    event_ts: np.ndarray | None  # float64 event times, None when no basket has one
     alive: np.ndarray = field(init=False)
     n_alive: int = field(init=False)
 
     def __post_init__(self) -> None:
-        self.alive = np.ones(self.ts.size, dtype=bool)
-        self.n_alive = self.ts.size
+        self.alive = np.ones(self.handle.size, dtype=bool)
+        self.n_alive = self.handle.size
+
+    @property
+    def ts(self) -> np.ndarray:
+        """Event times (NaN where unknown)."""
+        if self.event_ts is None:
+            return np.full(self.handle.size, np.nan)
+        return self.event_ts
 
     def kill(self, rows: np.ndarray) -> np.ndarray:
         """Mark rows expired; return their handles."""
@@ -58,7 +66,8 @@ class _Chunk:
 
     @property
     def nbytes(self) -> int:
-        return self.items.nbytes + self.start.nbytes + self.ts.nbytes + self.handle.nbytes + (
+        ts_bytes = 0 if self.event_ts is None else self.event_ts.nbytes
+        return self.items.nbytes + self.start.nbytes + self.handle.nbytes + ts_bytes + (
             self.alive.nbytes
         )
 
@@ -78,12 +87,13 @@ class WindowStore:
         """Add a batch of baskets (CSR items in path order), newest last."""
         if ts.size == 0:
             return
+        item_type = np.uint16 if items.size == 0 or items.max() < 1 << 16 else np.int32
         self._chunks.append(
             _Chunk(
-                items=items.astype(np.int32),
-                start=start.astype(np.int64),
-                ts=ts.astype(np.float64),
-                handle=handles.astype(np.int64),
+                items=items.astype(item_type),
+                start=(start - start[0]).astype(np.int32),
+                handle=handles.astype(np.int32),
+                event_ts=None if np.isnan(ts).all() else ts.astype(np.float64),
             )
         )
         self._size += ts.size
@@ -94,7 +104,7 @@ class WindowStore:
         while n > 0 and self._chunks:
             chunk = self._chunks[0]
             rows = np.flatnonzero(chunk.alive[self._head :])[:n] + self._head
-            out.append(chunk.kill(rows))
+            out.append(chunk.kill(rows).astype(np.int64))
             n -= rows.size
             self._size -= rows.size
             self._head = int(rows[-1]) + 1 if rows.size else self._head
@@ -107,10 +117,11 @@ class WindowStore:
         """Remove every basket with event time <= ``cutoff``; return their handles."""
         out = []
         for chunk in list(self._chunks):
-            if chunk.n_alive == 0 or np.nanmin(np.where(chunk.alive, chunk.ts, np.inf)) > cutoff:
+            ts = chunk.ts
+            if chunk.n_alive == 0 or not (chunk.alive & (ts <= cutoff)).any():
                 continue
-            rows = np.flatnonzero(chunk.alive & (chunk.ts <= cutoff))
-            out.append(chunk.kill(rows))
+            rows = np.flatnonzero(chunk.alive & (ts <= cutoff))
+            out.append(chunk.kill(rows).astype(np.int64))
             self._size -= rows.size
         while self._chunks and self._chunks[0].n_alive == 0:
             self._chunks.popleft()
@@ -124,11 +135,11 @@ class WindowStore:
             rows = np.flatnonzero(chunk.alive)
             row_len = (chunk.start[1:] - chunk.start[:-1])[rows]
             keep = np.repeat(chunk.alive, chunk.start[1:] - chunk.start[:-1])
-            items.append(chunk.items[keep])
+            items.append(chunk.items[keep].astype(np.int64))
             lengths.append(row_len)
             ts.append(chunk.ts[rows])
         if not items:
-            return np.empty(0, np.int32), np.zeros(1, np.int64), np.empty(0, np.float64)
+            return np.empty(0, np.int64), np.zeros(1, np.int64), np.empty(0, np.float64)
         all_lengths = np.concatenate(lengths)
         start = np.zeros(all_lengths.size + 1, dtype=np.int64)
         np.cumsum(all_lengths, out=start[1:])

@@ -90,7 +90,7 @@ def test_empty_basket_and_negative_ids_are_refused():
     tree = PrefixTree()
     with pytest.raises(ValueError, match="empty"):
         tree.insert([])
-    with pytest.raises(ValueError, match="non-negative"):
+    with pytest.raises(ValueError, match="item ids must lie"):
         tree.insert([-1])
 
 
