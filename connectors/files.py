@@ -22,7 +22,7 @@ import io
 import json
 import math
 from collections.abc import Iterator
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from typing import BinaryIO
 
 from connectors.records import BadRecord, RawBasket
@@ -141,7 +141,7 @@ def parse_event_time(value: object) -> float:
         except ValueError:
             raise ValueError(f"event time {value!r} is not ISO-8601") from None
         if moment.tzinfo is None:
-            moment = moment.replace(tzinfo=timezone.utc)
+            moment = moment.replace(tzinfo=UTC)
         return moment.timestamp()
     raise ValueError(f"event time must be a number or an ISO-8601 string, got {value!r}")
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import argparse
 import json
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import numpy as np
 
@@ -30,7 +30,7 @@ HABITS = [  # (items, share of baskets)
     (("dish soap", "sponges"), 0.03),
 ]
 PROMOTION = (("pancake mix", "maple syrup"), 0.08)
-START = datetime(2026, 11, 2, 8, 0, tzinfo=timezone.utc).timestamp()
+START = datetime(2026, 11, 2, 8, 0, tzinfo=UTC).timestamp()
 
 
 def checkouts(n: int, seed: int = 7) -> list[dict]:

@@ -4,17 +4,17 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from enum import Enum
+from enum import StrEnum
 
 
-class Oversize(str, Enum):
+class Oversize(StrEnum):
     """What happens to a basket with more distinct items than the cap."""
 
     SKIP = "skip"
     TRUNCATE = "truncate"
 
 
-class Verdict(str, Enum):
+class Verdict(StrEnum):
     """Outcome of cleaning one basket."""
 
     ACCEPTED = "accepted"
