@@ -20,7 +20,7 @@ from stream_miner.hygiene import BasketPolicy, Verdict
 from stream_miner.rules import Rule, RuleFilter, generate_rules
 from stream_miner.tree import PrefixTree, frequency_rank
 from stream_miner.vocabulary import ItemVocabulary
-from stream_miner.window import CountWindow, TimeWindow, WindowStore
+from stream_miner.window import CountWindow, Expired, TimeWindow, WindowStore
 
 DEFAULT_BATCH = 8192
 
@@ -127,21 +127,21 @@ class WindowMiner:
         if isinstance(self.window, CountWindow):
             overflow = len(self.store) + len(pending) - self.window.size
             expired = self.store.expire_oldest(max(0, overflow))
-            dropped = max(0, overflow - expired.size)
+            dropped = max(0, overflow - len(expired.handles))
             pending, pending_ts = pending[dropped:], pending_ts[dropped:]
         elif isinstance(self.window, TimeWindow):
             cutoff = self._newest_ts - self.window.seconds
             expired = self.store.expire_until(cutoff)
             keep = pending_ts > cutoff
-            pending = [b for b, k in zip(pending, keep.tolist()) if k]
+            pending = [b for b, k in zip(pending, keep.tolist(), strict=True) if k]
             pending_ts = pending_ts[keep]
         else:
-            expired = np.empty(0, dtype=np.int64)
+            expired = Expired.concat([])
         if not self._ranked and pending:
             self._rank_from(pending)
         paths = self.tree.paths_of(pending)
-        handles = self.tree.update(paths, expired)
-        self.store.append(paths.items, paths.start, pending_ts, handles)
+        handles = self.tree.update(paths, expired.handles)
+        self.store.append(paths, pending_ts, handles)
 
     def _rank_from(self, baskets: list[list[int]]) -> None:
         """Fix the tree's item order from the first batch's item frequencies."""
@@ -152,12 +152,12 @@ class WindowMiner:
     def restructure(self) -> None:
         """Rebuild the tree in the window's current item-frequency order (results unchanged)."""
         self.flush()
-        items, start, ts = self.store.contents()
-        counts = np.bincount(items, minlength=len(self.vocabulary))
+        baskets, ts = self.store.contents()
+        counts = np.bincount(baskets.items, minlength=len(self.vocabulary))
         self.tree = PrefixTree(frequency_rank(counts), capacity_hint=self.tree.node_count() + 16)
-        paths = self.tree.order_paths(items.astype(np.int64), start)
+        paths = self.tree.order_paths(baskets)
         handles = self.tree.update(paths, ())
-        self.store.replace(paths.items, paths.start, ts, handles)
+        self.store.replace(paths, ts, handles)
 
     # ------------------------------------------------------------------ reads
     def __len__(self) -> int:

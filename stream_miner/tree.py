@@ -23,11 +23,11 @@ The header table (item totals and node links) is built on demand by :func:`heade
 from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
-from itertools import chain
 from dataclasses import dataclass
 
 import numpy as np
 
+from stream_miner.baskets import BasketArrays
 from stream_miner.node_index import NodeIndex
 
 ROOT = 0
@@ -63,17 +63,6 @@ class HeaderTable:
         if item >= len(self.item_count):
             return self.nodes[:0]
         return self.nodes[self.start[item] : self.start[item + 1]]
-
-
-@dataclass(frozen=True)
-class PathBatch:
-    """Baskets as paths in tree order: path ``r`` is ``items[start[r]:start[r + 1]]``."""
-
-    items: np.ndarray
-    start: np.ndarray
-
-    def __len__(self) -> int:
-        return self.start.size - 1
 
 
 class PrefixTree:
@@ -123,25 +112,21 @@ class PrefixTree:
         """The basket's items in tree order (the path it takes from the root)."""
         return self.paths_of([list(basket)]).items.tolist()
 
-    def paths_of(self, baskets: Sequence[Sequence[int]]) -> PathBatch:
+    def paths_of(self, baskets: Sequence[Sequence[int]]) -> BasketArrays:
         """Sort each basket's items into tree order, vectorised."""
-        lengths = np.fromiter(map(len, baskets), dtype=np.int64, count=len(baskets))
-        start = np.zeros(len(baskets) + 1, dtype=np.int64)
-        np.cumsum(lengths, out=start[1:])
-        items = np.fromiter(chain.from_iterable(baskets), dtype=np.int64, count=int(start[-1]))
-        return self.order_paths(items, start)
+        return self.order_paths(BasketArrays.from_lists(baskets))
 
-    def order_paths(self, items: np.ndarray, start: np.ndarray) -> PathBatch:
-        """Sort the items of each row (CSR form) into tree order."""
+    def order_paths(self, baskets: BasketArrays) -> BasketArrays:
+        """Sort the items of each basket into tree order: the paths the baskets take."""
+        items = baskets.items
         if items.size == 0:
-            return PathBatch(items=items.astype(np.int64), start=start)
+            return baskets
         if items.min() < 0 or items.max() > _ITEM_MASK:
             raise ValueError("item ids must lie in 0..2**32-1")
         self._ensure_ranked(int(items.max()))
-        rows = np.repeat(np.arange(start.size - 1, dtype=np.int64), np.diff(start))
-        keys = (rows << _SHIFT) | self._rank[items]
+        keys = (baskets.row_of_items() << _SHIFT) | self._rank[items]
         keys.sort()
-        return PathBatch(items=self._item_at_rank[keys & _ITEM_MASK], start=start)
+        return BasketArrays(self._item_at_rank[keys & _ITEM_MASK], baskets.start)
 
     # ------------------------------------------------------------------ updates
     def insert(self, basket: Iterable[int]) -> int:
@@ -150,7 +135,7 @@ class PrefixTree:
 
     def expire(self, basket: Iterable[int]) -> None:
         """Remove one earlier inserted basket; raise ValueError (changing nothing) if absent."""
-        self.update(PathBatch(np.empty(0, np.int64), np.zeros(1, np.int64)), [self.handle_of(basket)])
+        self.update(BasketArrays.empty(), [self.handle_of(basket)])
 
     def handle_of(self, basket: Iterable[int]) -> int:
         """The handle of a stored basket; ValueError when no stored basket has these items."""
@@ -165,7 +150,7 @@ class PrefixTree:
             raise ValueError(f"basket is not in the tree: {path}")
         return node
 
-    def update(self, paths: PathBatch, expired: Sequence[int] | np.ndarray) -> np.ndarray:
+    def update(self, paths: BasketArrays, expired: Sequence[int] | np.ndarray) -> np.ndarray:
         """Expire baskets given by handle, then insert baskets given as paths in tree order.
 
         Returns the handles of the inserted baskets, in order. Expired handles are checked
@@ -187,7 +172,7 @@ class PrefixTree:
         if (uses > self._tail[distinct]).any():
             raise ValueError("expire of a handle that ends no stored basket (or too often)")
 
-    def _add(self, paths: PathBatch, lengths: np.ndarray) -> np.ndarray:
+    def _add(self, paths: BasketArrays, lengths: np.ndarray) -> np.ndarray:
         n = lengths.size
         handles = np.zeros(n, dtype=np.int64)
         if n == 0:

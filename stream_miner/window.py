@@ -15,6 +15,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from stream_miner.baskets import BasketArrays
+
 
 @dataclass(frozen=True)
 class CountWindow:
@@ -58,17 +60,39 @@ class _Chunk:
             return np.full(self.handle.size, np.nan)
         return self.event_ts
 
-    def kill(self, rows: np.ndarray) -> np.ndarray:
-        """Mark rows expired; return their handles."""
+    def baskets(self, rows: np.ndarray) -> BasketArrays:
+        """The baskets at ``rows`` (increasing indices)."""
+        whole = BasketArrays(self.items, self.start)
+        return whole.select(rows)
+
+    def kill(self, rows: np.ndarray) -> Expired:
+        """Mark rows expired; return their handles and baskets."""
         self.alive[rows] = False
         self.n_alive -= rows.size
-        return self.handle[rows]
+        return Expired(self.handle[rows].astype(np.int64), self.baskets(rows))
 
     @property
     def nbytes(self) -> int:
         ts_bytes = 0 if self.event_ts is None else self.event_ts.nbytes
         return self.items.nbytes + self.start.nbytes + self.handle.nbytes + ts_bytes + (
             self.alive.nbytes
+        )
+
+
+@dataclass(frozen=True)
+class Expired:
+    """Baskets that left the window: their tree handles and their items."""
+
+    handles: np.ndarray
+    baskets: BasketArrays
+
+    @classmethod
+    def concat(cls, parts: list[Expired]) -> Expired:
+        if not parts:
+            return cls(np.empty(0, dtype=np.int64), BasketArrays.empty())
+        return cls(
+            np.concatenate([p.handles for p in parts]),
+            BasketArrays.concat([p.baskets for p in parts]),
         )
 
 
@@ -83,74 +107,84 @@ class WindowStore:
     def __len__(self) -> int:
         return self._size
 
-    def append(self, items: np.ndarray, start: np.ndarray, ts: np.ndarray, handles: np.ndarray) -> None:
-        """Add a batch of baskets (CSR items in path order), newest last."""
+    def append(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray) -> None:
+        """Add a batch of baskets (items in path order), newest last."""
         if ts.size == 0:
             return
+        items = paths.items
         item_type = np.uint16 if items.size == 0 or items.max() < 1 << 16 else np.int32
         self._chunks.append(
             _Chunk(
                 items=items.astype(item_type),
-                start=(start - start[0]).astype(np.int32),
+                start=(paths.start - paths.start[0]).astype(np.int32),
                 handle=handles.astype(np.int32),
                 event_ts=None if np.isnan(ts).all() else ts.astype(np.float64),
             )
         )
         self._size += ts.size
 
-    def expire_oldest(self, n: int) -> np.ndarray:
-        """Remove the ``n`` oldest live baskets; return their handles."""
+    def expire_oldest(self, n: int) -> Expired:
+        """Remove the ``n`` oldest live baskets."""
         out = []
         while n > 0 and self._chunks:
             chunk = self._chunks[0]
             rows = np.flatnonzero(chunk.alive[self._head :])[:n] + self._head
-            out.append(chunk.kill(rows).astype(np.int64))
+            out.append(chunk.kill(rows))
             n -= rows.size
             self._size -= rows.size
             self._head = int(rows[-1]) + 1 if rows.size else self._head
             if chunk.n_alive == 0:
                 self._chunks.popleft()
                 self._head = 0
-        return np.concatenate(out) if out else np.empty(0, dtype=np.int64)
+        return Expired.concat(out)
 
-    def expire_until(self, cutoff: float) -> np.ndarray:
-        """Remove every basket with event time <= ``cutoff``; return their handles."""
+    def expire_until(self, cutoff: float) -> Expired:
+        """Remove every basket with event time <= ``cutoff``."""
         out = []
-        for chunk in list(self._chunks):
-            ts = chunk.ts
-            if chunk.n_alive == 0 or not (chunk.alive & (ts <= cutoff)).any():
-                continue
-            rows = np.flatnonzero(chunk.alive & (ts <= cutoff))
-            out.append(chunk.kill(rows).astype(np.int64))
-            self._size -= rows.size
+        for chunk in self._chunks:
+            due = chunk.alive & (chunk.ts <= cutoff)
+            if due.any():
+                rows = np.flatnonzero(due)
+                out.append(chunk.kill(rows))
+                self._size -= rows.size
         while self._chunks and self._chunks[0].n_alive == 0:
             self._chunks.popleft()
             self._head = 0
-        return np.concatenate(out) if out else np.empty(0, dtype=np.int64)
+        return Expired.concat(out)
 
-    def contents(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """All live baskets as (items, start, ts) in CSR form, oldest first."""
-        items, lengths, ts = [], [], []
+    def baskets_with(self, wanted: np.ndarray) -> BasketArrays:
+        """Live baskets holding at least one item whose entry in the boolean ``wanted`` is set.
+
+        O(items in the window), vectorised.
+        """
+        parts = []
+        for chunk in self._chunks:
+            hit = wanted[chunk.items]
+            if not hit.any():
+                continue
+            rows_hit = np.zeros(chunk.alive.size, dtype=bool)
+            row_of = np.repeat(np.arange(chunk.alive.size), np.diff(chunk.start))
+            rows_hit[row_of[hit]] = True
+            rows = np.flatnonzero(rows_hit & chunk.alive)
+            if rows.size:
+                parts.append(chunk.baskets(rows))
+        return BasketArrays.concat(parts)
+
+    def contents(self) -> tuple[BasketArrays, np.ndarray]:
+        """All live baskets and their event times, oldest first."""
+        parts, ts = [], []
         for chunk in self._chunks:
             rows = np.flatnonzero(chunk.alive)
-            row_len = (chunk.start[1:] - chunk.start[:-1])[rows]
-            keep = np.repeat(chunk.alive, chunk.start[1:] - chunk.start[:-1])
-            items.append(chunk.items[keep].astype(np.int64))
-            lengths.append(row_len)
+            parts.append(chunk.baskets(rows))
             ts.append(chunk.ts[rows])
-        if not items:
-            return np.empty(0, np.int64), np.zeros(1, np.int64), np.empty(0, np.float64)
-        all_lengths = np.concatenate(lengths)
-        start = np.zeros(all_lengths.size + 1, dtype=np.int64)
-        np.cumsum(all_lengths, out=start[1:])
-        return np.concatenate(items), start, np.concatenate(ts)
+        return BasketArrays.concat(parts), np.concatenate(ts) if ts else np.empty(0)
 
-    def replace(self, items: np.ndarray, start: np.ndarray, ts: np.ndarray, handles: np.ndarray) -> None:
+    def replace(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray) -> None:
         """Replace the whole content (after the tree was rebuilt in a new item order)."""
         self._chunks.clear()
         self._head = 0
         self._size = 0
-        self.append(items, start, ts, handles)
+        self.append(paths, ts, handles)
 
     @property
     def nbytes(self) -> int:
