@@ -47,7 +47,8 @@ from mlxtend.preprocessing import TransactionEncoder
 from simulations.heavy_tailed import heavy_tailed_baskets
 from simulations.naive import NaiveFPTree, naive_fpgrowth
 from simulations.quest import quest_baskets
-from stream_miner.engine import DEFAULT_BATCH, MiningParams, WindowMiner
+from stream_miner.engine import DEFAULT_BATCH, WindowMiner
+from stream_miner.params import MiningParams
 from stream_miner.fpgrowth import mine_tree
 from stream_miner.tree import PrefixTree, frequency_rank
 from stream_miner.window import CountWindow

@@ -13,7 +13,9 @@ from typing import BinaryIO, TextIO
 
 from connectors.files import FORMATS, InputError, detect_format, read_records
 from connectors.records import BadRecord
-from stream_miner.engine import MiningParams, MiningResult, WindowMiner
+from stream_miner.engine import WindowMiner
+from stream_miner.params import MiningParams
+from stream_miner.result import MiningResult
 from stream_miner.hygiene import DEFAULT_MAX_BASKET_ITEMS, BasketPolicy, Oversize, Verdict
 from stream_miner.output import json_lines, write_table
 from stream_miner.progress import Progress
@@ -73,6 +75,9 @@ def _parser() -> argparse.ArgumentParser:
     win.add_argument("--window", type=_positive_int, metavar="N", help="mine the last N baskets (default: all)")
     win.add_argument("--every", type=_positive_int, metavar="K",
                      help="once the window is full, emit the result again after every K further baskets")
+    win.add_argument("--full-remine", action="store_true",
+                     help="with --every: mine the whole window at every tick instead of updating "
+                     "the previous result (same output; for comparison)")
     thr = mine.add_argument_group("itemsets")
     support = thr.add_mutually_exclusive_group()
     support.add_argument("--min-support", type=_fraction, metavar="F",
@@ -104,8 +109,8 @@ def _parser() -> argparse.ArgumentParser:
 
 def run_mine(args: argparse.Namespace) -> int:
     """The ``mine`` command."""
-    if args.every is not None and args.every < 1:
-        raise UsageError("--every must be at least 1")
+    if args.full_remine and args.every is None:
+        raise UsageError("--full-remine needs --every")
     params = _mining_params(args)
     miner = WindowMiner(
         CountWindow(args.window) if args.window else None,
@@ -170,7 +175,10 @@ class _Ticker:
 
 def _emit(miner: WindowMiner, params: MiningParams, args: argparse.Namespace, out: TextIO,
           tick: int | None) -> None:
-    result: MiningResult = miner.mine(params)
+    if tick is None:
+        result: MiningResult = miner.mine(params)
+    else:
+        result = miner.tick(params, full_remine=args.full_remine).result
     if args.json:
         lines = json_lines(result, tick)
         if lines:

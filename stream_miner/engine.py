@@ -10,14 +10,18 @@ from __future__ import annotations
 import math
 from collections import Counter
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass, field
-from fractions import Fraction
+from dataclasses import dataclass
 
 import numpy as np
 
-from stream_miner.fpgrowth import mine_tree
+from stream_miner.baskets import BasketArrays
+from stream_miner.delta import ResultDelta, diff_results
+from stream_miner.fpgrowth import Itemset, mine_tree
 from stream_miner.hygiene import BasketPolicy, Verdict
-from stream_miner.rules import Rule, RuleFilter, generate_rules
+from stream_miner.incremental import BorderTracker
+from stream_miner.params import MiningParams
+from stream_miner.result import MiningResult
+from stream_miner.rules import generate_rules
 from stream_miner.tree import PrefixTree, frequency_rank
 from stream_miner.vocabulary import ItemVocabulary
 from stream_miner.window import CountWindow, Expired, TimeWindow, WindowStore
@@ -26,51 +30,13 @@ DEFAULT_BATCH = 8192
 
 
 @dataclass(frozen=True)
-class MiningParams:
-    """What to mine: a support threshold (fraction of the window, or absolute count),
-    a maximum itemset length, item include/exclude lists, and optional rule filters."""
+class Tick:
+    """One tick: its number (0, 1, ...), the full current result, and the change since the
+    previous tick (everything counts as added on tick 0)."""
 
-    min_support: Fraction | None = None
-    min_count: int | None = None
-    max_len: int | None = None
-    include: frozenset[str] | None = None
-    exclude: frozenset[str] = frozenset()
-    rules: RuleFilter | None = None
-
-    def __post_init__(self) -> None:
-        if (self.min_support is None) == (self.min_count is None):
-            raise ValueError("give exactly one of min_support (a fraction) and min_count")
-        if self.min_support is not None and not 0 < self.min_support <= 1:
-            raise ValueError(f"min support must lie in (0, 1], got {self.min_support}")
-        if self.min_count is not None and self.min_count < 1:
-            raise ValueError(f"min count must be at least 1, got {self.min_count}")
-        if self.max_len is not None and self.max_len < 1:
-            raise ValueError(f"max itemset length must be at least 1, got {self.max_len}")
-
-    def threshold(self, n_baskets: int) -> int:
-        """Absolute count threshold for a window of ``n_baskets``: ceil(fraction x N), >= 1."""
-        if self.min_count is not None:
-            return self.min_count
-        assert self.min_support is not None
-        return max(1, math.ceil(self.min_support * n_baskets))
-
-
-@dataclass(frozen=True)
-class MiningResult:
-    """Frequent itemsets (item names, sorted) with counts, and rules, for one window."""
-
-    n_baskets: int
-    min_count: int
-    itemsets: dict[tuple[str, ...], int]
-    rules: list[Rule]
-    names: Sequence[str] = field(repr=False)
-
-    def rule_names(self, rule: Rule) -> tuple[tuple[str, ...], tuple[str, ...]]:
-        """Antecedent and consequent of ``rule`` as sorted item names."""
-        return (
-            tuple(sorted(self.names[i] for i in rule.antecedent)),
-            tuple(sorted(self.names[i] for i in rule.consequent)),
-        )
+    number: int
+    result: MiningResult
+    delta: ResultDelta
 
 
 class WindowMiner:
@@ -102,6 +68,11 @@ class WindowMiner:
         self._pending_ts: list[float] = []
         self._newest_ts = -math.inf
         self._ranked = False
+        self._tracker: BorderTracker | None = None
+        self._tracker_key: tuple | None = None
+        self._changes: list[tuple[BasketArrays, int]] = []
+        self._last: MiningResult | None = None
+        self._ticks = 0
 
     # ------------------------------------------------------------------ input
     def add(self, items: Iterable[str], ts: float | None = None) -> Verdict:
@@ -142,6 +113,8 @@ class WindowMiner:
         paths = self.tree.paths_of(pending)
         handles = self.tree.update(paths, expired.handles)
         self.store.append(paths, pending_ts, handles)
+        if self._tracker is not None:
+            self._changes += [(expired.baskets, -1), (paths, 1)]
 
     def _rank_from(self, baskets: list[list[int]]) -> None:
         """Fix the tree's item order from the first batch's item frequencies."""
@@ -166,13 +139,56 @@ class WindowMiner:
         return len(self.store)
 
     def mine(self, params: MiningParams) -> MiningResult:
-        """Frequent itemsets (and rules if asked) of the current window, exactly."""
+        """Frequent itemsets (and rules if asked) of the current window: a full FP-growth mine."""
         self.flush()
-        n = len(self.store)
-        min_count = params.threshold(n)
         names = self.vocabulary.names()
+        min_count = params.threshold(len(self.store))
         allowed = self._allowed_mask(params, names)
         found = mine_tree(self.tree.arrays(), min_count, max_len=params.max_len, allowed=allowed)
+        return self._result(found, min_count, params, names)
+
+    def tick(self, params: MiningParams, *, full_remine: bool = False) -> Tick:
+        """The current result and what changed since the previous tick.
+
+        Incremental by default: only the baskets that entered or left the window since the
+        previous tick are looked at (see :mod:`stream_miner.incremental`); the first tick, and
+        any tick whose item lists or length limit differ from the previous one, starts the
+        tracking from the window. ``full_remine`` mines the whole window instead (same result).
+        """
+        self.flush()
+        names = self.vocabulary.names()
+        min_count = params.threshold(len(self.store))
+        if full_remine:
+            result = self.mine(params)
+            self._tracker = None
+        else:
+            result = self._result(self._track(params, names, min_count), min_count, params, names)
+        tick = Tick(self._ticks, result, diff_results(self._last, result))
+        self._last = result
+        self._ticks += 1
+        return tick
+
+    def _track(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int]:
+        key = (params.max_len, params.include, params.exclude)
+        if self._tracker is None or key != self._tracker_key:
+            self._tracker = BorderTracker(params.max_len)
+            self._tracker_key = key
+            self._changes = [(self.store.contents()[0], 1)]
+        changed = BasketArrays.concat([baskets for baskets, _ in self._changes])
+        signs = np.concatenate(
+            [np.full(len(baskets), sign, dtype=np.int64) for baskets, sign in self._changes] or [[]]
+        ).astype(np.int64)
+        self._tracker.apply(changed, signs)
+        self._changes = []
+        allowed = self._allowed_mask(params, names)
+        allowed = np.ones(len(names), dtype=bool) if allowed is None else allowed
+        self._tracker.retarget(min_count, allowed, self.store.baskets_with)
+        return self._tracker.itemsets()
+
+    def _result(
+        self, found: dict[Itemset, int], min_count: int, params: MiningParams, names: Sequence[str]
+    ) -> MiningResult:
+        n = len(self.store)
         rules = [] if params.rules is None else generate_rules(found, n, params.rules, names)
         itemsets = {tuple(sorted(names[i] for i in items)): c for items, c in found.items()}
         return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules, names=names)
@@ -181,14 +197,13 @@ class WindowMiner:
     def _allowed_mask(params: MiningParams, names: Sequence[str]) -> np.ndarray | None:
         if params.include is None and not params.exclude:
             return None
-        allowed = np.array(
+        return np.array(
             [
                 (params.include is None or name in params.include) and name not in params.exclude
                 for name in names
             ],
             dtype=bool,
         )
-        return allowed
 
     def check_invariants(self) -> None:
         """Raise AssertionError unless the tree holds exactly the stored window."""

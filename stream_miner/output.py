@@ -6,7 +6,7 @@ import json
 import math
 from typing import TextIO
 
-from stream_miner.engine import MiningResult
+from stream_miner.result import MiningResult
 
 
 def json_lines(result: MiningResult, tick: int | None = None) -> list[str]:

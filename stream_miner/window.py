@@ -159,6 +159,9 @@ class WindowStore:
         """
         parts = []
         for chunk in self._chunks:
+            bound = 1 << 16 if chunk.items.dtype == np.uint16 else int(chunk.items.max()) + 1
+            if wanted.size < bound:
+                wanted = np.concatenate([wanted, np.zeros(bound - wanted.size, dtype=bool)])
             hit = wanted[chunk.items]
             if not hit.any():
                 continue

@@ -10,7 +10,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
-from stream_miner.engine import MiningParams, WindowMiner
+from stream_miner.engine import WindowMiner
+from stream_miner.params import MiningParams
 from stream_miner.hygiene import BasketPolicy, Oversize, Verdict
 from stream_miner.window import CountWindow, TimeWindow
 

@@ -13,7 +13,8 @@ import pytest
 from mlxtend.frequent_patterns import association_rules, fpgrowth
 from mlxtend.preprocessing import TransactionEncoder
 
-from stream_miner.engine import MiningParams, WindowMiner
+from stream_miner.engine import WindowMiner
+from stream_miner.params import MiningParams
 from stream_miner.rules import RuleFilter
 from stream_miner.window import CountWindow
 from simulations.heavy_tailed import heavy_tailed_baskets

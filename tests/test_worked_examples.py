@@ -10,7 +10,8 @@ import math
 
 import pytest
 
-from stream_miner.engine import MiningParams, WindowMiner
+from stream_miner.engine import WindowMiner
+from stream_miner.params import MiningParams
 from stream_miner.rules import RuleFilter
 from stream_miner.window import CountWindow
 

@@ -1,0 +1,103 @@
+"""Incremental ticks: at every tick the incremental result equals a full re-mine and the
+brute-force miner, and the delta equals the difference of consecutive results."""
+
+from __future__ import annotations
+
+import math
+from fractions import Fraction
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from brute_force import frequent_itemsets
+from stream_miner.engine import WindowMiner
+from stream_miner.params import MiningParams
+from stream_miner.rules import RuleFilter
+from stream_miner.window import CountWindow, TimeWindow
+
+names_st = st.lists(st.sampled_from("abcdefghijk"), min_size=1, max_size=7)
+params_st = st.builds(
+    MiningParams,
+    min_support=st.fractions(Fraction(1, 30), Fraction(1, 2)),
+    max_len=st.one_of(st.none(), st.integers(1, 4)),
+    exclude=st.frozensets(st.sampled_from("abcdefghijk"), max_size=2),
+    rules=st.one_of(st.none(), st.just(RuleFilter(min_confidence=Fraction(1, 3)))),
+)
+
+
+def restricted(itemsets, params):
+    return {
+        k: v for k, v in itemsets.items()
+        if not set(k) & params.exclude and (params.max_len is None or len(k) <= params.max_len)
+    }
+
+
+def check_tick(tick, full, window, params, previous):
+    min_count = max(1, math.ceil(params.min_support * len(window)))
+    expected = restricted(frequent_itemsets(window, min_count), params)
+    assert tick.result.itemsets == full.itemsets == expected
+    assert {full.rule_names(r): r for r in full.rules} == {tick.result.rule_names(r): r for r in tick.result.rules}
+    old = {} if previous is None else previous.itemsets
+    new = tick.result.itemsets
+    assert tick.delta.added == {k: v for k, v in new.items() if k not in old}
+    assert tick.delta.removed == {k: v for k, v in old.items() if k not in new}
+    assert tick.delta.changed == {k: (old[k], v) for k, v in new.items() if k in old and old[k] != v}
+    old_rules = set() if previous is None else {previous.rule_names(r) for r in previous.rules}
+    new_rules = {tick.result.rule_names(r) for r in tick.result.rules}
+    assert set(tick.delta.rules_added) == new_rules - old_rules
+    assert set(tick.delta.rules_removed) == old_rules - new_rules
+
+
+@settings(max_examples=120, deadline=None)
+@given(
+    st.lists(st.tuples(names_st, st.booleans()), min_size=1, max_size=90),
+    st.integers(1, 30),
+    st.integers(1, 9),
+    st.lists(params_st, min_size=1, max_size=3),
+)
+def test_count_window_ticks_equal_full_remine_and_brute_force(stream, size, batch, param_cycle):
+    incremental = WindowMiner(CountWindow(size), batch_size=batch)
+    seen, previous, ticks = [], None, 0
+    for basket, tick_now in stream:
+        incremental.add(basket)
+        seen.append(basket)
+        if tick_now:
+            params = param_cycle[ticks % len(param_cycle)]
+            tick = incremental.tick(params)
+            assert tick.number == ticks
+            check_tick(tick, incremental.mine(params), seen[-size:], params, previous)
+            previous, ticks = tick.result, ticks + 1
+
+
+@settings(max_examples=120, deadline=None)
+@given(
+    st.lists(st.tuples(names_st, st.integers(0, 60), st.booleans()), min_size=1, max_size=80),
+    st.integers(1, 20),
+    st.integers(1, 6),
+    params_st,
+)
+def test_time_window_ticks_stay_exact_as_the_window_and_threshold_change(stream, seconds, batch, params):
+    incremental = WindowMiner(TimeWindow(seconds), batch_size=batch)
+    arrived, previous = [], None
+    for basket, ts, tick_now in stream:
+        incremental.add(basket, ts=ts)
+        arrived.append((basket, ts))
+        if tick_now:
+            newest = max(t for _, t in arrived)
+            window = [b for b, t in arrived if t > newest - seconds]
+            tick = incremental.tick(params)
+            check_tick(tick, incremental.mine(params), window, params, previous)
+            previous = tick.result
+
+
+def test_full_remine_ticks_give_the_same_results_and_deltas():
+    stream = [["a", "b"], ["a", "c"], ["b", "c", "d"], ["a", "b", "d"], ["c"], ["a", "b"]] * 7
+    params = MiningParams(min_count=3, rules=RuleFilter())
+    fast, full = WindowMiner(CountWindow(10), batch_size=3), WindowMiner(CountWindow(10), batch_size=3)
+    for i, basket in enumerate(stream, start=1):
+        fast.add(basket)
+        full.add(basket)
+        if i % 4 == 0:
+            a, b = fast.tick(params), full.tick(params, full_remine=True)
+            assert a.result.itemsets == b.result.itemsets
+            assert a.delta == b.delta
