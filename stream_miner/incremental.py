@@ -33,7 +33,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from stream_miner.baskets import BasketArrays
-from stream_miner.pairs import KeyCounts, count_keys, pairs_in, unpack
+from stream_miner.pairs import KeyCounts, count_keys, pairs_in, search, unpack
 
 Itemset = tuple[int, ...]
 BasketSource = Callable[[np.ndarray], BasketArrays]  # baskets holding any of the flagged items
@@ -255,7 +255,7 @@ def _locate(sorted_keys: np.ndarray, keys: np.ndarray) -> tuple[np.ndarray, np.n
     """Position of each key in ``sorted_keys`` and whether it is there."""
     if sorted_keys.size == 0:
         return np.zeros(keys.size, dtype=np.int64), np.zeros(keys.size, dtype=bool)
-    position = np.minimum(np.searchsorted(sorted_keys, keys), sorted_keys.size - 1)
+    position = np.minimum(search(sorted_keys, keys), sorted_keys.size - 1)
     return position, sorted_keys[position] == keys
 
 

@@ -58,6 +58,17 @@ def count_keys(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return ordered[starts], counts
 
 
+def search(sorted_keys: np.ndarray, keys: np.ndarray) -> np.ndarray:
+    """``np.searchsorted(sorted_keys, keys)``, faster for many queries: the queries are
+    sorted first so the search walks memory in order."""
+    if keys.size < 4096:
+        return np.searchsorted(sorted_keys, keys)
+    order = np.argsort(keys)
+    position = np.empty(keys.size, dtype=np.int64)
+    position[order] = np.searchsorted(sorted_keys, keys[order])
+    return position
+
+
 class KeyCounts:
     """Counts by int64 key (item pairs, or longer itemsets keyed by prefix id), in batches.
 
@@ -79,7 +90,7 @@ class KeyCounts:
     def add(self, keys: np.ndarray, deltas: np.ndarray) -> None:
         """Add ``deltas`` to the counts of ``keys`` (keys may repeat). O(batch log stored),
         plus O(stored) when new keys arrive or counts reach zero."""
-        position = np.searchsorted(self.keys, keys)
+        position = search(self.keys, keys)
         present = position < self.keys.size
         present[present] = self.keys[position[present]] == keys[present]
         np.add.at(self.counts, position[present], deltas[present])
@@ -97,7 +108,7 @@ class KeyCounts:
 
     def count(self, keys: np.ndarray) -> np.ndarray:
         """Current count of each key (0 when absent)."""
-        position = np.minimum(np.searchsorted(self.keys, keys), max(self.keys.size - 1, 0))
+        position = np.minimum(search(self.keys, keys), max(self.keys.size - 1, 0))
         if self.keys.size == 0:
             return np.zeros(keys.size, dtype=np.int64)
         hit = self.keys[position] == keys

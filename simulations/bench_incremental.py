@@ -1,0 +1,122 @@
+"""Incremental tick benchmark: refresh cost per tick against full re-mining, in one run.
+
+    python -m simulations.bench_incremental [--ticks 30] [--quick]
+
+For each scenario a window is filled, the first tick starts the tracking, and then every
+tick adds one slide of baskets and refreshes the result. Beside the incremental refresh, the
+same run times this project's full mine of the same window and pyfim's C FP-growth on the
+window's baskets at sampled ticks, and checks that all three agree. Figures are medians;
+ratios matter (the machines are noisy). Prints one JSON object; progress on stderr.
+
+Scenarios: Quest T10 I4 (1,000 items) at 0.5 % with windows of 100,000 and 1,000,000 and
+slides of 1,000 and 10,000 baskets; the heavy-tailed data set at 0.5 %; and the acceptance
+setting of the command line (window 10,000, a tick every 500 baskets, 1 %).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import statistics
+import sys
+import time
+from collections.abc import Sequence
+from fractions import Fraction
+
+import fim
+
+from simulations.bench_engine import environment, load_baskets, log
+from stream_miner.engine import WindowMiner
+from stream_miner.params import MiningParams
+from stream_miner.window import CountWindow
+
+SCENARIOS = {
+    "quest_w100k_s1k": ("quest", 100_000, 1_000, "0.005"),
+    "quest_w1m_s1k": ("quest", 1_000_000, 1_000, "0.005"),
+    "quest_w100k_s10k": ("quest", 100_000, 10_000, "0.005"),
+    "heavy_w100k_s1k": ("heavy", 100_000, 1_000, "0.005"),
+    "quest_w10k_s500_cli_setting": ("quest", 10_000, 500, "0.01"),
+}
+QUICK = ("quest_w100k_s1k", "quest_w10k_s500_cli_setting")
+
+
+def run_scenario(data: str, window: int, slide: int, support: str, ticks: int, samples: int) -> dict:
+    """Fill, start tracking, then time ``ticks`` incremental refreshes and sampled full mines."""
+    baskets = load_baskets(data, window + slide * ticks, seed=1)
+    vocabulary = [str(i) for i in range(max(max(b) for b in baskets) + 1)]
+    named = [[vocabulary[i] for i in b] for b in baskets]
+    miner = WindowMiner(CountWindow(window))
+    params = MiningParams(min_support=Fraction(support))
+    for basket in named[:window]:
+        miner.add(basket)
+    started = time.perf_counter()
+    miner.tick(params)
+    first_tick = time.perf_counter() - started
+    sample_at = {round(k * (ticks - 1) / max(1, samples - 1)) for k in range(samples)}
+    apply, refresh, full, pyfim, sizes = [], [], [], [], []
+    for t in range(ticks):
+        end = window + (t + 1) * slide
+        for basket in named[end - slide : end]:
+            miner.add(basket)
+        started = time.perf_counter()
+        miner.flush()
+        apply.append(time.perf_counter() - started)
+        started = time.perf_counter()
+        result = miner.tick(params).result
+        refresh.append(time.perf_counter() - started)
+        sizes.append(len(result.itemsets))
+        if t in sample_at:
+            started = time.perf_counter()
+            again = miner.mine(params)
+            full.append(time.perf_counter() - started)
+            window_baskets = baskets[end - window : end]
+            started = time.perf_counter()
+            reference = fim.fpgrowth(window_baskets, supp=-result.min_count, report="a")
+            pyfim.append(time.perf_counter() - started)
+            reference = {tuple(sorted(vocabulary[i] for i in s)): c for s, c in reference}
+            if not result.itemsets == again.itemsets == reference:
+                raise AssertionError(f"incremental, full and pyfim results differ at tick {t}")
+    refresh_s = statistics.median(refresh)
+    return {
+        "data": data,
+        "window": window,
+        "slide": slide,
+        "min_support": support,
+        "ticks": ticks,
+        "frequent_itemsets_median": statistics.median(sizes),
+        "first_tick_s": round(first_tick, 4),
+        "refresh_per_tick_s": round(refresh_s, 4),
+        "refresh_per_tick_p90_s": round(sorted(refresh)[int(0.9 * (len(refresh) - 1))], 4),
+        "tree_update_per_tick_s": round(statistics.median(apply), 4),
+        "full_mine_s": round(statistics.median(full), 4),
+        "pyfim_s": round(statistics.median(pyfim), 4),
+        "full_over_refresh": round(statistics.median(full) / refresh_s, 2),
+        "pyfim_over_refresh": round(statistics.median(pyfim) / refresh_s, 2),
+        "checked_ticks": sorted(sample_at),
+    }
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(prog="python -m simulations.bench_incremental", description=__doc__)
+    parser.add_argument("--ticks", type=int, default=30, help="timed ticks per scenario")
+    parser.add_argument("--samples", type=int, default=3, help="ticks with full mine and pyfim")
+    parser.add_argument("--quick", action="store_true", help=f"only {', '.join(QUICK)}")
+    parser.add_argument("--only", choices=sorted(SCENARIOS), action="append")
+    args = parser.parse_args(argv)
+    chosen = args.only or (QUICK if args.quick else list(SCENARIOS))
+    report: dict = {"environment": environment(), "scenarios": {}}
+    for name in chosen:
+        log(f"scenario {name}")
+        report["scenarios"][name] = run_scenario(*SCENARIOS[name], args.ticks, args.samples)
+    scenarios = report["scenarios"]
+    if "quest_w100k_s1k" in scenarios and "quest_w1m_s1k" in scenarios:
+        report["window_1m_over_100k_refresh"] = round(
+            scenarios["quest_w1m_s1k"]["refresh_per_tick_s"] / scenarios["quest_w100k_s1k"]["refresh_per_tick_s"], 2
+        )
+    json.dump(report, sys.stdout, indent=1)
+    print()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
