@@ -150,12 +150,9 @@ def read_csv(stream: BinaryIO, *, id_column: str, item_column: str) -> Iterator[
     """Long-format CSV: one row per line item, grouped into baskets by transaction id."""
     text = io.TextIOWrapper(stream, encoding="utf-8-sig", errors="surrogateescape", newline="")
     reader = csv.reader(text)
-    try:
-        header = next(reader)
-    except StopIteration:
+    header = _next_row(reader)
+    if header is None:
         return
-    except csv.Error as error:
-        raise InputError(f"line 1: unreadable CSV header: {error}") from None
     if _has_undecodable(header):
         raise InputError("line 1: invalid UTF-8 in the CSV header")
     missing = [c for c in (id_column, item_column) if c not in header]
@@ -169,13 +166,7 @@ def read_csv(stream: BinaryIO, *, id_column: str, item_column: str) -> Iterator[
     items: list[str] = []
     first_line = 0
     finished: set[str] = set()
-    while True:
-        try:
-            row = next(reader)
-        except StopIteration:
-            break
-        except csv.Error as error:
-            raise InputError(f"line {reader.line_num}: unreadable CSV: {error}") from None
+    while (row := _next_row(reader)) is not None:
         line = reader.line_num
         if not row:
             continue  # a blank line holds no line item
@@ -202,6 +193,16 @@ def read_csv(stream: BinaryIO, *, id_column: str, item_column: str) -> Iterator[
         items.append(item)
     if current_id is not None:
         yield RawBasket(items=items, line=first_line, id=current_id)
+
+
+def _next_row(reader: Iterator[list[str]]) -> list[str] | None:
+    """The next CSV row, or None at the end; malformed CSV is an InputError."""
+    try:
+        return next(reader)
+    except StopIteration:
+        return None
+    except csv.Error as error:
+        raise InputError(f"line {reader.line_num}: unreadable CSV: {error}") from None  # type: ignore[attr-defined]
 
 
 def _has_undecodable(fields: list[str]) -> bool:
