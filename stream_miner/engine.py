@@ -27,6 +27,9 @@ from stream_miner.vocabulary import ItemVocabulary
 from stream_miner.window import CountWindow, Expired, TimeWindow, WindowStore
 
 DEFAULT_BATCH = 8192
+ORDER_SAMPLE = 8192  # baskets used to test whether a new item order would pay off
+ORDER_CHECK_MIN = 1000  # baskets applied between two such tests, at least
+ORDER_GAIN = 0.05  # rebuild when the current order needs this much more nodes than a fresh one
 
 
 @dataclass(frozen=True)
@@ -68,6 +71,7 @@ class WindowMiner:
         self._pending_ts: list[float] = []
         self._newest_ts = -math.inf
         self._ranked = False
+        self._applied_since_order = 0
         self._tracker: BorderTracker | None = None
         self._tracker_key: tuple | None = None
         self._changes: list[tuple[BasketArrays, int]] = []
@@ -115,6 +119,19 @@ class WindowMiner:
         self.store.append(paths, pending_ts, handles)
         if self._tracker is not None:
             self._changes += [(expired.baskets, -1), (paths, 1)]
+        self._applied_since_order += len(paths)
+        if self._applied_since_order >= max(len(self.store), ORDER_CHECK_MIN):
+            self._reorder_if_stale()
+
+    def _reorder_if_stale(self) -> None:
+        """Once per window turnover: rebuild the tree in the current frequency order when a
+        sample says that order would need at least ``ORDER_GAIN`` fewer nodes."""
+        self._applied_since_order = 0
+        baskets, ts = self.store.contents()
+        fresh = frequency_rank(np.bincount(baskets.items, minlength=len(self.vocabulary)))
+        sample = baskets.select(np.arange(max(0, len(baskets) - ORDER_SAMPLE), len(baskets)))
+        if _nodes_for(sample, self.tree.rank) > (1 + ORDER_GAIN) * _nodes_for(sample, fresh):
+            self._rebuild(baskets, ts, fresh)
 
     def _rank_from(self, baskets: list[list[int]]) -> None:
         """Fix the tree's item order from the first batch's item frequencies."""
@@ -126,11 +143,13 @@ class WindowMiner:
         """Rebuild the tree in the window's current item-frequency order (results unchanged)."""
         self.flush()
         baskets, ts = self.store.contents()
-        counts = np.bincount(baskets.items, minlength=len(self.vocabulary))
-        self.tree = PrefixTree(frequency_rank(counts), capacity_hint=self.tree.node_count() + 16)
+        self._rebuild(baskets, ts, frequency_rank(np.bincount(baskets.items, minlength=len(self.vocabulary))))
+
+    def _rebuild(self, baskets: BasketArrays, ts: np.ndarray, rank: np.ndarray) -> None:
+        self.tree = PrefixTree(rank, capacity_hint=self.tree.node_count() + 16)
         paths = self.tree.order_paths(baskets)
-        handles = self.tree.update(paths, ())
-        self.store.replace(paths, ts, handles)
+        self.store.replace(paths, ts, self.tree.update(paths, ()))
+        self._applied_since_order = 0
 
     # ------------------------------------------------------------------ reads
     def __len__(self) -> int:
@@ -210,3 +229,10 @@ class WindowMiner:
         self.flush()
         self.tree.check_invariants()
         assert self.tree.n_baskets == len(self.store), "tree and window sizes differ"
+
+
+def _nodes_for(baskets: BasketArrays, rank: np.ndarray) -> int:
+    """Nodes of a tree holding ``baskets`` in item order ``rank``."""
+    tree = PrefixTree(rank, capacity_hint=4 * len(baskets) + 16)
+    tree.update(tree.order_paths(baskets), ())
+    return tree.node_count()

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import random
 from fractions import Fraction
 
 import pytest
@@ -129,3 +130,36 @@ def test_bad_configuration_is_refused_with_clear_errors():
         WindowMiner(TimeWindow(10)).add(["a"])
     with pytest.raises(ValueError, match="max_items"):
         BasketPolicy(max_items=0)
+
+
+def test_item_order_follows_a_popularity_drift_and_results_stay_exact():
+    rng = random.Random(8)
+    before = [rng.sample("abcdef", rng.randint(1, 4)) + rng.sample("uvwxyz", rng.randint(0, 1)) for _ in range(3000)]
+    after = [rng.sample("uvwxyz", rng.randint(1, 4)) + rng.sample("abcdef", rng.randint(0, 1)) for _ in range(3000)]
+    miner = WindowMiner(CountWindow(1000), batch_size=100)
+    for basket in before:
+        miner.add(basket)
+    miner.flush()
+    rank_before = miner.tree.rank.copy()
+    for basket in after:
+        miner.add(basket)
+    miner.check_invariants()
+    rank = miner.tree.rank
+    ids = {name: miner.vocabulary.lookup(name) for name in "abcdefuvwxyz"}
+    assert max(rank[ids[n]] for n in "uvwxyz") < min(rank[ids[n]] for n in "abcdef")
+    assert min(rank_before[ids[n]] for n in "uvwxyz") > max(rank_before[ids[n]] for n in "abcdef")
+    assert miner.mine(MiningParams(min_count=20)).itemsets == frequent_itemsets(after[-1000:], 20)
+
+
+def test_a_stable_item_order_is_kept():
+    rng = random.Random(9)
+    miner = WindowMiner(CountWindow(500), batch_size=50)
+    stream = [rng.sample("abcdefgh", rng.randint(1, 5)) for _ in range(4000)]
+    for basket in stream[:500]:
+        miner.add(basket)
+    miner.flush()
+    tree = miner.tree
+    for basket in stream[500:]:
+        miner.add(basket)
+    miner.flush()
+    assert miner.tree is tree  # same popularity: never rebuilt
