@@ -189,7 +189,7 @@ class BorderTracker:
             )
             if known.any():
                 counts[known] = old.levels[size - 2].counts.count(old.encode(candidates[known]))
-            counts[~known] = count_in(candidates[~known], window)
+            counts[~known] = count_in(candidates[~known], window, self.item_counts)
             stays = (counts >= keep_above) & (old.frequent_rows(candidates) if len(old.levels) >= size - 1 else False)
             self.lattice.levels.append(self._level(candidates, counts, (counts >= threshold) | stays))
             size += 1
@@ -269,15 +269,19 @@ def _count_pairs_of(pairs: KeyCounts, entering: np.ndarray, watched: np.ndarray,
     pairs.add(distinct, times)
 
 
-def count_in(itemsets: np.ndarray, window: BasketSource) -> np.ndarray:
-    """Exact counts of the itemsets (matrix rows) over the window: the baskets holding each
-    itemset, found by intersecting per-item basket lists (vertical counting)."""
+def count_in(itemsets: np.ndarray, window: BasketSource, item_counts: np.ndarray) -> np.ndarray:
+    """Exact counts of the itemsets (matrix rows) over the window (vertical counting): the
+    baskets holding each itemset's rarest item are read from the window once, and their
+    lists of baskets per item are intersected, rarest first."""
     if itemsets.shape[0] == 0:
         return np.zeros(0, dtype=np.int64)
+    anchors = itemsets[np.arange(itemsets.shape[0]), np.argmin(item_counts[itemsets], axis=1)]
+    anchor_flags = np.zeros(int(itemsets.max()) + 1, dtype=bool)
+    anchor_flags[anchors] = True
+    baskets = window(anchor_flags)
     items = np.unique(itemsets)
-    flags = np.zeros(int(items[-1]) + 1, dtype=bool)
+    flags = np.zeros(anchor_flags.size, dtype=bool)
     flags[items] = True
-    baskets = window(flags)
     keep = baskets.items < flags.size
     keep[keep] = flags[baskets.items[keep]]
     entries, rows = baskets.items[keep], baskets.row_of_items()[keep]
@@ -286,10 +290,10 @@ def count_in(itemsets: np.ndarray, window: BasketSource) -> np.ndarray:
     bounds = np.searchsorted(entries, np.append(items, items[-1] + 1))
     holders = {item: rows[bounds[k] : bounds[k + 1]] for k, item in enumerate(items.tolist())}
     counts = []
-    for itemset in itemsets.tolist():
-        lists = sorted((holders[i] for i in itemset), key=len)
-        common = lists[0]
-        for other in lists[1:]:
-            common = common[np.isin(common, other, assume_unique=True)]
+    for itemset, anchor in zip(itemsets.tolist(), anchors.tolist(), strict=True):
+        common = holders[anchor]
+        for item in itemset:
+            if item != anchor and common.size:
+                common = common[np.isin(common, holders[item], assume_unique=True)]
         counts.append(common.size)
     return np.array(counts, dtype=np.int64)
