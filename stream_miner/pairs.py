@@ -59,9 +59,9 @@ def count_keys(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def search(sorted_keys: np.ndarray, keys: np.ndarray) -> np.ndarray:
-    """``np.searchsorted(sorted_keys, keys)``, faster for many queries: the queries are
-    sorted first so the search walks memory in order."""
-    if keys.size < 4096:
+    """``np.searchsorted(sorted_keys, keys)``, faster for many queries into a table larger
+    than the cache: the queries are sorted first so the search walks memory in order."""
+    if keys.size < 4096 or sorted_keys.size < 1 << 15:
         return np.searchsorted(sorted_keys, keys)
     order = np.argsort(keys)
     position = np.empty(keys.size, dtype=np.int64)
