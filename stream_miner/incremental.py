@@ -38,6 +38,7 @@ from stream_miner.pairs import KeyCounts, count_keys, pairs_in, search, unpack
 Itemset = tuple[int, ...]
 BasketSource = Callable[[np.ndarray], BasketArrays]  # baskets holding any of the flagged items
 _SHIFT = np.int64(32)
+_DENSE_PAIRS = 4096  # up to this many lattice items, pair lookups use a dense matrix
 
 
 @dataclass
@@ -55,6 +56,31 @@ class _Lattice:
     def __init__(self, frequent_items: np.ndarray, levels: list[_Level]) -> None:
         self.frequent_items = frequent_items
         self.levels = levels  # levels[0] holds pairs
+        self._dense = np.full(frequent_items.size, -1, dtype=np.int64)  # item -> lattice position
+        self._pair_flags: np.ndarray | None = None  # lattice pairs as a dense matrix, if small
+
+    def add_pairs(self, level: _Level) -> None:
+        """Set the pair level; small lattices also get a dense matrix for fast pair lookups."""
+        self.levels.append(level)
+        items = np.flatnonzero(self.frequent_items)
+        if items.size <= _DENSE_PAIRS:
+            self._dense[items] = np.arange(items.size)
+            self._pair_flags = np.zeros((items.size, items.size), dtype=bool)
+            first, second = unpack(level.frequent)
+            self._pair_flags[self._dense[first], self._dense[second]] = True
+
+    def pairs_frequent(self, first: np.ndarray, second: np.ndarray) -> np.ndarray:
+        """Which pairs (first < second) are in the lattice."""
+        if self._pair_flags is None:
+            return _locate(self.levels[0].frequent, (first << _SHIFT) | second)[1]
+        inside = (first < self._dense.size) & (second < self._dense.size)
+        out = np.zeros(first.size, dtype=bool)
+        a, b = self._dense[first[inside]], self._dense[second[inside]]
+        known = (a >= 0) & (b >= 0)
+        hits = np.zeros(a.size, dtype=bool)
+        hits[known] = self._pair_flags[a[known], b[known]]
+        out[inside] = hits
+        return out
 
     def encode(self, itemsets: np.ndarray) -> np.ndarray:
         """Key of every row (sorted items), or -1 where a proper prefix is not frequent."""
@@ -76,6 +102,8 @@ class _Lattice:
             return self._item_frequent(itemsets[:, 0])
         if size - 2 >= len(self.levels):
             return np.zeros(itemsets.shape[0], dtype=bool)
+        if size == 2:
+            return self.pairs_frequent(itemsets[:, 0], itemsets[:, 1])
         keys = self.encode(itemsets)
         return (keys >= 0) & _locate(self.levels[size - 2].frequent, keys)[1]
 
@@ -137,8 +165,9 @@ class BorderTracker:
             return
         keys, rows = pairs_in(baskets, self.lattice.frequent_items)
         levels[0].counts.add(keys, signs[rows])
-        hot = _locate(levels[0].frequent, keys)[1]
-        held = np.column_stack(unpack(keys[hot]))
+        first, second = unpack(keys)
+        hot = self.lattice.pairs_frequent(first, second)
+        held = np.column_stack([first[hot], second[hot]])
         rows = rows[hot]
         for level in levels[1:]:
             held, rows = _join(held, rows)
@@ -176,7 +205,7 @@ class BorderTracker:
             margin = np.flatnonzero(~hot & (pairs.counts >= keep_above))
             hot[margin] = _locate(old.levels[0].frequent, pairs.keys[margin])[1]
         frequent = pairs.keys[hot]
-        self.lattice.levels.append(_Level(pairs, frequent, np.column_stack(unpack(frequent))))
+        self.lattice.add_pairs(_Level(pairs, frequent, np.column_stack(unpack(frequent))))
         size = 3
         while self.max_len is None or size <= self.max_len:
             candidates, _ = _join(self.lattice.levels[-1].itemsets, np.zeros(0, dtype=np.int64))
