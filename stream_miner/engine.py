@@ -29,7 +29,7 @@ from stream_miner.window import CountWindow, Expired, TimeWindow, WindowStore
 DEFAULT_BATCH = 8192
 ORDER_SAMPLE = 8192  # baskets used to test whether a new item order would pay off
 ORDER_CHECK_MIN = 1000  # baskets applied between two such tests, at least
-ORDER_GAIN = 0.05  # rebuild when the current order needs this much more nodes than a fresh one
+ORDER_GAIN = 0.02  # rebuild when the current order needs this much more nodes than a fresh one
 
 
 @dataclass(frozen=True)
