@@ -154,7 +154,8 @@ def test_item_order_follows_a_popularity_drift_and_results_stay_exact():
 def test_a_stable_item_order_is_kept():
     rng = random.Random(9)
     miner = WindowMiner(CountWindow(500), batch_size=50)
-    stream = [rng.sample("abcdefgh", rng.randint(1, 5)) for _ in range(4000)]
+    popularity = {"a": 0.9, "b": 0.7, "c": 0.5, "d": 0.35, "e": 0.2, "f": 0.1, "g": 0.05}
+    stream = [[item for item, p in popularity.items() if rng.random() < p] or ["g"] for _ in range(4000)]
     for basket in stream[:500]:
         miner.add(basket)
     miner.flush()
