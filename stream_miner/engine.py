@@ -119,6 +119,8 @@ class WindowMiner:
         self.store.append(paths, pending_ts, handles)
         if self._tracker is not None:
             self._changes += [(expired.baskets, -1), (paths, 1)]
+            if sum(len(baskets) for baskets, _ in self._changes) > 2 * max(len(self.store), 1):
+                self._tracker, self._changes = None, []  # restarting from the window is cheaper
         self._applied_since_order += len(paths)
         if self._applied_since_order >= max(len(self.store), ORDER_CHECK_MIN):
             self._reorder_if_stale()
