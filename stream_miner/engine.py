@@ -95,6 +95,11 @@ class WindowMiner:
             self.flush()
         return verdict
 
+    def advance_time(self, ts: float) -> None:
+        """Move an event-time window's end to ``ts`` (if later) even before a basket that new
+        arrives: the runtime's watermark. Baskets at or before ``ts - seconds`` expire."""
+        self._newest_ts = max(self._newest_ts, float(ts))
+
     def flush(self) -> None:
         """Apply buffered baskets and expiries to the tree. O(batch) vectorised work."""
         pending, pending_ts = self._pending, np.array(self._pending_ts, dtype=np.float64)
