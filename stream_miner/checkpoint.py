@@ -54,6 +54,7 @@ FORMAT = "stream-miner-checkpoint"
 VERSION = 1
 CHECKPOINT_NAME = "checkpoint.npz"
 DEFAULT_FRESH_OPTION = "--fresh"
+_DEFAULT_POLICY = BasketPolicy()
 _TMP_PREFIX = f".{CHECKPOINT_NAME}."
 _TMP_SUFFIX = ".tmp"
 _KEYS = ("header", "names", "items", "start", "ts", "newest_ts", "rank",
@@ -89,7 +90,7 @@ def save_checkpoint(
     # A pure snapshot: the buffer is saved as it is rather than flushed, so saving changes
     # nothing in the miner (a flush would move batch boundaries and thereby the tree's item
     # order, and with it the order in which itemsets and rules are listed).
-    miner.flush(); baskets, ts = miner.store.contents()
+    baskets, ts = miner.store.contents()
     pending = BasketArrays.from_lists(miner._pending)
     names = miner.vocabulary.names()
     header = {
@@ -164,7 +165,7 @@ def load_checkpoint(
     directory: str | os.PathLike,
     *,
     window: CountWindow | TimeWindow | None,
-    policy: BasketPolicy = BasketPolicy(),
+    policy: BasketPolicy = _DEFAULT_POLICY,
     batch_size: int = DEFAULT_BATCH,
     fresh_option: str = DEFAULT_FRESH_OPTION,
 ) -> tuple[WindowMiner, dict] | None:
@@ -272,11 +273,11 @@ def _validate(data, header, window, policy, fail) -> dict[str, Any]:
         if value not in known or type(count) is not int or count < 0:
             raise fail(f"corrupted: bad verdict counter {value!r}: {count!r}")
         counts[Verdict(value)] = count
-    return dict(
-        names=names, baskets=baskets, ts=ts, pending=pending, pending_ts=pending_ts,
-        newest_ts=newest_ts, rank=rank.astype(np.int64), ranked=ranked,
-        applied_since_order=applied, verdicts=counts,
-    )
+    return {
+        "names": names, "baskets": baskets, "ts": ts, "pending": pending, "pending_ts": pending_ts,
+        "newest_ts": newest_ts, "rank": rank.astype(np.int64), "ranked": ranked,
+        "applied_since_order": applied, "verdicts": counts,
+    }
 
 
 def _baskets(data, prefix: str, n_names: int, policy: BasketPolicy, fail) -> tuple[BasketArrays, np.ndarray]:

@@ -73,7 +73,7 @@ class RecentIds:
         if self.horizon is None:
             return {"keep_last": self.keep_last, "ids": list(self._by_arrival)}
         newest = None if self._newest == -math.inf else self._newest
-        return {"horizon": self.horizon, "newest": newest, "ids": sorted(self._by_time)}
+        return {"horizon": self.horizon, "newest": newest, "ids": [list(entry) for entry in sorted(self._by_time)]}
 
     @classmethod
     def from_state(cls, state: dict) -> RecentIds:

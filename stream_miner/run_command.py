@@ -11,6 +11,7 @@ from typing import Any
 
 from connectors.dead_letters import DeadLetterCounter, DeadLetterFile
 from connectors.file_source import FileSource
+from connectors.kafka_source import KafkaSource, client_options
 from connectors.messages import TIME_UNITS, MessageFormat
 from stream_miner.checkpoint import CheckpointError
 from stream_miner.cli_options import (
@@ -32,7 +33,7 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
     """Register ``run`` and its options."""
     run = commands.add_parser(
         "run",
-        help="run continuously over a stream of checkouts (file or stdin)",
+        help="run continuously over a stream of checkouts (Kafka topic, file or stdin)",
         description="Keep an exact sliding window over a stream of checkouts, refresh the "
         "frequent itemsets and rules at every tick, write a snapshot, and checkpoint so that "
         "a restart loses and double-counts nothing. Options may also come from a TOML file "
@@ -41,7 +42,11 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
     run.set_defaults(handler=run_run)
     run.add_argument("--config", metavar="FILE", help="TOML file with option values")
     source = run.add_argument_group("source")
-    source.add_argument("--source", help="file:PATH, or - for stdin")
+    source.add_argument("--source", help="kafka://HOST:PORT/TOPIC, file:PATH, or - for stdin")
+    source.add_argument("--group", help="Kafka consumer group (required for a Kafka source)")
+    source.add_argument("--kafka-option", action="append", default=[], metavar="KEY=VALUE",
+                        help="any kafka-python client option (repeatable); VALUE env:NAME reads it "
+                        "from the environment variable NAME")
     source.add_argument("--format", choices=FILE_FORMATS, default="jsonl", help="record format (default: jsonl)")
     source.add_argument("--follow", action="store_true", help="keep reading as the file grows")
     source.add_argument("--pace", type=float, metavar="PER_SECOND", help="replay at most this many records a second")
@@ -133,7 +138,7 @@ def run_run(args: argparse.Namespace) -> int:
 
 def _settings(args: argparse.Namespace) -> RunSettings:
     if args.source is None:
-        raise UsageError("give --source (file:PATH or -)")
+        raise UsageError("give --source (kafka://HOST:PORT/TOPIC, file:PATH or -)")
     if args.window_size is None and args.window_time is None:
         raise UsageError("give --window-size N or --window-time DURATION")
     if args.tick_every is None and args.tick_interval is None:
@@ -154,12 +159,16 @@ def _settings(args: argparse.Namespace) -> RunSettings:
     )
 
 
-def _source(args: argparse.Namespace, message_format: MessageFormat) -> FileSource:
+def _source(args: argparse.Namespace, message_format: MessageFormat) -> FileSource | KafkaSource:
     spec = args.source
+    if spec.startswith("kafka://"):
+        if not args.group:
+            raise UsageError("a Kafka source needs --group")
+        return KafkaSource(spec, args.group, message_format, client_options(args.kafka_option))
     if spec == "-" or spec.startswith("file:"):
         return FileSource(
             "-" if spec == "-" else spec.removeprefix("file:"), args.format, message_format,
             follow=args.follow, pace=args.pace,
             csv_id_column=args.csv_id_column, csv_item_column=args.csv_item_column,
         )
-    raise UsageError(f"unsupported --source {spec!r}: use file:PATH or - (Kafka sources are not in this version)")
+    raise UsageError(f"unsupported --source {spec!r}: use kafka://HOST:PORT/TOPIC, file:PATH or -")

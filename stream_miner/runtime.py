@@ -114,6 +114,8 @@ class Runner:
         """Process records until the source is exhausted or stopped; return the exit code."""
         self._restore()
         self.source.seek(self.offsets)
+        if hasattr(self.source, "revoke_handler"):
+            self.source.revoke_handler = self._save  # checkpoint before partitions move away
         while not self.stopping:
             records = self.source.poll()
             for record in records:
@@ -200,9 +202,15 @@ class Runner:
 
     # -------------------------------------------------------------- checkpoints
     def _checkpoint(self) -> None:
+        """Save a checkpoint, then commit the offsets it covers."""
+        if self._save():
+            self.source.commit(self.offsets)
+
+    def _save(self) -> dict[int, int]:
+        """Save a checkpoint (durable on return); the offsets it covers, none without one."""
         self._last_checkpoint_at = time.monotonic()
         if self.settings.checkpoint_dir is None:
-            return
+            return {}
         metadata = {
             "source": self.source.name,
             "offsets": {str(p): o for p, o in self.offsets.items()},
@@ -215,7 +223,7 @@ class Runner:
             "counts": dict(self.counts),
         }
         save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
-        self.source.commit(self.offsets)
+        return dict(self.offsets)
 
     def _restore(self) -> None:
         directory = self.settings.checkpoint_dir

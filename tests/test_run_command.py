@@ -131,6 +131,21 @@ def test_event_time_window_with_allowed_lateness(tmp_path):
     assert [json.loads(line)["reason"] for line in letters.read_text().splitlines()] == ["too late"]
 
 
+def test_time_window_run_checkpoints_and_resumes_with_its_duplicate_memory(tmp_path):
+    data = tmp_path / "in.jsonl"
+    rows = [json.dumps({"id": f"t{i}", "ts": 1000 + i, "items": ["x", "y"] if i % 2 else ["x"]}) for i in range(60)]
+    data.write_text("\n".join(rows[:40]) + "\n")
+    command = ["run", "--source", f"file:{data}", "--window-time", "25s", "--tick-every", "10", "--min-count", "1",
+               "--checkpoint-dir", str(tmp_path / "ck"), "--snapshot-out", str(tmp_path / "snap.jsonl")]
+    assert main(command) == 0
+    data.write_text("\n".join(rows[:40] + rows[35:60]) + "\n")  # t35..t39 delivered again
+    assert main(command) == 0
+    header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
+    window = [i for i in range(60) if i > 59 - 25]
+    assert header["consumed"] == 60
+    assert itemsets[("x",)] == len(window) and itemsets[("x", "y")] == sum(i % 2 for i in window)
+
+
 def test_config_file_supplies_options_and_flags_override_it(tmp_path, capsys):
     data = tmp_path / "in.jsonl"
     baskets = write_checkouts(data, 400, seed=5)
@@ -165,7 +180,8 @@ def test_corrupted_checkpoint_is_an_error_until_start_fresh(tmp_path, capsys):
     (["--window-size", "5", "--tick-every", "5"], "--source"),
     (["--source", "file:x", "--tick-every", "5"], "--window-size"),
     (["--source", "file:x", "--window-size", "5"], "--tick-every"),
-    (["--source", "kafka://h:1/t", "--window-size", "5", "--tick-every", "5"], "unsupported --source"),
+    (["--source", "kafka://h:1/t", "--window-size", "5", "--tick-every", "5"], "needs --group"),
+    (["--source", "ftp://x", "--window-size", "5", "--tick-every", "5"], "unsupported --source"),
 ])
 def test_missing_or_unsupported_options_exit_2(args, message, capsys):
     assert main(["run", *args]) == 2
