@@ -18,9 +18,11 @@
 from __future__ import annotations
 
 import os
+import sys
 from collections.abc import Callable
 
 from kafka import KafkaConsumer, OffsetAndMetadata, TopicPartition
+from kafka.errors import KafkaError
 from kafka.consumer.subscription_state import AsyncConsumerRebalanceListener
 
 from connectors.file_source import SourceRecord
@@ -86,8 +88,14 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         positions = self.revoke_handler()  # checkpoint written and durable
         self._checkpointed.update(positions)
         offsets = self._offsets({tp.partition for tp in revoked}, positions)
-        if offsets:
+        if not offsets:
+            return
+        try:
             await self._consumer._coordinator._commit_offsets_sync_async(offsets)
+        except KafkaError as error:  # the group already moved on: the last periodic commit stands
+            print(f"stream-miner: warning: offsets not committed before the rebalance "
+                  f"({type(error).__name__}); the next owner of those partitions starts at the "
+                  "last periodic commit", file=sys.stderr)
 
     async def on_partitions_assigned(self, assigned: set[TopicPartition]) -> None:
         committed = await self._consumer._coordinator.fetch_committed_offsets_async(set(assigned))
@@ -119,8 +127,12 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         """Commit next offsets of the partitions this member still owns."""
         self._checkpointed.update(positions)
         offsets = self._offsets({tp.partition for tp in self._consumer.assignment()}, positions)
-        if offsets:
+        if not offsets:
+            return
+        try:
             self._consumer.commit(offsets)
+        except KafkaError as error:  # e.g. a rebalance in progress: the next checkpoint retries
+            print(f"stream-miner: warning: offset commit deferred ({type(error).__name__})", file=sys.stderr)
 
     def _offsets(self, partitions: set[int], positions: dict[int, int]) -> dict:
         return {
@@ -129,7 +141,10 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         }
 
     def close(self) -> None:
-        self._consumer.close(autocommit=False)
+        try:
+            self._consumer.close(autocommit=False)
+        except KafkaError as error:
+            print(f"stream-miner: warning: closing the Kafka consumer: {error}", file=sys.stderr)
 
     def _decode(self, value: bytes | None, partition: int, offset: int):
         if value is None:
