@@ -31,6 +31,9 @@ class DeadLetterCounter:
         """Count ``letter`` under its reason."""
         self.counts[letter.reason] += 1
 
+    def flush(self) -> None:
+        """Make what was written durable (each write already is, here)."""
+
     def close(self) -> None:
         """Release what the sink holds (nothing here)."""
 

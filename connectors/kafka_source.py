@@ -21,7 +21,7 @@ import os
 import sys
 from collections.abc import Callable
 
-from kafka import KafkaConsumer, OffsetAndMetadata, TopicPartition
+from kafka import KafkaConsumer, KafkaProducer, OffsetAndMetadata, TopicPartition
 from kafka.errors import KafkaError
 from kafka.consumer.subscription_state import AsyncConsumerRebalanceListener
 
@@ -42,7 +42,11 @@ def parse_kafka_url(url: str) -> tuple[str, str]:
 
 
 def client_options(pairs: list[str]) -> dict[str, object]:
-    """``key=value`` strings as kafka-python keyword options (numbers and booleans typed)."""
+    """``key=value`` strings as kafka-python keyword options (numbers and booleans typed).
+
+    The consumer takes the options a consumer knows, producers those a producer knows; an
+    option neither knows is an error.
+    """
     options: dict[str, object] = {}
     for pair in pairs:
         key, sep, value = pair.partition("=")
@@ -53,7 +57,10 @@ def client_options(pairs: list[str]) -> dict[str, object]:
             if name not in os.environ:
                 raise InputError(f"--kafka-option {key}: environment variable {name} is not set")
             value = os.environ[name]
-        options[key.replace(".", "_")] = _typed(value)
+        name = key.replace(".", "_")
+        if name not in KafkaConsumer.DEFAULT_CONFIG and name not in KafkaProducer.DEFAULT_CONFIG:
+            raise InputError(f"--kafka-option {key}: not a kafka-python client option")
+        options[name] = _typed(value)
     return options
 
 
@@ -76,7 +83,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self._format = message_format
         self._checkpointed: dict[int, int] = {}
         self.revoke_handler: Callable[[], dict[int, int]] | None = None
-        settings = DEFAULTS | (options or {})
+        settings = DEFAULTS | {k: v for k, v in (options or {}).items() if k in KafkaConsumer.DEFAULT_CONFIG}
         self._max_records = int(settings.get("max_poll_records", 500))  # type: ignore[call-overload]
         self._consumer = KafkaConsumer(bootstrap_servers=servers, group_id=group, **settings)
         self._consumer.subscribe([self.topic], listener=self)

@@ -12,6 +12,7 @@ from typing import Any
 from connectors.dead_letters import DeadLetterCounter, DeadLetterFile
 from connectors.file_source import FileSource
 from connectors.kafka_source import KafkaSource, client_options
+from connectors.sinks import KafkaDeadLetters
 from connectors.messages import TIME_UNITS, MessageFormat
 from stream_miner.checkpoint import CheckpointError
 from stream_miner.cli_options import (
@@ -78,8 +79,9 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
     state.add_argument("--checkpoint-interval", type=duration, default=30.0, metavar="DURATION")
     state.add_argument("--start-fresh", action="store_true", help="ignore (and later replace) an existing checkpoint")
     state.add_argument("--snapshot-out", type=Path, metavar="PATH", help="rewrite this file after every tick")
-    state.add_argument("--dead-letter-out", type=Path, metavar="PATH",
-                       help="append bad records here as JSON Lines (default: count and report them)")
+    state.add_argument("--dead-letter-out", metavar="PATH_OR_KAFKA",
+                       help="append bad records to this JSON Lines file, or send them to "
+                       "kafka://HOST:PORT/TOPIC (default: count and report them)")
 
 
 def apply_config(parser: argparse.ArgumentParser, argv: list[str]) -> None:
@@ -121,7 +123,7 @@ def run_run(args: argparse.Namespace) -> int:
         max_message_bytes=args.max_message_bytes, max_items=1 << 30,
     )
     source = _source(args, message_format)
-    dead_letters = DeadLetterFile(args.dead_letter_out) if args.dead_letter_out else DeadLetterCounter()
+    dead_letters = _dead_letters(args)
     runner = Runner(settings, source, dead_letters)
     previous = {sig: signal.signal(sig, lambda *_: runner.stop()) for sig in (signal.SIGTERM, signal.SIGINT)}
     try:
@@ -134,6 +136,15 @@ def run_run(args: argparse.Namespace) -> int:
             signal.signal(sig, handler)
         source.close()
         dead_letters.close()
+
+
+def _dead_letters(args: argparse.Namespace) -> DeadLetterCounter | KafkaDeadLetters:
+    target = args.dead_letter_out
+    if target is None:
+        return DeadLetterCounter()
+    if target.startswith("kafka://"):
+        return KafkaDeadLetters(target, client_options(args.kafka_option))
+    return DeadLetterFile(target)
 
 
 def _settings(args: argparse.Namespace) -> RunSettings:

@@ -51,6 +51,7 @@ class DeadLetterSink(Protocol):
     counts: Counter[str]
 
     def write(self, letter: DeadLetter) -> None: ...
+    def flush(self) -> None: ...
 
 
 @dataclass(frozen=True)
@@ -202,8 +203,9 @@ class Runner:
 
     # -------------------------------------------------------------- checkpoints
     def _checkpoint(self) -> None:
-        """Save a checkpoint, then commit the offsets it covers."""
+        """Save a checkpoint, then commit the offsets it covers (dead letters sent first)."""
         if self._save():
+            self.dead_letters.flush()
             self.source.commit(self.offsets)
 
     def _save(self) -> dict[int, int]:

@@ -156,3 +156,25 @@ def test_a_broker_paused_for_15_seconds_loses_nothing(broker, tmp_path):
     _, itemsets = snapshot(tmp_path)
     expected = frequent_itemsets([b["items"] for b in baskets], 1)
     assert itemsets == {tuple(sorted(k)): v for k, v in expected.items()}
+
+
+def test_dead_letters_to_a_kafka_topic_keep_raw_bytes_and_reasons(broker, tmp_path):
+    from kafka import KafkaConsumer
+
+    broker.create_topic("with-bad", 1)
+    broker.create_topic("dead", 1)
+    bad = [b"\xff\xfe not utf-8", b'{"items": [1, 2]}']
+    broker.produce("with-bad", [*checkouts(50, seed=6), *bad])
+    run = start_run(broker, "with-bad", "g-dead", tmp_path, "--window-size", "100", "--tick-every", "10",
+                    "--dead-letter-out", f"kafka://{broker.address}/dead")
+    assert wait_for(lambda: consumed(tmp_path) == 50)
+    time.sleep(1)
+    stop(run)
+    reader = KafkaConsumer("dead", bootstrap_servers=broker.address, auto_offset_reset="earliest",
+                           consumer_timeout_ms=5000)
+    letters = [(m.value, dict(m.headers)) for m in reader]
+    reader.close()
+    assert [value for value, _ in letters] == bad
+    assert [headers["reason"] for _, headers in letters] == [b"invalid UTF-8", b"bad item"]
+    assert [headers["offset"] for _, headers in letters] == [b"50", b"51"]
+    assert all(headers["source"] == b"kafka:with-bad" for _, headers in letters)
