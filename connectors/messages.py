@@ -143,7 +143,12 @@ def _items(value: object, fmt: MessageFormat) -> list[str]:
         raise _Refused("items not a list", f'"{field}" is {_json_type(value)}')
     if not value:
         raise _Refused("empty basket", f'"{field}" is an empty array')
-    names = list(dict.fromkeys(_item_name(item, index, fmt.item_key) for index, item in enumerate(value)))
+    try:
+        names = list(dict.fromkeys(value))  # the common case: every item a string
+    except TypeError:  # an unhashable item, e.g. an object
+        names = []
+    if not names or not all(type(name) is str for name in names):
+        names = list(dict.fromkeys(_item_name(item, index, fmt.item_key) for index, item in enumerate(value)))
     if len(names) > fmt.max_items:
         raise _Refused("basket too large", f"{len(names)} distinct items, limit {fmt.max_items}")
     return names
