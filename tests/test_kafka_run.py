@@ -11,6 +11,7 @@ import threading
 import time
 from collections import Counter
 
+import fim
 import pytest
 
 from brute_force import frequent_itemsets
@@ -116,6 +117,8 @@ def test_sigkill_mid_stream_then_restart_equals_an_uninterrupted_run(broker, tmp
     assert header["consumed"] == 4000 and header["last_id"] == "c3999" and header["size"] == 700
     expected = frequent_itemsets([b["items"] for b in baskets[-700:]], 1)
     assert itemsets == {tuple(sorted(k)): v for k, v in expected.items()}
+    reference = fim.fpgrowth([b["items"] for b in baskets[-700:]], supp=-1, report="a")  # pyfim
+    assert itemsets == {tuple(sorted(k)): v for k, v in reference}
 
 
 def test_two_consumers_in_one_group_lose_and_double_count_nothing(broker, tmp_path):
