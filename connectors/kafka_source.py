@@ -10,6 +10,10 @@
   committed. The listener is kafka-python's asynchronous one: it runs on the client's IO
   loop, so it uses the coordinator's awaitable fetch and commit calls (kafka-python 3.x
   internals, pinned in pyproject) instead of the blocking consumer methods.
+- Mining is kept off the poll path: :meth:`KafkaSource.while_busy` runs a tick on a worker
+  thread while this thread keeps polling with every partition paused, so a slow tick never
+  exceeds ``max_poll_interval_ms``; records of partitions assigned meanwhile are kept for
+  the next :meth:`poll`.
 - Any client option passes through (``--kafka-option key=value``); a value ``env:NAME`` is
   read from the environment variable NAME, so secrets never appear on the command line.
   Option values are never logged.
@@ -19,7 +23,9 @@ from __future__ import annotations
 
 import os
 import sys
+import threading
 from collections.abc import Callable
+from typing import TypeVar
 
 from kafka import KafkaConsumer, KafkaProducer, OffsetAndMetadata, TopicPartition
 from kafka.errors import KafkaError
@@ -29,6 +35,7 @@ from connectors.file_source import SourceRecord
 from connectors.files import InputError
 from connectors.messages import DeadLetter, MessageFormat, decode_message
 
+T = TypeVar("T")
 DEFAULTS = {"enable_auto_commit": False, "auto_offset_reset": "earliest", "max_poll_records": 500}
 
 
@@ -83,6 +90,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self._format = message_format
         self._checkpointed: dict[int, int] = {}
         self.revoke_handler: Callable[[], dict[int, int]] | None = None
+        self._backlog: list[SourceRecord] = []
         settings = DEFAULTS | {k: v for k, v in (options or {}).items() if k in KafkaConsumer.DEFAULT_CONFIG}
         self._max_records = int(settings.get("max_poll_records", 500))  # type: ignore[call-overload]
         self._consumer = KafkaConsumer(bootstrap_servers=servers, group_id=group, **settings)
@@ -119,13 +127,39 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self._checkpointed = dict(positions)
 
     def poll(self, max_records: int = 500) -> list[SourceRecord]:
-        batches = self._consumer.poll(timeout_ms=200, max_records=min(max_records, self._max_records))
-        out = []
-        for tp, messages in batches.items():
-            for message in messages:
-                out.append(SourceRecord(self._decode(message.value, tp.partition, message.offset),
-                                        tp.partition, message.offset))
-        return out
+        if self._backlog:
+            out, self._backlog = self._backlog, []
+            return out
+        return self._records(self._consumer.poll(timeout_ms=200, max_records=min(max_records, self._max_records)))
+
+    def while_busy(self, work: Callable[[], T]) -> T:
+        """Run ``work`` on a worker thread while this thread keeps the group membership alive
+        by polling with every partition paused."""
+        paused = set(self._consumer.assignment())
+        self._consumer.pause(*paused)
+        outcome: dict[str, object] = {}
+
+        def run() -> None:
+            try:
+                outcome["value"] = work()
+            except BaseException as error:  # handed back to the calling thread below
+                outcome["error"] = error
+
+        worker = threading.Thread(target=run, name="stream-miner-tick")
+        worker.start()
+        while worker.is_alive():
+            self._backlog += self._records(self._consumer.poll(timeout_ms=100))
+        self._consumer.resume(*(paused & set(self._consumer.assignment())))
+        if "error" in outcome:
+            raise outcome["error"]  # type: ignore[misc]
+        return outcome["value"]  # type: ignore[return-value]
+
+    def _records(self, batches: dict) -> list[SourceRecord]:
+        return [
+            SourceRecord(self._decode(message.value, tp.partition, message.offset), tp.partition, message.offset)
+            for tp, messages in batches.items()
+            for message in messages
+        ]
 
     def exhausted(self) -> bool:
         return False  # a topic has no end; stop with SIGTERM

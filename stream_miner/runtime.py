@@ -18,6 +18,7 @@ import heapq
 import json
 import math
 import sys
+import threading
 import time
 from collections import Counter
 from dataclasses import dataclass
@@ -32,6 +33,7 @@ from stream_miner.engine import WindowMiner
 from stream_miner.hygiene import BasketPolicy, Verdict
 from stream_miner.output import json_lines
 from stream_miner.params import MiningParams
+from stream_miner.result import MiningResult
 from stream_miner.window import CountWindow, TimeWindow
 
 
@@ -105,6 +107,7 @@ class Runner:
         self._since_tick = 0
         self._last_tick_at = time.monotonic()
         self._last_checkpoint_at = time.monotonic()
+        self._lock = threading.Lock()
 
     # ----------------------------------------------------------------- control
     def stop(self) -> None:
@@ -189,7 +192,8 @@ class Runner:
         return time.monotonic() - self._last_tick_at >= (self.settings.tick_interval or 0)
 
     def _tick(self) -> None:
-        result = self.miner.tick(self.settings.params).result
+        busy = getattr(self.source, "while_busy", None)
+        result = busy(self._mine) if busy is not None else self._mine()
         self._since_tick = 0
         self._last_tick_at = time.monotonic()
         if self.settings.snapshot_out is not None:
@@ -200,6 +204,11 @@ class Runner:
         self.tick += 1
         if time.monotonic() - self._last_checkpoint_at >= self.settings.checkpoint_interval:
             self._checkpoint()
+
+    def _mine(self) -> MiningResult:
+        """Refresh the result (on a worker thread for sources that keep polling meanwhile)."""
+        with self._lock:
+            return self.miner.tick(self.settings.params).result
 
     # -------------------------------------------------------------- checkpoints
     def _checkpoint(self) -> None:
@@ -224,7 +233,8 @@ class Runner:
             "recent": self.recent.state(),
             "counts": dict(self.counts),
         }
-        save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
+        with self._lock:  # a rebalance may ask for a checkpoint while a tick is running
+            save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
         return dict(self.offsets)
 
     def _restore(self) -> None:

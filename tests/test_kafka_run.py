@@ -181,3 +181,28 @@ def test_dead_letters_to_a_kafka_topic_keep_raw_bytes_and_reasons(broker, tmp_pa
     assert [headers["reason"] for _, headers in letters] == [b"invalid UTF-8", b"bad item"]
     assert [headers["offset"] for _, headers in letters] == [b"50", b"51"]
     assert all(headers["source"] == b"kafka:with-bad" for _, headers in letters)
+
+
+def test_a_tick_longer_than_max_poll_interval_keeps_the_group_membership(broker, tmp_path):
+    from simulations.quest import quest_baskets
+
+    broker.create_topic("slow", 1)
+    first = [{"id": f"s{i}", "items": [str(x) for x in b]} for i, b in enumerate(quest_baskets(60000, seed=9))]
+    broker.produce("slow", first)
+    command = [sys.executable, "-m", "stream_miner.cli", "run", "--source", f"kafka://{broker.address}/slow",
+               "--group", "g-slow", "--window-size", "60000", "--tick-every", "60000", "--min-count", "60",
+               "--snapshot-out", str(tmp_path / "snap.jsonl"),
+               "--kafka-option", "max_poll_interval_ms=1000", "--kafka-option", "session_timeout_ms=6000",
+               "--kafka-option", "heartbeat_interval_ms=300"]
+    run = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    assert wait_for(lambda: consumed(tmp_path) == 60000, seconds=120)  # after a first tick of seconds
+    later = [{"id": f"t{i}", "items": ["late-comer"]} for i in range(60)]
+    broker.produce("slow", later)
+    time.sleep(3)
+    run.send_signal(signal.SIGTERM)
+    _, err = run.communicate(timeout=60)
+    assert run.returncode == 0, err
+    header, itemsets = snapshot(tmp_path)
+    assert header["consumed"] == 60060  # nothing read twice after a lost membership
+    assert itemsets[("late-comer",)] == 60
+    assert "warning" not in err
