@@ -197,3 +197,31 @@ def test_tick_interval_ticks_by_wall_clock_while_records_keep_coming(tmp_path):
     header, _ = read_snapshot(tmp_path / "snap.jsonl")
     assert header["consumed"] == 1500
     assert 4 <= header["tick"] <= 12  # about 1.5 s of input at one tick per 0.2 s
+
+
+def test_follow_keeps_reading_a_growing_file_until_sigterm(tmp_path):
+    data = tmp_path / "growing.jsonl"
+    data.write_text(json.dumps({"id": "a0", "items": ["tea"]}) + "\n")
+    process = subprocess.Popen(
+        [sys.executable, "-m", "stream_miner.cli", "run", "--source", f"file:{data}", "--follow",
+         "--window-size", "100", "--tick-interval", "0.1s", "--min-count", "1",
+         "--snapshot-out", str(tmp_path / "snap.jsonl")],
+        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    with data.open("a") as out:
+        time.sleep(1.0)
+        out.write(json.dumps({"id": "a1", "items": ["tea", "jam"]}) + "\n")
+        out.write('{"id": "a2", "items": ["ja')  # a line still being written
+        out.flush()
+        time.sleep(1.0)
+        out.write('m"]}\n')
+    deadline = time.monotonic() + 20
+    while time.monotonic() < deadline:
+        if (tmp_path / "snap.jsonl").exists() and read_snapshot(tmp_path / "snap.jsonl")[0]["consumed"] == 3:
+            break
+        time.sleep(0.1)
+    process.send_signal(signal.SIGTERM)
+    _, err = process.communicate(timeout=20)
+    assert process.returncode == 0, err
+    header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
+    assert header["consumed"] == 3
+    assert itemsets == {("tea",): 2, ("jam",): 2, ("jam", "tea"): 1}
