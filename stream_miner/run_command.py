@@ -120,7 +120,9 @@ def run_run(args: argparse.Namespace) -> int:
     message_format = MessageFormat(
         id_field=args.id_field, time_field=args.time_field, items_field=args.items_field,
         segment_field=args.segment_field, item_key=args.item_key, time_unit=args.time_unit,
-        max_message_bytes=args.max_message_bytes, max_items=1 << 30,
+        max_message_bytes=args.max_message_bytes,
+        # oversized baskets become dead letters when skipped; truncation is the hygiene's job
+        max_items=args.max_basket_items if args.oversize == "skip" else 1 << 30,
     )
     source = _source(args, message_format)
     dead_letters = _dead_letters(args)

@@ -93,13 +93,18 @@ def test_sigterm_finishes_the_tick_checkpoints_and_exits_zero(tmp_path):
 
 def test_bad_records_go_to_the_dead_letter_file_and_the_stream_goes_on(tmp_path):
     data, letters = tmp_path / "in.jsonl", tmp_path / "dead.jsonl"
-    bad = ['{"id": "x1", "items": "tea"}', "not json", '{"id": "x2", "items": []}', '{"items": ["a"], "ts": "soon"}']
+    bad = ['{"id": "x1", "items": "tea"}', "not json", '{"id": "x2", "items": []}', '{"items": ["a"], "ts": "soon"}',
+           json.dumps({"id": "x3", "items": [f"bulk-{i}" for i in range(30)]}), '{"items": [{"qty": 2}]}',
+           '{"id": 1.5, "items": ["a"]}']
     baskets = write_checkouts(data, 200, extra=bad)
+    with data.open("ab") as out:
+        out.write(b'{"items": ["caf\xe9"]}\n')
     assert main(["run", "--source", f"file:{data}", "--window-size", "1000", "--tick-every", "1000",
-                 "--min-count", "5", "--dead-letter-out", str(letters),
+                 "--min-count", "5", "--max-basket-items", "20", "--dead-letter-out", str(letters),
                  "--snapshot-out", str(tmp_path / "snap.jsonl")]) == 0
     reasons = [json.loads(line)["reason"] for line in letters.read_text().splitlines()]
-    assert reasons == ["items not a list", "invalid JSON", "empty basket", "bad event time"]
+    assert reasons == ["items not a list", "invalid JSON", "empty basket", "bad event time", "basket too large",
+                       "bad item", "bad id", "invalid UTF-8"]
     header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
     assert header["consumed"] == 200
     assert itemsets == {tuple(sorted(k)): v for k, v in frequent_itemsets(baskets, 5).items()}
