@@ -15,6 +15,7 @@ to the source only after the checkpoint covering them is durable.
 from __future__ import annotations
 
 import heapq
+import itertools
 import json
 import math
 import sys
@@ -108,6 +109,7 @@ class Runner:
         self._last_tick_at = time.monotonic()
         self._last_checkpoint_at = time.monotonic()
         self._lock = threading.Lock()
+        self._arrivals = itertools.count()  # breaks ties between waiting baskets of equal time
 
     # ----------------------------------------------------------------- control
     def stop(self) -> None:
@@ -163,12 +165,13 @@ class Runner:
         if payload.ts <= watermark - self.settings.window.seconds:
             self._refuse_late(payload, partition, offset)
             return
-        heapq.heappush(self.waiting, (payload.ts, self.consumed + len(self.waiting), payload.items, payload.id))
+        heapq.heappush(self.waiting, (payload.ts, next(self._arrivals), payload.items, payload.id))
         self._release(watermark)
 
     def _refuse_late(self, basket: Basket, partition: int, offset: int) -> None:
-        self.counts["too late"] += 1
-        if not self.settings.drop_late:
+        if self.settings.drop_late:
+            self.counts["dropped as too late"] += 1
+        else:
             raw = json.dumps({"id": basket.id, "ts": basket.ts, "items": basket.items}).encode()
             self.dead_letters.write(DeadLetter(
                 raw, "too late", "older than the watermark allows", self.source.name, partition, offset))
@@ -251,7 +254,7 @@ class Runner:
         self.tick = metadata["tick"]
         self.last_id = metadata["last_id"]
         self.newest = -math.inf if metadata["newest"] is None else metadata["newest"]
-        self.waiting = [(ts, n, items, basket_id) for n, (ts, items, basket_id) in enumerate(metadata["waiting"])]
+        self.waiting = [(ts, next(self._arrivals), items, basket_id) for ts, items, basket_id in metadata["waiting"]]
         heapq.heapify(self.waiting)
         self.recent = RecentIds.from_state(metadata["recent"])
         self.counts = Counter(metadata["counts"])

@@ -121,7 +121,7 @@ def test_a_redelivered_basket_is_counted_once(tmp_path):
     assert itemsets == {("tea",): 10, ("jam",): 5, ("jam", "tea"): 5}
 
 
-def test_event_time_window_with_allowed_lateness(tmp_path):
+def test_event_time_window_with_allowed_lateness(tmp_path, capsys):
     data, letters = tmp_path / "in.jsonl", tmp_path / "dead.jsonl"
     rows = [("a", 100, ["x"]), ("b", 110, ["x", "y"]), ("c", 105, ["y"]),  # c is late but in time
             ("d", 140, ["x"]), ("e", 95, ["y"]),  # e: older than 140 - 10 - 30
@@ -134,6 +134,9 @@ def test_event_time_window_with_allowed_lateness(tmp_path):
     header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
     assert itemsets == {("x",): 1}
     assert [json.loads(line)["reason"] for line in letters.read_text().splitlines()] == ["too late"]
+    assert main(["run", "--source", f"file:{data}", "--window-time", "30s", "--allowed-lateness", "10s",
+                 "--tick-every", "100", "--min-count", "1", "--late", "drop"]) == 0
+    assert "1 dropped as too late" in capsys.readouterr().err
 
 
 def test_time_window_run_checkpoints_and_resumes_with_its_duplicate_memory(tmp_path):
