@@ -3,13 +3,13 @@
     python -m simulations.bench_incremental [--ticks 30] [--quick]
 
 For each scenario a window is filled, the first tick starts the tracking, and then every
-tick adds one slide of baskets and refreshes the result. Beside the incremental refresh, the
+tick adds one batch of baskets (the slide) and refreshes the result. Beside the refresh, the
 same run times this project's full mine of the same window and pyfim's C FP-growth on the
 window's baskets at sampled ticks, and checks that all three agree. Figures are medians;
 ratios matter (the machines are noisy). Prints one JSON object; progress on stderr.
 
 Scenarios: Quest T10 I4 (1,000 items) at 0.5 % with windows of 100,000 and 1,000,000 and
-slides of 1,000 and 10,000 baskets; the heavy-tailed data set at 0.5 %; and the acceptance
+slide sizes of 1,000 and 10,000 baskets; the heavy-tailed data set at 0.5 %; and the acceptance
 setting of the command line (window 10,000, a tick every 500 baskets, 1 %).
 """
 
