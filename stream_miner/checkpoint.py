@@ -36,13 +36,13 @@ import json
 import math
 import os
 import pathlib
-import tempfile
 import zipfile
 from collections import Counter
 from typing import Any
 
 import numpy as np
 
+from stream_miner.atomic_file import remove_stale_temporaries, replace_atomically
 from stream_miner.baskets import BasketArrays
 from stream_miner.engine import DEFAULT_BATCH, WindowMiner
 from stream_miner.hygiene import BasketPolicy, Verdict
@@ -55,8 +55,6 @@ VERSION = 1
 CHECKPOINT_NAME = "checkpoint.npz"
 DEFAULT_FRESH_OPTION = "--fresh"
 _DEFAULT_POLICY = BasketPolicy()
-_TMP_PREFIX = f".{CHECKPOINT_NAME}."
-_TMP_SUFFIX = ".tmp"
 _KEYS = ("header", "names", "items", "start", "ts", "newest_ts", "rank",
          "pending_items", "pending_start", "pending_ts")
 
@@ -121,43 +119,9 @@ def save_checkpoint(
 
     directory = pathlib.Path(directory)
     directory.mkdir(parents=True, exist_ok=True)
-    _remove_stale_temporaries(directory)
     final = directory / CHECKPOINT_NAME
-    fd, tmp_name = tempfile.mkstemp(prefix=_TMP_PREFIX, suffix=_TMP_SUFFIX, dir=directory)
-    try:
-        with os.fdopen(fd, "wb") as handle:
-            np.savez(handle, **arrays)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.replace(tmp_name, final)
-    except BaseException:
-        try:
-            os.unlink(tmp_name)
-        except OSError:
-            pass
-        raise
-    _fsync_directory(directory)
-    return final
-
-
-def _remove_stale_temporaries(directory: pathlib.Path) -> None:
-    for stale in directory.glob(f"{_TMP_PREFIX}*{_TMP_SUFFIX}"):
-        try:
-            stale.unlink()
-        except OSError:
-            pass
-
-
-def _fsync_directory(directory: pathlib.Path) -> None:
-    """Make the rename durable (POSIX); platforms that cannot open directories skip it."""
-    try:
-        fd = os.open(directory, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
+    remove_stale_temporaries(final)
+    return replace_atomically(final, lambda handle: np.savez(handle, **arrays))
 
 
 # ---------------------------------------------------------------------------- load

@@ -4,7 +4,6 @@ event-time lateness and the TOML config. Processes are real (subprocess) where s
 from __future__ import annotations
 
 import json
-import os
 import signal
 import subprocess
 import sys
