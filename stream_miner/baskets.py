@@ -9,6 +9,13 @@ from itertools import chain
 import numpy as np
 
 
+def offsets(lengths: np.ndarray) -> np.ndarray:
+    """Row starts of a CSR layout from row lengths: ``[0, l0, l0 + l1, ...]``."""
+    start = np.zeros(len(lengths) + 1, dtype=np.int64)
+    np.cumsum(lengths, out=start[1:])
+    return start
+
+
 @dataclass(frozen=True)
 class BasketArrays:
     """A batch of baskets of item ids, back to back, with row offsets.
@@ -31,18 +38,14 @@ class BasketArrays:
     @classmethod
     def from_lists(cls, baskets: Sequence[Sequence[int]]) -> BasketArrays:
         """Pack lists of item ids. O(total items)."""
-        lengths = np.fromiter(map(len, baskets), dtype=np.int64, count=len(baskets))
-        start = np.zeros(len(baskets) + 1, dtype=np.int64)
-        np.cumsum(lengths, out=start[1:])
+        start = offsets(np.fromiter(map(len, baskets), dtype=np.int64, count=len(baskets)))
         items = np.fromiter(chain.from_iterable(baskets), dtype=np.int64, count=int(start[-1]))
         return cls(items, start)
 
     @classmethod
     def from_lengths(cls, items: np.ndarray, lengths: np.ndarray) -> BasketArrays:
         """Pack items given the length of every basket."""
-        start = np.zeros(lengths.size + 1, dtype=np.int64)
-        np.cumsum(lengths, out=start[1:])
-        return cls(items.astype(np.int64, copy=False), start)
+        return cls(items.astype(np.int64, copy=False), offsets(lengths))
 
     @classmethod
     def concat(cls, parts: Sequence[BasketArrays]) -> BasketArrays:

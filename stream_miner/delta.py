@@ -27,13 +27,6 @@ class ResultDelta:
     rules_removed: dict[RuleKey, Rule]
     rules_changed: dict[RuleKey, tuple[Rule, Rule]]
 
-    def is_empty(self) -> bool:
-        """True when nothing changed."""
-        return not any(
-            (self.added, self.removed, self.changed, self.rules_added, self.rules_removed,
-             self.rules_changed)
-        )
-
 
 def diff_results(before: MiningResult | None, after: MiningResult) -> ResultDelta:
     """The delta from ``before`` (None: nothing yet) to ``after``. O(result size)."""

@@ -137,12 +137,14 @@ class WindowMiner:
         baskets, ts = self.store.contents()
         fresh = frequency_rank(np.bincount(baskets.items, minlength=len(self.vocabulary)))
         sample = baskets.select(np.arange(max(0, len(baskets) - ORDER_SAMPLE), len(baskets)))
-        if _nodes_for(sample, self.tree.rank) > (1 + ORDER_GAIN) * _nodes_for(sample, fresh):
+        sample_lists = sample.to_lists()
+        stale_nodes = PrefixTree.build(sample_lists, self.tree.rank).node_count()
+        if stale_nodes > (1 + ORDER_GAIN) * PrefixTree.build(sample_lists, fresh).node_count():
             self._rebuild(baskets, ts, fresh)
 
     def _rank_from(self, baskets: list[list[int]]) -> None:
         """Fix the tree's item order from the first batch's item frequencies."""
-        counts = np.bincount(np.concatenate([np.asarray(b) for b in baskets]), minlength=len(self.vocabulary))
+        counts = np.bincount(BasketArrays.from_lists(baskets).items, minlength=len(self.vocabulary))
         self.tree = PrefixTree(frequency_rank(counts))
         self._ranked = True
 
@@ -237,9 +239,3 @@ class WindowMiner:
         self.tree.check_invariants()
         assert self.tree.n_baskets == len(self.store), "tree and window sizes differ"
 
-
-def _nodes_for(baskets: BasketArrays, rank: np.ndarray) -> int:
-    """Nodes of a tree holding ``baskets`` in item order ``rank``."""
-    tree = PrefixTree(rank, capacity_hint=4 * len(baskets) + 16)
-    tree.update(tree.order_paths(baskets), ())
-    return tree.node_count()

@@ -2,9 +2,9 @@
 
 Han, Pei, Yin, "Mining Frequent Patterns without Candidate Generation", SIGMOD 2000. The
 top-level conditional pattern base of each frequent item is read off the tree: for every
-node of the item (its node links in the header table), the path of frequent ancestors
-up to the root, weighted by the node's count. Deeper bases are projected from their parent
-base. Bases are held as arrays (items of all rows, row starts, row weights) and projected
+node of the item (its node links in the header table, :func:`header_table`), the path of
+frequent ancestors up to the root, weighted by the node's count. Deeper bases are projected
+from their parent base. Bases are held as arrays (items of all rows, row starts, row weights) and projected
 with numpy, so the Python work per step is constant and the data work is vectorised.
 
 Items are recoded by tree order (0 = nearest the root), so every row lists its items in
@@ -20,7 +20,8 @@ from itertools import combinations
 
 import numpy as np
 
-from stream_miner.tree import ROOT, TreeArrays
+from stream_miner.baskets import offsets
+from stream_miner.tree import ROOT, TreeArrays, header_table
 
 Itemset = tuple[int, ...]
 
@@ -52,12 +53,11 @@ def mine_tree(
         raise ValueError(f"min_count must be at least 1, got {min_count}")
     if max_len is not None and max_len < 1:
         raise ValueError(f"max_len must be at least 1, got {max_len}")
-    live = np.flatnonzero(tree.count > 0)
-    live = live[live != ROOT]
-    if live.size == 0:
+    if tree.n_baskets == 0:
         return {}
-    n_items = int(tree.item[live].max()) + 1
-    item_count = np.bincount(tree.item[live], weights=tree.count[live], minlength=n_items)
+    n_items = int(tree.item.max()) + 1
+    header = header_table(tree, n_items)
+    item_count = header.item_count
     frequent = item_count >= min_count
     if allowed is not None:
         mask = np.zeros(n_items, dtype=bool)
@@ -77,12 +77,10 @@ def mine_tree(
         out[miner.itemset((code,))] = int(item_count[by_tree_order[code]])
     if max_len == 1:
         return out
-    node_codes = code_of[tree.item[live]]
-    nodes = live[node_codes >= 0]
-    node_codes = node_codes[node_codes >= 0]
-    order = np.argsort(node_codes, kind="stable")
-    nodes, node_codes = nodes[order], node_codes[order]
-    bounds = np.searchsorted(node_codes, np.arange(by_tree_order.size + 1))
+    # the node links of the frequent items, in tree order: row block of code c = bounds[c:c+2]
+    links = np.diff(header.start)[by_tree_order]
+    bounds = offsets(links)
+    nodes = header.nodes[np.repeat(header.start[by_tree_order] - bounds[:-1], links) + np.arange(bounds[-1])]
     first = 0
     while first < by_tree_order.size:
         last = first + 1
@@ -111,11 +109,7 @@ def _ancestor_base(tree: TreeArrays, nodes: np.ndarray, code_of: np.ndarray) -> 
         depth_rows.append(rows[hit])
         depth_codes.append(codes[hit])
         current = tree.parent[current].astype(np.int64)
-    lengths = np.bincount(np.concatenate(depth_rows), minlength=nodes.size) if depth_rows else (
-        np.zeros(nodes.size, dtype=np.int64)
-    )
-    start = np.zeros(nodes.size + 1, dtype=np.int64)
-    np.cumsum(lengths, out=start[1:])
+    start = offsets(np.bincount(np.concatenate(depth_rows), minlength=nodes.size))
     codes_out = np.empty(int(start[-1]), dtype=np.int64)
     filled = np.zeros(nodes.size, dtype=np.int64)
     for rows_k, codes_k in zip(depth_rows, depth_codes):
@@ -178,9 +172,7 @@ class _Grower:
             return
         keep = frequent[codes]
         codes, row_of = codes[keep], row_of[keep]
-        kept_lengths = np.bincount(row_of, minlength=weight.size)
-        start = np.zeros(weight.size + 1, dtype=np.int64)
-        np.cumsum(kept_lengths, out=start[1:])
+        start = offsets(np.bincount(row_of, minlength=weight.size))
         order = np.argsort(codes, kind="stable")
         bounds = np.searchsorted(codes[order], freq_codes)
         ends = np.append(bounds[1:], codes.size)
@@ -193,8 +185,7 @@ class _Grower:
             if not nonempty.any():
                 continue
             rows, row_start, prefix = rows[nonempty], row_start[nonempty], prefix[nonempty]
-            new_start = np.zeros(rows.size + 1, dtype=np.int64)
-            np.cumsum(prefix, out=new_start[1:])
+            new_start = offsets(prefix)
             gather = np.repeat(row_start - new_start[:-1], prefix) + np.arange(new_start[-1])
             stack.append(
                 (suffix + (code,), _Base(codes=codes[gather], start=new_start, weight=weight[rows]))

@@ -33,7 +33,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from stream_miner.baskets import BasketArrays
-from stream_miner.pairs import KeyCounts, count_keys, pairs_in, search, unpack
+from stream_miner.pairs import KeyCounts, locate, pairs_in, unpack
 
 Itemset = tuple[int, ...]
 BasketSource = Callable[[np.ndarray], BasketArrays]  # baskets holding any of the flagged items
@@ -72,7 +72,7 @@ class _Lattice:
     def pairs_frequent(self, first: np.ndarray, second: np.ndarray) -> np.ndarray:
         """Which pairs (first < second) are in the lattice."""
         if self._pair_flags is None:
-            return _locate(self.levels[0].frequent, (first << _SHIFT) | second)[1]
+            return locate(self.levels[0].frequent, (first << _SHIFT) | second)[1]
         inside = (first < self._dense.size) & (second < self._dense.size)
         out = np.zeros(first.size, dtype=bool)
         a, b = self._dense[first[inside]], self._dense[second[inside]]
@@ -88,7 +88,7 @@ class _Lattice:
         ids = itemsets[:, 0].astype(np.int64)
         valid = self._item_frequent(ids)
         for column in range(1, size - 1):
-            position, found = _locate(self.levels[column - 1].frequent, (ids << _SHIFT) | itemsets[:, column])
+            position, found = locate(self.levels[column - 1].frequent, (ids << _SHIFT) | itemsets[:, column])
             valid &= found
             ids = np.where(found, position, 0)
         keys = (ids << _SHIFT) | itemsets[:, size - 1]
@@ -105,7 +105,7 @@ class _Lattice:
         if size == 2:
             return self.pairs_frequent(itemsets[:, 0], itemsets[:, 1])
         keys = self.encode(itemsets)
-        return (keys >= 0) & _locate(self.levels[size - 2].frequent, keys)[1]
+        return (keys >= 0) & locate(self.levels[size - 2].frequent, keys)[1]
 
     def all_subsets_frequent(self, itemsets: np.ndarray) -> np.ndarray:
         """Which rows have every one-smaller subset frequent (are tracked)."""
@@ -177,7 +177,7 @@ class BorderTracker:
                 return
             keys = self.lattice.encode(held)
             level.counts.add(keys, signs[rows])
-            hot = _locate(level.frequent, keys)[1]
+            hot = locate(level.frequent, keys)[1]
             held, rows = held[hot], rows[hot]
 
     # -------------------------------------------------------------- threshold
@@ -203,7 +203,7 @@ class BorderTracker:
         hot = pairs.counts >= threshold
         if old.levels:
             margin = np.flatnonzero(~hot & (pairs.counts >= keep_above))
-            hot[margin] = _locate(old.levels[0].frequent, pairs.keys[margin])[1]
+            hot[margin] = locate(old.levels[0].frequent, pairs.keys[margin])[1]
         frequent = pairs.keys[hot]
         self.lattice.add_pairs(_Level(pairs, frequent, np.column_stack(unpack(frequent))))
         size = 3
@@ -280,22 +280,14 @@ def _join(held: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return joined, rows[heads[group]]
 
 
-def _locate(sorted_keys: np.ndarray, keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Position of each key in ``sorted_keys`` and whether it is there."""
-    if sorted_keys.size == 0:
-        return np.zeros(keys.size, dtype=np.int64), np.zeros(keys.size, dtype=bool)
-    position = np.minimum(search(sorted_keys, keys), sorted_keys.size - 1)
-    return position, sorted_keys[position] == keys
-
-
 def _count_pairs_of(pairs: KeyCounts, entering: np.ndarray, watched: np.ndarray, window: BasketSource) -> None:
     """Count, over the window, every pair of watched items that has an entering item."""
     if not entering.any():
         return
     keys, _ = pairs_in(window(entering), watched)
     first, second = unpack(keys)
-    distinct, times = count_keys(keys[entering[first] | entering[second]])
-    pairs.add(distinct, times)
+    keys = keys[entering[first] | entering[second]]
+    pairs.add(keys, np.ones(keys.size, dtype=np.int64))
 
 
 def count_in(itemsets: np.ndarray, window: BasketSource, item_counts: np.ndarray) -> np.ndarray:

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from stream_miner.baskets import BasketArrays
+from stream_miner.baskets import BasketArrays, offsets
 
 _SHIFT = np.int64(32)
 _LOW = np.int64(0xFFFFFFFF)
@@ -35,9 +35,7 @@ def pairs_in(baskets: BasketArrays, watched: np.ndarray) -> tuple[np.ndarray, np
     keep[keep] = watched[baskets.items[keep]]
     items = baskets.items[keep]
     rows = baskets.row_of_items()[keep]
-    lengths = np.bincount(rows, minlength=len(baskets))
-    start = np.zeros(lengths.size + 1, dtype=np.int64)
-    np.cumsum(lengths, out=start[1:])
+    start = offsets(np.bincount(rows, minlength=len(baskets)))
     later = start[rows + 1] - np.arange(items.size) - 1  # items after each entry in its basket
     total = int(later.sum())
     if total == 0:
@@ -46,16 +44,6 @@ def pairs_in(baskets: BasketArrays, watched: np.ndarray) -> tuple[np.ndarray, np
     run_start = np.repeat(np.cumsum(later) - later, later)
     second = first + 1 + (np.arange(total) - run_start)
     return pack(items[first], items[second]), rows[first]
-
-
-def count_keys(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Distinct keys (sorted) and how often each occurs."""
-    if keys.size == 0:
-        return keys, np.empty(0, dtype=np.int64)
-    ordered = np.sort(keys)
-    starts = np.flatnonzero(np.append(True, ordered[1:] != ordered[:-1]))
-    counts = np.diff(np.append(starts, ordered.size))
-    return ordered[starts], counts
 
 
 def search(sorted_keys: np.ndarray, keys: np.ndarray) -> np.ndarray:
@@ -67,6 +55,14 @@ def search(sorted_keys: np.ndarray, keys: np.ndarray) -> np.ndarray:
     position = np.empty(keys.size, dtype=np.int64)
     position[order] = np.searchsorted(sorted_keys, keys[order])
     return position
+
+
+def locate(sorted_keys: np.ndarray, keys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Position of each key in ``sorted_keys`` and whether it is there."""
+    if sorted_keys.size == 0:
+        return np.zeros(keys.size, dtype=np.int64), np.zeros(keys.size, dtype=bool)
+    position = np.minimum(search(sorted_keys, keys), sorted_keys.size - 1)
+    return position, sorted_keys[position] == keys
 
 
 class KeyCounts:
@@ -108,21 +104,14 @@ class KeyCounts:
 
     def count(self, keys: np.ndarray) -> np.ndarray:
         """Current count of each key (0 when absent)."""
-        position = np.minimum(search(self.keys, keys), max(self.keys.size - 1, 0))
-        if self.keys.size == 0:
-            return np.zeros(keys.size, dtype=np.int64)
-        hit = self.keys[position] == keys
-        return np.where(hit, self.counts[position], 0)
+        position, hit = locate(self.keys, keys)
+        return np.where(hit, self.counts[position], 0) if self.keys.size else np.zeros(keys.size, np.int64)
 
     def drop_items(self, gone: np.ndarray) -> None:
         """Forget every pair that holds an item whose entry in the boolean ``gone`` is set."""
         if self.keys.size and gone.any():
             first, second = unpack(self.keys)
             self._drop(~(gone[first] | gone[second]))
-
-    def at_least(self, threshold: int) -> np.ndarray:
-        """Keys of the pairs counted at least ``threshold`` times (sorted)."""
-        return self.keys[self.counts >= threshold]
 
     def _drop(self, keep: np.ndarray) -> None:
         self.keys = self.keys[keep]

@@ -146,13 +146,8 @@ class Runner:
         if isinstance(payload, DeadLetter):
             self.dead_letters.write(payload)
             return
-        if isinstance(self.settings.window, CountWindow):
-            if payload.id is not None and self.recent.check_and_add(payload.id):
-                self.counts["duplicate"] += 1
-                return
-            self._enter(payload.items, payload.ts, payload.id)
-            return
-        if payload.ts is None:
+        window = self.settings.window
+        if isinstance(window, TimeWindow) and payload.ts is None:
             self.dead_letters.write(DeadLetter(
                 json.dumps({"id": payload.id, "items": payload.items}).encode(), "no event time",
                 "an event-time window needs a time on every basket", self.source.name, partition, offset))
@@ -160,9 +155,13 @@ class Runner:
         if payload.id is not None and self.recent.check_and_add(payload.id, payload.ts):
             self.counts["duplicate"] += 1
             return
+        if isinstance(window, CountWindow):
+            self._enter(payload.items, payload.ts, payload.id)
+            return
+        assert payload.ts is not None
         self.newest = max(self.newest, payload.ts)
         watermark = self.newest - self.settings.allowed_lateness
-        if payload.ts <= watermark - self.settings.window.seconds:
+        if payload.ts <= watermark - window.seconds:
             self._refuse_late(payload, partition, offset)
             return
         heapq.heappush(self.waiting, (payload.ts, next(self._arrivals), payload.items, payload.id))

@@ -26,9 +26,6 @@ class ItemVocabulary:
     def __len__(self) -> int:
         return len(self._names)
 
-    def __contains__(self, name: object) -> bool:
-        return name in self._ids
-
     def id_of(self, name: str) -> int:
         """Return the id of ``name``, assigning the next free id if it is new. O(1)."""
         if not isinstance(name, str):
