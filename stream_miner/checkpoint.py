@@ -44,10 +44,8 @@ import numpy as np
 
 from stream_miner.atomic_file import remove_stale_temporaries, replace_atomically
 from stream_miner.baskets import BasketArrays
-from stream_miner.engine import DEFAULT_BATCH, WindowMiner
+from stream_miner.engine import DEFAULT_BATCH, MinerState, WindowMiner
 from stream_miner.hygiene import BasketPolicy, Verdict
-from stream_miner.tree import PrefixTree
-from stream_miner.vocabulary import ItemVocabulary
 from stream_miner.window import CountWindow, TimeWindow
 
 FORMAT = "stream-miner-checkpoint"
@@ -85,36 +83,27 @@ def save_checkpoint(
     if mismatch:
         raise ValueError(f"checkpoint metadata must round-trip through JSON exactly: {mismatch}")
 
-    # A pure snapshot: the buffer is saved as it is rather than flushed, so saving changes
-    # nothing in the miner (a flush would move batch boundaries and thereby the tree's item
-    # order, and with it the order in which itemsets and rules are listed).
-    baskets, ts = miner.store.contents()
-    pending = BasketArrays.from_lists(miner._pending)
-    names = miner.vocabulary.names()
+    state = miner.state()  # read only: saving changes nothing in the miner
     header = {
         "format": FORMAT,
         "version": VERSION,
         "window": _window_config(miner.window),
         "policy": _policy_config(miner.policy),
-        "verdicts": {str(Verdict(v).value): int(n) for v, n in miner.verdicts.items() if n},
-        # Engine internals (see _restore_window): the tree's item order state.
-        "engine": {
-            "ranked": bool(miner._ranked),
-            "applied_since_order": int(miner._applied_since_order),
-        },
+        "verdicts": {str(Verdict(v).value): int(n) for v, n in state.verdicts.items() if n},
+        "engine": {"ranked": state.ranked, "applied_since_order": state.applied_since_order},
         "metadata": json.loads(metadata_json),
     }
     arrays = {
         "header": _json_bytes(header),
-        "names": _json_bytes(names),
-        "items": baskets.items.astype(np.int32),
-        "start": baskets.start.astype(np.int64),
-        "ts": np.asarray(ts, dtype=np.float64),
-        "newest_ts": np.array([miner._newest_ts], dtype=np.float64),
-        "rank": miner.tree.rank.astype(np.int64),
-        "pending_items": pending.items.astype(np.int32),
-        "pending_start": pending.start.astype(np.int64),
-        "pending_ts": np.array(miner._pending_ts, dtype=np.float64),
+        "names": _json_bytes(state.names),
+        "items": state.baskets.items.astype(np.int32),
+        "start": state.baskets.start.astype(np.int64),
+        "ts": np.asarray(state.ts, dtype=np.float64),
+        "newest_ts": np.array([state.newest_ts], dtype=np.float64),
+        "rank": state.rank.astype(np.int64),
+        "pending_items": state.pending.items.astype(np.int32),
+        "pending_start": state.pending.start.astype(np.int64),
+        "pending_ts": state.pending_ts,
     }
 
     directory = pathlib.Path(directory)
@@ -175,8 +164,7 @@ def load_checkpoint(
         )
 
     state = _validate(data, header, window, policy, fail)
-    miner = WindowMiner(window, policy, batch_size)
-    _restore_window(miner, **state)
+    miner = WindowMiner.restored(MinerState(**state), window, policy, batch_size)
     return miner, header["metadata"]
 
 
@@ -264,49 +252,6 @@ def _baskets(data, prefix: str, n_names: int, policy: BasketPolicy, fail) -> tup
     if len(baskets) and int(baskets.lengths().max()) > policy.max_items:
         raise fail(f"corrupted: a basket in {prefix}items is larger than the policy allows")
     return baskets, ts.astype(np.float64)
-
-
-def _restore_window(
-    miner: WindowMiner,
-    *,
-    names: list[str],
-    baskets: BasketArrays,
-    ts: np.ndarray,
-    pending: BasketArrays,
-    pending_ts: np.ndarray,
-    newest_ts: float,
-    rank: np.ndarray,
-    ranked: bool,
-    applied_since_order: int,
-    verdicts: Counter[Verdict],
-) -> None:
-    """Put a saved window (and buffer) into a fresh miner.
-
-    COUPLING with WindowMiner internals (engine.py): this sets ``vocabulary``, ``verdicts``,
-    ``_newest_ts``, ``tree`` with ``_ranked`` and ``_applied_since_order``, ``_pending`` and
-    ``_pending_ts``, and fills ``store``, bypassing ``add()`` (whose policy and verdict
-    counting already ran when the baskets first arrived) and ``flush()`` (whose expiry was
-    already applied to the saved window, and whose re-order check would run early and might
-    change the item order). The window's baskets go through the same tree/store calls as
-    ``flush``: ``tree.order_paths``, ``tree.update``, ``store.append``; the buffer is applied
-    by the restored miner's next flush, exactly as in the saved one. Keep this in step with
-    WindowMiner.__init__/add/flush if they gain state.
-    """
-    if miner._pending or len(miner.store) or len(miner.vocabulary):
-        raise ValueError("can only restore into a fresh miner")
-    miner.vocabulary = ItemVocabulary(names)
-    miner.verdicts = Counter(verdicts)
-    miner._newest_ts = newest_ts
-    miner._ranked = ranked
-    if ranked:
-        tree = PrefixTree(rank, capacity_hint=baskets.items.size + 16)
-        paths = tree.order_paths(baskets)
-        handles = tree.update(paths, ())
-        miner.tree = tree
-        miner.store.append(paths, ts, handles)
-    miner._applied_since_order = applied_since_order
-    miner._pending = pending.to_lists()
-    miner._pending_ts = pending_ts.tolist()
 
 
 # ---------------------------------------------------------------------------- helpers

@@ -33,6 +33,24 @@ ORDER_GAIN = 0.02  # rebuild when the current order needs this much more nodes t
 
 
 @dataclass(frozen=True)
+class MinerState:
+    """Everything a :class:`WindowMiner` needs to carry on after a restart (for checkpoints):
+    the window's baskets and their event times, the not yet applied buffer, the vocabulary,
+    the tree's item order and the counters."""
+
+    names: list[str]
+    baskets: BasketArrays
+    ts: np.ndarray
+    pending: BasketArrays
+    pending_ts: np.ndarray
+    newest_ts: float
+    rank: np.ndarray
+    ranked: bool
+    applied_since_order: int
+    verdicts: Counter[Verdict]
+
+
+@dataclass(frozen=True)
 class Tick:
     """One tick: its number (0, 1, ...), the full current result, and the change since the
     previous tick (everything counts as added on tick 0)."""
@@ -77,6 +95,41 @@ class WindowMiner:
         self._changes: list[tuple[BasketArrays, int]] = []
         self._last: MiningResult | None = None
         self._ticks = 0
+
+    # ------------------------------------------------------------------ state
+    def state(self) -> MinerState:
+        """The miner's state, read only: the buffer is kept as it is rather than applied, so
+        taking the state changes nothing (not even the batch boundaries that decide the
+        tree's item order)."""
+        baskets, ts = self.store.contents()
+        return MinerState(
+            names=self.vocabulary.names(), baskets=baskets, ts=ts,
+            pending=BasketArrays.from_lists(self._pending),
+            pending_ts=np.array(self._pending_ts, dtype=np.float64), newest_ts=self._newest_ts,
+            rank=self.tree.rank, ranked=self._ranked, applied_since_order=self._applied_since_order,
+            verdicts=Counter(self.verdicts),
+        )
+
+    @classmethod
+    def restored(
+        cls, state: MinerState, window: CountWindow | TimeWindow | None = None,
+        policy: BasketPolicy = BasketPolicy(), batch_size: int = DEFAULT_BATCH,
+    ) -> WindowMiner:
+        """A miner holding ``state``: the window's baskets go straight into the tree and store
+        (hygiene and expiry already ran on them); the buffer is applied by the next flush."""
+        miner = cls(window, policy, batch_size)
+        miner.vocabulary = ItemVocabulary(state.names)
+        miner.verdicts = Counter(state.verdicts)
+        miner._newest_ts = state.newest_ts
+        miner._ranked = state.ranked
+        if state.ranked:
+            miner.tree = PrefixTree(state.rank, capacity_hint=state.baskets.items.size + 16)
+            paths = miner.tree.order_paths(state.baskets)
+            miner.store.append(paths, state.ts, miner.tree.update(paths, ()))
+        miner._applied_since_order = state.applied_since_order
+        miner._pending = state.pending.to_lists()
+        miner._pending_ts = state.pending_ts.tolist()
+        return miner
 
     # ------------------------------------------------------------------ input
     def add(self, items: Iterable[str], ts: float | None = None) -> Verdict:
