@@ -79,3 +79,9 @@ class BasketArrays:
         flat = self.items.tolist()
         bounds = self.start.tolist()
         return [flat[bounds[r] : bounds[r + 1]] for r in range(len(self))]
+
+    def part(self, first: int, stop: int) -> BasketArrays:
+        """Baskets ``first`` to ``stop - 1`` (clipped to the batch), without copying items."""
+        stop = min(stop, len(self))
+        start = self.start[first : stop + 1]
+        return BasketArrays(self.items[start[0] : start[-1]], start - start[0])

@@ -95,6 +95,7 @@ class WindowMiner:
         self._changes: list[tuple[BasketArrays, int]] = []
         self._last: MiningResult | None = None
         self._ticks = 0
+        self._named: dict[Itemset, tuple[str, ...]] = {}  # item names of recent results' itemsets
 
     # ------------------------------------------------------------------ state
     def state(self) -> MinerState:
@@ -224,9 +225,11 @@ class WindowMiner:
         self.flush()
         names = self.vocabulary.names()
         min_count = params.threshold(len(self.store))
+        return self._result(self._mine_tree(params, names, min_count), min_count, params, names)
+
+    def _mine_tree(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int]:
         allowed = self._allowed_mask(params, names)
-        found = mine_tree(self.tree.arrays(), min_count, max_len=params.max_len, allowed=allowed)
-        return self._result(found, min_count, params, names)
+        return mine_tree(self.tree.arrays(), min_count, max_len=params.max_len, allowed=allowed)
 
     def tick(self, params: MiningParams, *, full_remine: bool = False) -> Tick:
         """The current result and what changed since the previous tick.
@@ -243,13 +246,16 @@ class WindowMiner:
             result = self.mine(params)
             self._tracker = None
         else:
-            result = self._result(self._track(params, names, min_count), min_count, params, names)
+            found = self._track(params, names, min_count)
+            if found is None:  # too many items to track pairs of: this tick mines in full
+                found = self._mine_tree(params, names, min_count)
+            result = self._result(found, min_count, params, names)
         tick = Tick(self._ticks, result, diff_results(self._last, result))
         self._last = result
         self._ticks += 1
         return tick
 
-    def _track(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int]:
+    def _track(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int] | None:
         key = (params.max_len, params.include, params.exclude)
         if self._tracker is None or key != self._tracker_key:
             self._tracker = BorderTracker(params.max_len)
@@ -263,7 +269,8 @@ class WindowMiner:
         self._changes = []
         allowed = self._allowed_mask(params, names)
         allowed = np.ones(len(names), dtype=bool) if allowed is None else allowed
-        self._tracker.retarget(min_count, allowed, self.store.baskets_with)
+        if not self._tracker.retarget(min_count, allowed, self.store.baskets_with):
+            return None
         return self._tracker.itemsets()
 
     def _result(
@@ -271,7 +278,15 @@ class WindowMiner:
     ) -> MiningResult:
         n = len(self.store)
         rules = [] if params.rules is None else generate_rules(found, n, params.rules, names)
-        itemsets = {tuple(sorted(names[i] for i in items)): c for items, c in found.items()}
+        if len(self._named) > 4 * len(found) + 4096:
+            self._named = {}
+        named = self._named
+        itemsets = {}
+        for items, count in found.items():
+            key = named.get(items)
+            if key is None:
+                key = named[items] = tuple(sorted(names[i] for i in items))
+            itemsets[key] = count
         return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules, names=names)
 
     @staticmethod

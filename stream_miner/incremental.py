@@ -3,155 +3,84 @@
 The tracker keeps, for the current threshold, every frequent itemset F and every itemset of
 the negative border (infrequent, but all its one-smaller subsets frequent; Toivonen 1996,
 Aumann et al. 1999) with its exact count in the window. Between two ticks it only looks at
-the baskets that entered or left the window:
+the baskets that entered or left the window, and at what crossed the threshold:
 
-1. ``apply``: for each such basket, add or subtract one for every tracked itemset it holds.
-   Items: a bincount. Pairs: every pair of frequent items (all are tracked: a pair of
-   frequent items is frequent or on the border). Larger itemsets, level by level: the
-   frequent itemsets a basket holds are joined (Apriori-style, inside the basket only) into
-   the tracked itemsets one larger. All of it vectorised over the whole batch of baskets.
+1. ``apply``: items by a bincount; pairs of watched items in a dense pair table (every pair
+   of two frequent items is frequent or on the border, so the table holds all of them); the
+   tracked itemsets of three items or more by vertical bitmaps of the changed baskets.
 2. ``retarget``: with the new threshold (a time window changes its size, a user may change
-   the support), every itemset whose count crossed it moves between F and the border. A
-   newly frequent itemset extends the border by itemsets never tracked before; only those are
-   counted over the window. Every minimal newly frequent itemset was on the old border, so
-   nothing is missed.
+   the support), itemsets move between F and the border. A level is rebuilt only when the
+   frequent itemsets one smaller changed; its candidates that were tracked before keep
+   their counts, and only the others are counted over the window. Every minimal newly
+   frequent itemset was on the old border, so nothing is missed.
 
-The cost of a tick grows with the baskets that changed and with the border changes, not
-with the window. Itemsets are item ids in increasing order.
+Hysteresis: an itemset joins F when its count reaches the threshold and leaves it only when
+its count falls below ``(1 - margin)`` of it, so one hovering at the threshold does not make
+its supersets be counted over the window again at every tick. F stays downward closed, and
+the result is exactly the itemsets at or above the threshold. Items are watched in the pair
+table from that lower bound on, and until their count halves again.
 
-Encoding: an itemset of size k >= 2 is keyed by ``(id of its first k-1 items) << 32 | last
-item``, where the id of a frequent itemset is its position among the frequent itemsets of its
-size (of a single item: the item id). Every tracked itemset has a frequent prefix, so every
-tracked itemset has a key.
+The cost of a tick grows with the baskets that changed and with what crossed the threshold,
+not with the window. Itemsets are rows of item ids in increasing order, rows in
+lexicographic order.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
 from stream_miner.baskets import BasketArrays
-from stream_miner.pairs import KeyCounts, locate, pairs_in, unpack
+from stream_miner.bitmaps import BasketSource, count_rows, item_bitmaps, sign_bitmap, window_counts
+from stream_miner.itemset_rows import RowIndex, empty_rows, join_candidates, match_rows, unique_rows
+from stream_miner.pair_table import PairTable
 
 Itemset = tuple[int, ...]
-BasketSource = Callable[[np.ndarray], BasketArrays]  # baskets holding any of the flagged items
-_SHIFT = np.int64(32)
-_DENSE_PAIRS = 4096  # up to this many lattice items, pair lookups use a dense matrix
+MAX_WATCHED = 4096  # items in the pair table at most (a 64 MiB matrix); beyond, no tracking
+WATCH_ALL_UP_TO = 2048  # while the window holds this many items or fewer, watch them all
+EXTENSIONS_IN_FLIGHT = 1 << 18  # rows of one-item extensions built at once, at most
 
 
-@dataclass
+@dataclass(frozen=True)
 class _Level:
-    """Tracked itemsets of one size (two items or more)."""
+    """Tracked itemsets of one size (three items or more), with counts: the candidates (every
+    one-smaller subset frequent: F and its border) and, kept counted while their count stays
+    near the threshold, former candidates, so that they need no recount when they return."""
 
-    counts: KeyCounts = field(default_factory=KeyCounts)  # non-zero counts by key
-    frequent: np.ndarray = field(default_factory=lambda: np.empty(0, np.int64))  # sorted keys
-    itemsets: np.ndarray = field(default_factory=lambda: np.empty((0, 0), np.int64))  # aligned
+    itemsets: np.ndarray  # rows of item ids; the candidates first, in lexicographic order
+    counts: np.ndarray  # int64, aligned
+    candidate: np.ndarray  # bool, aligned
+    frequent: np.ndarray  # bool, aligned
 
-
-class _Lattice:
-    """Frequent items and the tracked levels, with vectorised encoding of itemsets."""
-
-    def __init__(self, frequent_items: np.ndarray, levels: list[_Level]) -> None:
-        self.frequent_items = frequent_items
-        self.levels = levels  # levels[0] holds pairs
-        self._dense = np.full(frequent_items.size, -1, dtype=np.int64)  # item -> lattice position
-        self._pair_flags: np.ndarray | None = None  # lattice pairs as a dense matrix, if small
-
-    def add_pairs(self, level: _Level) -> None:
-        """Set the pair level; small lattices also get a dense matrix for fast pair lookups."""
-        self.levels.append(level)
-        items = np.flatnonzero(self.frequent_items)
-        if items.size <= _DENSE_PAIRS:
-            self._dense[items] = np.arange(items.size)
-            self._pair_flags = np.zeros((items.size, items.size), dtype=bool)
-            first, second = unpack(level.frequent)
-            self._pair_flags[self._dense[first], self._dense[second]] = True
-
-    def pairs_frequent(self, first: np.ndarray, second: np.ndarray) -> np.ndarray:
-        """Which pairs (first < second) are in the lattice."""
-        if self._pair_flags is None:
-            return locate(self.levels[0].frequent, (first << _SHIFT) | second)[1]
-        inside = (first < self._dense.size) & (second < self._dense.size)
-        out = np.zeros(first.size, dtype=bool)
-        a, b = self._dense[first[inside]], self._dense[second[inside]]
-        known = (a >= 0) & (b >= 0)
-        hits = np.zeros(a.size, dtype=bool)
-        hits[known] = self._pair_flags[a[known], b[known]]
-        out[inside] = hits
-        return out
-
-    def encode(self, itemsets: np.ndarray) -> np.ndarray:
-        """Key of every row (sorted items), or -1 where a proper prefix is not frequent."""
-        size = itemsets.shape[1]
-        ids = itemsets[:, 0].astype(np.int64)
-        valid = self._item_frequent(ids)
-        for column in range(1, size - 1):
-            position, found = locate(self.levels[column - 1].frequent, (ids << _SHIFT) | itemsets[:, column])
-            valid &= found
-            ids = np.where(found, position, 0)
-        keys = (ids << _SHIFT) | itemsets[:, size - 1]
-        keys[~valid] = -1
-        return keys
-
-    def frequent_rows(self, itemsets: np.ndarray) -> np.ndarray:
-        """Which rows are frequent itemsets."""
-        size = itemsets.shape[1]
-        if size == 1:
-            return self._item_frequent(itemsets[:, 0])
-        if size - 2 >= len(self.levels):
-            return np.zeros(itemsets.shape[0], dtype=bool)
-        if size == 2:
-            return self.pairs_frequent(itemsets[:, 0], itemsets[:, 1])
-        keys = self.encode(itemsets)
-        return (keys >= 0) & locate(self.levels[size - 2].frequent, keys)[1]
-
-    def all_subsets_frequent(self, itemsets: np.ndarray) -> np.ndarray:
-        """Which rows have every one-smaller subset frequent (are tracked)."""
-        return self._subsets_frequent(itemsets, itemsets.shape[1])
-
-    def joined_tracked(self, joined: np.ndarray) -> np.ndarray:
-        """Which rows of a join are tracked; dropping either of the last two items gives a
-        joined (frequent) itemset, so only the other subsets are looked up."""
-        return self._subsets_frequent(joined, joined.shape[1] - 2)
-
-    def _subsets_frequent(self, itemsets: np.ndarray, columns: int) -> np.ndarray:
-        keep = np.ones(itemsets.shape[0], dtype=bool)
-        for column in range(columns):
-            keep &= self.frequent_rows(np.delete(itemsets, column, axis=1))
-        return keep
-
-    def _item_frequent(self, items: np.ndarray) -> np.ndarray:
-        inside = items < self.frequent_items.size
-        out = np.zeros(items.size, dtype=bool)
-        out[inside] = self.frequent_items[items[inside]]
-        return out
+    def frequent_rows(self) -> np.ndarray:
+        return self.itemsets[self.frequent]
 
 
 class BorderTracker:
     """Frequent itemsets and their negative border with exact counts, kept up to date.
 
     ``max_len`` bounds itemset size. The threshold and the allowed items are given to
-    :meth:`retarget` at every tick.
-
-    Hysteresis: an itemset joins the tracked lattice when its count reaches the threshold
-    and leaves it only when its count falls below ``(1 - margin)`` of the threshold, so an
-    itemset hovering at the threshold does not make its supersets be counted over the window
-    again at every tick. The lattice stays downward closed, and the result is exactly the
-    itemsets at or above the threshold.
+    :meth:`retarget` at every tick. When more than ``max_watched`` items would need pair
+    counts, :meth:`retarget` declines (returns False) and the caller mines in full; only item
+    counts are kept until the window narrows again.
     """
 
-    def __init__(self, max_len: int | None = None, margin: float = 0.25) -> None:
+    def __init__(self, max_len: int | None = None, margin: float = 0.25, max_watched: int = MAX_WATCHED) -> None:
         if max_len is not None and max_len < 1:
             raise ValueError(f"max itemset length must be at least 1, got {max_len}")
         if not 0 <= margin < 1:
             raise ValueError(f"margin must lie in [0, 1), got {margin}")
         self.max_len = max_len
         self.margin = margin
+        self.max_watched = max_watched
         self.threshold: int | None = None
         self.item_counts = np.zeros(0, dtype=np.int64)
-        self.lattice = _Lattice(np.zeros(0, dtype=bool), [])
+        self.frequent_items = np.zeros(0, dtype=bool)
+        self.table: PairTable | None = None  # None: pairs not tracked (yet, or too many items)
+        self.pairs = empty_rows(2)  # frequent pairs
+        self.levels: list[_Level] = []  # sizes 3, 4, ...
+        self._touched = [empty_rows(2)]  # pairs counted up to the threshold since the last retarget
 
     # ------------------------------------------------------------------- deltas
     def apply(self, baskets: BasketArrays, signs: np.ndarray) -> None:
@@ -159,162 +88,163 @@ class BorderTracker:
         if len(baskets) == 0:
             return
         self._grow_items(int(baskets.items.max()) + 1)
-        np.add.at(self.item_counts, baskets.items, signs[baskets.row_of_items()])
-        levels = self.lattice.levels
-        if self.threshold is None or not levels:
+        self.item_counts += np.bincount(
+            baskets.items, weights=signs[baskets.row_of_items()], minlength=self.item_counts.size
+        ).astype(np.int64)
+        if self.table is None or self.threshold is None:
             return
-        keys, rows = pairs_in(baskets, self.lattice.frequent_items)
-        levels[0].counts.add(keys, signs[rows])
-        first, second = unpack(keys)
-        hot = self.lattice.pairs_frequent(first, second)
-        held = np.column_stack([first[hot], second[hot]])
-        rows = rows[hot]
-        for level in levels[1:]:
-            held, rows = _join(held, rows)
-            tracked = self.lattice.joined_tracked(held)
-            held, rows = held[tracked], rows[tracked]
-            if held.shape[0] == 0:
-                return
-            keys = self.lattice.encode(held)
-            level.counts.add(keys, signs[rows])
-            hot = locate(level.frequent, keys)[1]
-            held, rows = held[hot], rows[hot]
+        self._touched.append(self.table.add(baskets, signs, self.threshold))
+        if self.levels:
+            items = np.unique(np.concatenate([level.itemsets.ravel() for level in self.levels]))
+            slot_of = np.full(self.item_counts.size, -1, dtype=np.int64)
+            slot_of[items] = np.arange(items.size)
+            bits, plus = item_bitmaps(baskets, slot_of, items.size), sign_bitmap(signs)
+            self.levels = [
+                _Level(level.itemsets, level.counts + count_rows(slot_of[level.itemsets], bits, plus),
+                       level.candidate, level.frequent)
+                for level in self.levels
+            ]
 
     # -------------------------------------------------------------- threshold
-    def retarget(self, threshold: int, allowed: np.ndarray, window: BasketSource) -> None:
-        """Move itemsets between the frequent set and the border for a new ``threshold``,
-        counting newly tracked itemsets over ``window``."""
+    def retarget(self, threshold: int, allowed: np.ndarray, window: BasketSource) -> bool:
+        """Move itemsets between F and the border for a new ``threshold``, counting newly
+        tracked itemsets over ``window``. False when too many items would need pair counts
+        (the result is then not tracked; mine in full)."""
         if threshold < 1:
             raise ValueError(f"threshold must be at least 1, got {threshold}")
         self._grow_items(allowed.size)
-        old = self.lattice
+        allowed = np.concatenate([allowed, np.zeros(self.item_counts.size - allowed.size, dtype=bool)])
         keep_above = max(1, int(threshold * (1 - self.margin)))
-        was = np.zeros(self.item_counts.size, dtype=bool)
-        was[: old.frequent_items.size] = old.frequent_items
         counts = self.item_counts
-        items = ((counts >= threshold) | was & (counts >= keep_above)) & allowed[: counts.size]
-        self.threshold = threshold
-        self.lattice = _Lattice(items, [])
+        was = self.frequent_items
+        items = ((counts >= threshold) | was & (counts >= keep_above)) & allowed
+        same_threshold = threshold == self.threshold and self.table is not None
+        self.threshold, self.frequent_items = threshold, items
+        touched, self._touched = np.concatenate(self._touched), [empty_rows(2)]
         if self.max_len == 1:
-            return
-        pairs = old.levels[0].counts if old.levels else KeyCounts()
-        pairs.drop_items(was & ~items)
-        _count_pairs_of(pairs, items & ~was, items, window)
-        hot = pairs.counts >= threshold
-        if old.levels:
-            margin = np.flatnonzero(~hot & (pairs.counts >= keep_above))
-            hot[margin] = locate(old.levels[0].frequent, pairs.keys[margin])[1]
-        frequent = pairs.keys[hot]
-        self.lattice.add_pairs(_Level(pairs, frequent, np.column_stack(unpack(frequent))))
-        size = 3
-        while self.max_len is None or size <= self.max_len:
-            candidates, _ = _join(self.lattice.levels[-1].itemsets, np.zeros(0, dtype=np.int64))
-            candidates = candidates[self.lattice.joined_tracked(candidates)]
-            if candidates.shape[0] == 0:
-                break
-            counts = np.zeros(candidates.shape[0], dtype=np.int64)
-            known = old.all_subsets_frequent(candidates) if len(old.levels) >= size - 1 else (
-                np.zeros(candidates.shape[0], dtype=bool)
-            )
-            if known.any():
-                counts[known] = old.levels[size - 2].counts.count(old.encode(candidates[known]))
-            counts[~known] = count_in(candidates[~known], window, self.item_counts)
-            stays = (counts >= keep_above) & (old.frequent_rows(candidates) if len(old.levels) >= size - 1 else False)
-            self.lattice.levels.append(self._level(candidates, counts, (counts >= threshold) | stays))
-            size += 1
+            return True
+        wanted = self._watch_list(allowed, keep_above)
+        if wanted is None:
+            self.table, self.pairs, self.levels = None, empty_rows(2), []
+            return False
+        if self.table is None:
+            self.table = PairTable()
+        self.table.watch(wanted, window)
+        if same_threshold:
+            entering = np.flatnonzero(items & ~was)
+            candidates = np.concatenate([self.pairs, touched, self.table.pairs_with(entering, items, threshold)])
+            candidates = unique_rows(candidates[items[candidates].all(axis=1)])
+        else:
+            candidates = self.table.pairs_among(items, keep_above)
+        pair_counts = self.table.count(candidates[:, 0], candidates[:, 1])
+        hot = self._hot(pair_counts, match_rows(self.pairs, candidates) >= 0, keep_above)
+        old_pairs, self.pairs = self.pairs, candidates[hot]
+        if self.max_len != 2:
+            self._retarget_levels(old_pairs, keep_above, window)
+        return True
 
-    def _level(self, candidates: np.ndarray, counts: np.ndarray, hot: np.ndarray) -> _Level:
-        keys = self.lattice.encode(candidates)
-        order = np.argsort(keys)
-        keys, counts, candidates, hot = keys[order], counts[order], candidates[order], hot[order]
-        level = _Level()
-        present = counts > 0
-        level.counts.keys, level.counts.counts = keys[present], counts[present]
-        level.frequent, level.itemsets = keys[hot], candidates[hot]
-        return level
+    def _watch_list(self, allowed: np.ndarray, keep_above: int) -> np.ndarray | None:
+        """Items to keep pair counts for: all items of the window while they are few; else
+        those counted at least ``keep_above`` (kept until they fall below half of it). None
+        when even that is more than ``max_watched``."""
+        counts = self.item_counts
+        present = allowed & (counts > 0)
+        if present.sum() <= WATCH_ALL_UP_TO:
+            return present
+        watched = np.zeros(counts.size, dtype=bool)
+        if self.table is not None:
+            watched[: self.table.slot_of.size] = self.table.watched
+        wanted = allowed & ((counts >= keep_above) | watched & (counts >= max(1, keep_above // 2)))
+        return None if wanted.sum() > self.max_watched else wanted
+
+    def _retarget_levels(self, old_below: np.ndarray, keep_above: int, window: BasketSource) -> None:
+        """Bring each level of three items or more in line with the frequent itemsets one
+        smaller, level by level upwards."""
+        below, levels = self.pairs, []
+        for size in range(3, (self.max_len or 1 << 30) + 1):
+            old = self.levels[size - 3] if size - 3 < len(self.levels) else None
+            if old is None and len(below) < 2:
+                break
+            level = self._next_level(old, old_below, below, keep_above, window)
+            if len(level.itemsets) == 0:
+                break
+            levels.append(level)
+            old_below = empty_rows(size) if old is None else old.frequent_rows()
+            below = level.frequent_rows()
+        self.levels = levels
+
+    def _next_level(
+        self, old: _Level | None, old_below: np.ndarray, below: np.ndarray, keep_above: int, window: BasketSource
+    ) -> _Level:
+        """The level one larger than the frequent itemsets ``below`` (formerly ``old_below``).
+
+        Candidates that lost a frequent subset stop being candidates; new candidates are the
+        extensions of newly frequent itemsets by one frequent item (or, when much changed,
+        a full Apriori join). Rows tracked before keep their counts; only the others are
+        counted over the window. Former candidates stay while counted at least half of
+        ``keep_above``.
+        """
+        size = below.shape[1] + 1
+        if old is None:
+            old = _Level(empty_rows(size), np.zeros(0, np.int64), np.zeros(0, bool), np.zeros(0, bool))
+        rows, counts, candidate, was = old.itemsets, old.counts, old.candidate, old.frequent
+        if not np.array_equal(below, old_below):
+            removed = old_below[RowIndex(below).find(old_below) < 0]
+            added = below[RowIndex(old_below).find(below) < 0]
+            fresh = self._new_candidates(below, added)
+            if fresh is None:  # full join: the candidates are exactly its rows
+                fresh, candidate = join_candidates(unique_rows(below)), np.zeros(len(rows), dtype=bool)
+            elif len(removed):
+                lost = np.zeros(len(rows), dtype=bool)
+                gone = RowIndex(removed)
+                for column in range(size):
+                    lost |= gone.find(np.delete(rows, column, axis=1)) >= 0
+                candidate = candidate & ~lost
+            known = RowIndex(rows).find(fresh)
+            candidate = candidate.copy()
+            candidate[known[known >= 0]] = True
+            new = fresh[known < 0]
+            rows = np.concatenate([rows, new])
+            counts = np.concatenate([counts, window_counts(new, window, self.item_counts)])
+            candidate = np.concatenate([candidate, np.ones(len(new), dtype=bool)])
+            was = np.concatenate([was, np.zeros(len(new), dtype=bool)]) & candidate
+        hot = candidate & self._hot(counts, was, keep_above)
+        keep = candidate | (counts >= max(1, keep_above // 2))
+        return _Level(rows[keep], counts[keep], candidate[keep], hot[keep])
+
+    def _new_candidates(self, below: np.ndarray, added: np.ndarray) -> np.ndarray | None:
+        """Itemsets one larger holding a newly frequent itemset (a row of ``added``) whose
+        every subset one smaller is a row of ``below``: each added row extended by one
+        frequent item. None when that would be larger than a full join."""
+        items = np.flatnonzero(self.frequent_items)
+        if len(added) * items.size > max(EXTENSIONS_IN_FLIGHT, 2 * len(below) ** 2):
+            return None
+        grown = np.sort(np.column_stack([np.repeat(added, items.size, axis=0), np.tile(items, len(added))]), axis=1)
+        grown = grown[(grown[:, 1:] != grown[:, :-1]).all(axis=1)]
+        index = RowIndex(below)
+        for column in range(grown.shape[1]):
+            grown = grown[index.find(np.delete(grown, column, axis=1)) >= 0]
+        return unique_rows(grown)
+
+    def _hot(self, counts: np.ndarray, was: np.ndarray, keep_above: int) -> np.ndarray:
+        """Frequent under hysteresis: at the threshold, or frequent before and not far below."""
+        return (counts >= self.threshold) | was & (counts >= keep_above)
 
     def _grow_items(self, n: int) -> None:
         if n > self.item_counts.size:
-            self.item_counts = np.concatenate(
-                [self.item_counts, np.zeros(n - self.item_counts.size, dtype=np.int64)]
-            )
+            grow = n - self.item_counts.size
+            self.item_counts = np.concatenate([self.item_counts, np.zeros(grow, dtype=np.int64)])
+            self.frequent_items = np.concatenate([self.frequent_items, np.zeros(grow, dtype=bool)])
 
     # ------------------------------------------------------------------ result
     def itemsets(self) -> dict[Itemset, int]:
-        """Every frequent itemset with its count."""
+        """Every frequent itemset with its count (after a :meth:`retarget` that returned True)."""
         threshold = self.threshold
-        items = np.flatnonzero(self.lattice.frequent_items)
-        items = items[self.item_counts[items] >= threshold]
-        out: dict[Itemset, int] = dict(
-            zip(((i,) for i in items.tolist()), self.item_counts[items].tolist(), strict=True)
-        )
-        for level in self.lattice.levels:
-            counts = level.counts.count(level.frequent)
+        items = np.flatnonzero(self.frequent_items & (self.item_counts >= threshold))
+        out: dict[Itemset, int] = dict(zip(((i,) for i in items.tolist()), self.item_counts[items].tolist(), strict=True))
+        groups = [] if self.table is None else [(self.pairs, self.table.count(self.pairs[:, 0], self.pairs[:, 1]))]
+        for itemsets, counts in groups + [(level.itemsets, level.counts * level.candidate) for level in self.levels]:
             hot = counts >= threshold
-            out.update(zip(map(tuple, level.itemsets[hot].tolist()), counts[hot].tolist(), strict=True))
+            out.update(zip(map(tuple, itemsets[hot].tolist()), counts[hot].tolist(), strict=True))
         return out
 
-
-def _join(held: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Apriori join inside each basket: itemsets of size k held by the same basket that share
-    their first k-1 items give the itemset of size k+1 (Agrawal & Srikant 1994).
-
-    ``held`` is a matrix of sorted itemsets, ``rows`` the basket of each (empty: one basket).
-    Returns the joined itemsets and their baskets. Vectorised: O(joined itemsets).
-    """
-    if rows.size == 0:
-        rows = np.zeros(held.shape[0], dtype=np.int64)
-    size = held.shape[1]
-    if held.shape[0] < 2:
-        return np.empty((0, size + 1), dtype=np.int64), np.empty(0, dtype=np.int64)
-    order = np.lexsort((*held.T[::-1], rows))
-    held, rows = held[order], rows[order]
-    new_group = np.ones(held.shape[0], dtype=bool)
-    new_group[1:] = (rows[1:] != rows[:-1]) | (held[1:, :-1] != held[:-1, :-1]).any(axis=1)
-    heads = np.flatnonzero(new_group)
-    last = held[:, -1]
-    groups = BasketArrays.from_lengths(last, np.diff(np.append(heads, held.shape[0])))
-    tails, group = pairs_in(groups, np.ones(int(last.max()) + 1, dtype=bool))
-    middle, end = unpack(tails)
-    joined = np.column_stack([held[heads[group], :-1], middle, end])
-    return joined, rows[heads[group]]
-
-
-def _count_pairs_of(pairs: KeyCounts, entering: np.ndarray, watched: np.ndarray, window: BasketSource) -> None:
-    """Count, over the window, every pair of watched items that has an entering item."""
-    if not entering.any():
-        return
-    keys, _ = pairs_in(window(entering), watched)
-    first, second = unpack(keys)
-    keys = keys[entering[first] | entering[second]]
-    pairs.add(keys, np.ones(keys.size, dtype=np.int64))
-
-
-def count_in(itemsets: np.ndarray, window: BasketSource, item_counts: np.ndarray) -> np.ndarray:
-    """Exact counts of the itemsets (matrix rows) over the window (vertical counting): the
-    baskets holding each itemset's rarest item are read from the window once, and their
-    lists of baskets per item are intersected, rarest first."""
-    if itemsets.shape[0] == 0:
-        return np.zeros(0, dtype=np.int64)
-    anchors = itemsets[np.arange(itemsets.shape[0]), np.argmin(item_counts[itemsets], axis=1)]
-    anchor_flags = np.zeros(int(itemsets.max()) + 1, dtype=bool)
-    anchor_flags[anchors] = True
-    baskets = window(anchor_flags)
-    items = np.unique(itemsets)
-    flags = np.zeros(anchor_flags.size, dtype=bool)
-    flags[items] = True
-    keep = baskets.items < flags.size
-    keep[keep] = flags[baskets.items[keep]]
-    entries, rows = baskets.items[keep], baskets.row_of_items()[keep]
-    order = np.argsort(entries, kind="stable")
-    entries, rows = entries[order], rows[order]
-    bounds = np.searchsorted(entries, np.append(items, items[-1] + 1))
-    holders = {item: rows[bounds[k] : bounds[k + 1]] for k, item in enumerate(items.tolist())}
-    counts = []
-    for itemset, anchor in zip(itemsets.tolist(), anchors.tolist(), strict=True):
-        common = holders[anchor]
-        for item in itemset:
-            if item != anchor and common.size:
-                common = common[np.isin(common, holders[item], assume_unique=True)]
-        counts.append(common.size)
-    return np.array(counts, dtype=np.int64)

@@ -17,6 +17,9 @@ import numpy as np
 
 from stream_miner.baskets import BasketArrays
 
+MIN_CHUNK = 4096  # a newest chunk smaller than this (in baskets) takes the next batch in
+CHUNKS = 8  # ... and so does one smaller than this fraction of the window
+
 
 @dataclass(frozen=True)
 class CountWindow:
@@ -52,6 +55,28 @@ class _Chunk:
     def __post_init__(self) -> None:
         self.alive = np.ones(self.handle.size, dtype=bool)
         self.n_alive = self.handle.size
+
+    def compact(self) -> _Chunk:
+        """The same chunk with items in 2 bytes while ids fit (else 4), offsets and handles in 4."""
+        items = self.items
+        item_type = np.uint16 if items.size == 0 or items.max() < 1 << 16 else np.int32
+        chunk = _Chunk(items.astype(item_type), self.start.astype(np.int32), self.handle.astype(np.int32),
+                       self.event_ts)
+        chunk.alive, chunk.n_alive = self.alive, self.n_alive
+        return chunk
+
+    def joined(self, newer: _Chunk) -> _Chunk:
+        """This chunk with ``newer``'s baskets after its own (expired rows stay expired)."""
+        ts = None if self.event_ts is None and newer.event_ts is None else np.concatenate([self.ts, newer.ts])
+        chunk = _Chunk(
+            np.concatenate([self.items.astype(np.int64), newer.items.astype(np.int64)]),
+            np.concatenate([self.start[:-1].astype(np.int64), newer.start + self.start[-1]]),
+            np.concatenate([self.handle, newer.handle]).astype(np.int64),
+            ts,
+        )
+        chunk.alive = np.concatenate([self.alive, newer.alive])
+        chunk.n_alive = self.n_alive + newer.n_alive
+        return chunk
 
     @property
     def ts(self) -> np.ndarray:
@@ -108,19 +133,19 @@ class WindowStore:
         return self._size
 
     def append(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray) -> None:
-        """Add a batch of baskets (items in path order), newest last."""
+        """Add a batch of baskets (items in path order), newest last. A small newest chunk
+        takes the batch in, so the window stays in a few chunks however small the batches."""
         if ts.size == 0:
             return
-        items = paths.items
-        item_type = np.uint16 if items.size == 0 or items.max() < 1 << 16 else np.int32
-        self._chunks.append(
-            _Chunk(
-                items=items.astype(item_type),
-                start=(paths.start - paths.start[0]).astype(np.int32),
-                handle=handles.astype(np.int32),
-                event_ts=None if np.isnan(ts).all() else ts.astype(np.float64),
-            )
+        chunk = _Chunk(
+            items=paths.items,
+            start=paths.start - paths.start[0],
+            handle=handles,
+            event_ts=None if np.isnan(ts).all() else ts.astype(np.float64),
         )
+        if self._chunks and self._chunks[-1].handle.size < max(MIN_CHUNK, self._size // CHUNKS):
+            chunk = self._chunks.pop().joined(chunk)
+        self._chunks.append(chunk.compact())
         self._size += ts.size
 
     def expire_oldest(self, n: int) -> Expired:
@@ -162,13 +187,11 @@ class WindowStore:
             bound = 1 << 16 if chunk.items.dtype == np.uint16 else int(chunk.items.max()) + 1
             if wanted.size < bound:
                 wanted = np.concatenate([wanted, np.zeros(bound - wanted.size, dtype=bool)])
-            hit = wanted[chunk.items]
-            if not hit.any():
+            hits = np.flatnonzero(wanted[chunk.items])
+            if hits.size == 0:
                 continue
-            rows_hit = np.zeros(chunk.alive.size, dtype=bool)
-            row_of = np.repeat(np.arange(chunk.alive.size), np.diff(chunk.start))
-            rows_hit[row_of[hit]] = True
-            rows = np.flatnonzero(rows_hit & chunk.alive)
+            rows = np.unique(np.searchsorted(chunk.start, hits, side="right") - 1)
+            rows = rows[chunk.alive[rows]]
             if rows.size:
                 parts.append(chunk.baskets(rows))
         return BasketArrays.concat(parts)

@@ -1,0 +1,124 @@
+"""Exact counts of every pair of watched items, in a dense square matrix.
+
+Each watched item holds a slot; the count of the pair in slots ``s < t`` sits at
+``[s, t]`` (the lower triangle stays zero). Updating a batch is one scatter-add over the
+pairs inside its baskets; the matrix grows by doubling up to a fixed number of slots.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from stream_miner.baskets import BasketArrays
+from stream_miner.bitmaps import BASKETS_PER_PASS, BasketSource
+from stream_miner.pairs import pairs_in
+
+FIRST_CAPACITY = 64
+
+
+class PairTable:
+    """Pair counts for a set of watched items, kept exact as baskets enter and leave.
+
+    >>> table = PairTable()
+    >>> window = BasketArrays.from_lists([[1, 2, 3], [2, 3], [3]])
+    >>> table.watch(np.array([False, False, True, True]), lambda flags: window)
+    >>> table.count(np.array([2]), np.array([3])).tolist()
+    [2]
+    """
+
+    def __init__(self) -> None:
+        self.slot_of = np.full(0, -1, dtype=np.int64)  # item id -> slot, -1 when not watched
+        self.item_at = np.full(0, -1, dtype=np.int64)  # slot -> item id, -1 when free
+        self.counts = np.zeros((0, 0), dtype=np.int32)
+
+    @property
+    def watched(self) -> np.ndarray:
+        """Boolean mask over item ids."""
+        return self.slot_of >= 0
+
+    def watch(self, wanted: np.ndarray, window: BasketSource) -> None:
+        """Watch exactly the items set in the boolean ``wanted``: forget the pairs of items
+        no longer wanted, and count the pairs of newly wanted items over the window."""
+        watched = np.zeros(wanted.size, dtype=bool)
+        watched[: min(wanted.size, self.slot_of.size)] = self.watched[: wanted.size]
+        gone = np.flatnonzero(watched & ~wanted)
+        if self.slot_of.size > wanted.size:
+            gone = np.concatenate([gone, np.flatnonzero(self.watched[wanted.size :]) + wanted.size])
+        if gone.size:
+            slots = self.slot_of[gone]
+            self.counts[slots, :] = 0
+            self.counts[:, slots] = 0
+            self.item_at[slots] = -1
+            self.slot_of[gone] = -1
+        fresh = wanted & ~watched
+        if fresh.any():
+            self._assign(np.flatnonzero(fresh))
+            baskets = window(fresh)
+            for first in range(0, len(baskets), BASKETS_PER_PASS):
+                a, b, _ = pairs_in(baskets.part(first, first + BASKETS_PER_PASS), self.watched)
+                new = fresh[a] | fresh[b]
+                np.add.at(self.counts.reshape(-1), self._cells(a[new], b[new]), 1)
+
+    def add(self, baskets: BasketArrays, signs: np.ndarray, report_from: int) -> np.ndarray:
+        """Count baskets that entered (sign 1) or left (sign -1). Returns the pairs they
+        touched whose count is now at least ``report_from``, as rows of sorted item ids."""
+        a, b, rows = pairs_in(baskets, self.watched)
+        cells = self._cells(a, b)
+        flat = self.counts.reshape(-1)
+        np.add.at(flat, cells, signs[rows].astype(np.int32))
+        high = np.unique(cells[flat[cells] >= report_from])
+        return self._items_of(high)
+
+    def count(self, first: np.ndarray, second: np.ndarray) -> np.ndarray:
+        """Count of each pair (both items watched)."""
+        return self.counts.reshape(-1)[self._cells(first, second)].astype(np.int64)
+
+    def pairs_among(self, items: np.ndarray, at_least: int) -> np.ndarray:
+        """Every pair of the items set in the boolean ``items`` (all watched) whose count is
+        at least ``at_least``, as rows of sorted item ids. O(items squared)."""
+        slots = np.sort(self.slot_of[np.flatnonzero(items)])
+        top, bottom = np.nonzero(self.counts[slots][:, slots] >= at_least)
+        return self._items_of(slots[top] * self.capacity + slots[bottom])
+
+    def pairs_with(self, entering: np.ndarray, items: np.ndarray, at_least: int) -> np.ndarray:
+        """Every pair of an item in ``entering`` (ids) with an item set in ``items`` whose count
+        is at least ``at_least``, as rows of sorted item ids. O(entering x items)."""
+        others = self.slot_of[np.flatnonzero(items)]
+        mine = self.slot_of[entering]
+        both = self.counts[mine][:, others] + self.counts[:, mine].T[:, others]
+        row, column = np.nonzero(both >= at_least)
+        low = np.minimum(mine[row], others[column])
+        return self._items_of(low * self.capacity + np.maximum(mine[row], others[column]))
+
+    @property
+    def capacity(self) -> int:
+        return self.item_at.size
+
+    def _cells(self, first: np.ndarray, second: np.ndarray) -> np.ndarray:
+        s, t = self.slot_of[first], self.slot_of[second]
+        return np.minimum(s, t) * self.capacity + np.maximum(s, t)
+
+    def _items_of(self, cells: np.ndarray) -> np.ndarray:
+        a, b = self.item_at[cells // self.capacity], self.item_at[cells % self.capacity]
+        pairs = np.column_stack([np.minimum(a, b), np.maximum(a, b)])
+        return pairs[np.lexsort((pairs[:, 1], pairs[:, 0]))]
+
+    def _assign(self, items: np.ndarray) -> None:
+        free = np.flatnonzero(self.item_at < 0)
+        if free.size < items.size:
+            self._grow(self.capacity - free.size + items.size)
+            free = np.flatnonzero(self.item_at < 0)
+        slots = free[: items.size]
+        if self.slot_of.size <= items.max():
+            self.slot_of = np.concatenate([self.slot_of, np.full(int(items.max()) + 1 - self.slot_of.size, -1)])
+        self.slot_of[items] = slots
+        self.item_at[slots] = items
+
+    def _grow(self, needed: int) -> None:
+        capacity = max(FIRST_CAPACITY, self.capacity)
+        while capacity < needed:
+            capacity *= 2
+        counts = np.zeros((capacity, capacity), dtype=np.int32)
+        counts[: self.capacity, : self.capacity] = self.counts
+        self.counts = counts
+        self.item_at = np.concatenate([self.item_at, np.full(capacity - self.item_at.size, -1)])
