@@ -64,13 +64,9 @@ class BasketArrays:
         return np.repeat(np.arange(len(self), dtype=np.int64), self.lengths())
 
     def select(self, rows: np.ndarray) -> BasketArrays:
-        """The baskets at ``rows`` (boolean mask or indices), in that order."""
+        """The baskets at ``rows`` (boolean mask or indices), in that order. O(selected items)."""
         rows = np.flatnonzero(rows) if rows.dtype == bool else rows
         lengths = self.lengths()[rows]
-        keep = np.zeros(len(self), dtype=bool)
-        if rows.size and np.all(rows[1:] > rows[:-1]):
-            keep[rows] = True
-            return BasketArrays.from_lengths(self.items[np.repeat(keep, self.lengths())], lengths)
         gather = np.repeat(self.start[rows] - np.cumsum(lengths) + lengths, lengths)
         return BasketArrays.from_lengths(self.items[gather + np.arange(gather.size)], lengths)
 

@@ -38,7 +38,6 @@ from stream_miner.pair_table import PairTable
 
 Itemset = tuple[int, ...]
 MAX_WATCHED = 4096  # items in the pair table at most (a 64 MiB matrix); beyond, no tracking
-WATCH_ALL_UP_TO = 2048  # while the window holds this many items or fewer, watch them all
 EXTENSIONS_IN_FLIGHT = 1 << 18  # rows of one-item extensions built at once, at most
 
 
@@ -129,7 +128,7 @@ class BorderTracker:
             return False
         if self.table is None:
             self.table = PairTable()
-        self.table.watch(wanted, window)
+        self.table.watch(wanted, window, self.item_counts)
         if same_threshold:
             entering = np.flatnonzero(items & ~was)
             candidates = np.concatenate([self.pairs, touched, self.table.pairs_with(entering, items, threshold)])
@@ -144,17 +143,17 @@ class BorderTracker:
         return True
 
     def _watch_list(self, allowed: np.ndarray, keep_above: int) -> np.ndarray | None:
-        """Items to keep pair counts for: all items of the window while they are few; else
-        those counted at least ``keep_above`` (kept until they fall below half of it). None
-        when even that is more than ``max_watched``."""
+        """Items to keep pair counts for: those counted at least half of ``keep_above``
+        when the table starts; later, items that reach ``keep_above``, kept until they fall
+        below half of it. None when that is more than ``max_watched``."""
         counts = self.item_counts
-        present = allowed & (counts > 0)
-        if present.sum() <= WATCH_ALL_UP_TO:
-            return present
-        watched = np.zeros(counts.size, dtype=bool)
-        if self.table is not None:
+        stay = counts >= max(1, keep_above // 2)
+        if self.table is None:
+            wanted = allowed & stay
+        else:
+            watched = np.zeros(counts.size, dtype=bool)
             watched[: self.table.slot_of.size] = self.table.watched
-        wanted = allowed & ((counts >= keep_above) | watched & (counts >= max(1, keep_above // 2)))
+            wanted = allowed & ((counts >= keep_above) | watched & stay)
         return None if wanted.sum() > self.max_watched else wanted
 
     def _retarget_levels(self, old_below: np.ndarray, keep_above: int, window: BasketSource) -> None:

@@ -41,8 +41,11 @@ class RowIndex:
 
     def __init__(self, reference: np.ndarray) -> None:
         self.reference = reference
-        self.items = np.unique(reference)
-        self.packs = self.items.size ** reference.shape[1] < 1 << 62
+        present = np.zeros(int(reference.max()) + 1 if reference.size else 0, dtype=bool)
+        present[reference] = True
+        self.number = np.where(present, np.cumsum(present) - 1, -1)  # item id -> its number
+        self.base = int(present.sum())
+        self.packs = self.base ** reference.shape[1] < 1 << 62
         if self.packs:
             keys, _ = self._keys(reference)
             self.order = np.argsort(keys, kind="stable")
@@ -61,13 +64,12 @@ class RowIndex:
 
     def _keys(self, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Packed key of every row, and whether all its items occur in the matrix."""
-        if self.items.size == 0:
-            return np.zeros(rows.shape[0], dtype=np.int64), np.zeros(rows.shape[0], dtype=bool)
-        number = np.minimum(np.searchsorted(self.items, rows), self.items.size - 1)
-        valid = (self.items[number] == rows).all(axis=1)
+        number = self.number[np.minimum(rows, self.number.size - 1)]
+        number[rows >= self.number.size] = -1
+        valid = (number >= 0).all(axis=1)
         keys = np.zeros(rows.shape[0], dtype=np.int64)
         for column in range(rows.shape[1]):
-            keys = keys * self.items.size + number[:, column]
+            keys = keys * self.base + number[:, column]
         return keys, valid
 
 

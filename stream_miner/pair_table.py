@@ -10,8 +10,8 @@ from __future__ import annotations
 import numpy as np
 
 from stream_miner.baskets import BasketArrays
-from stream_miner.bitmaps import BASKETS_PER_PASS, BasketSource
-from stream_miner.pairs import pairs_in
+from stream_miner.bitmaps import BasketSource
+from stream_miner.kernels import add_pairs
 
 FIRST_CAPACITY = 64
 
@@ -21,7 +21,7 @@ class PairTable:
 
     >>> table = PairTable()
     >>> window = BasketArrays.from_lists([[1, 2, 3], [2, 3], [3]])
-    >>> table.watch(np.array([False, False, True, True]), lambda flags: window)
+    >>> table.watch(np.array([False, False, True, True]), lambda flags: window, np.array([1, 1, 2, 3]))
     >>> table.count(np.array([2]), np.array([3])).tolist()
     [2]
     """
@@ -36,9 +36,10 @@ class PairTable:
         """Boolean mask over item ids."""
         return self.slot_of >= 0
 
-    def watch(self, wanted: np.ndarray, window: BasketSource) -> None:
+    def watch(self, wanted: np.ndarray, window: BasketSource, item_counts: np.ndarray) -> None:
         """Watch exactly the items set in the boolean ``wanted``: forget the pairs of items
-        no longer wanted, and count the pairs of newly wanted items over the window."""
+        no longer wanted, and count the pairs of newly wanted items over the window. Items
+        with larger ``item_counts`` take lower slots, so the busiest cells lie close together."""
         watched = np.zeros(wanted.size, dtype=bool)
         watched[: min(wanted.size, self.slot_of.size)] = self.watched[: wanted.size]
         gone = np.flatnonzero(watched & ~wanted)
@@ -52,22 +53,28 @@ class PairTable:
             self.slot_of[gone] = -1
         fresh = wanted & ~watched
         if fresh.any():
-            self._assign(np.flatnonzero(fresh))
+            fresh_items = np.flatnonzero(fresh)
+            self._assign(fresh_items[np.argsort(-item_counts[fresh_items], kind="stable")])
             baskets = window(fresh)
-            for first in range(0, len(baskets), BASKETS_PER_PASS):
-                a, b, _ = pairs_in(baskets.part(first, first + BASKETS_PER_PASS), self.watched)
-                new = fresh[a] | fresh[b]
-                np.add.at(self.counts.reshape(-1), self._cells(a[new], b[new]), 1)
+            self._count(baskets, np.ones(len(baskets), dtype=np.int32), fresh, None)
+
+    def _count(
+        self, baskets: BasketArrays, signs: np.ndarray, only: np.ndarray | None, report_from: int | None
+    ) -> np.ndarray:
+        """Add each basket's sign to its pairs of watched items that hold an item set in
+        ``only``; the touched pairs counted at least ``report_from``, as rows of item ids."""
+        lengths = baskets.lengths()
+        room = 0 if report_from is None else int((lengths * (lengths - 1) // 2).sum())
+        reported = np.empty(room, dtype=np.int64)
+        report_from = np.iinfo(np.int32).max if report_from is None else report_from
+        n = add_pairs(baskets.items, baskets.start, signs, self.slot_of, only, self.counts.reshape(-1),
+                      report_from, reported)
+        return self._items_of(np.unique(reported[:n]))
 
     def add(self, baskets: BasketArrays, signs: np.ndarray, report_from: int) -> np.ndarray:
         """Count baskets that entered (sign 1) or left (sign -1). Returns the pairs they
         touched whose count is now at least ``report_from``, as rows of sorted item ids."""
-        a, b, rows = pairs_in(baskets, self.watched)
-        cells = self._cells(a, b)
-        flat = self.counts.reshape(-1)
-        np.add.at(flat, cells, signs[rows].astype(np.int32))
-        high = np.unique(cells[flat[cells] >= report_from])
-        return self._items_of(high)
+        return self._count(baskets, signs.astype(np.int32), None, report_from)
 
     def count(self, first: np.ndarray, second: np.ndarray) -> np.ndarray:
         """Count of each pair (both items watched)."""

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from stream_miner.baskets import BasketArrays
+from stream_miner.kernels import rows_holding
 
 MIN_CHUNK = 4096  # a newest chunk smaller than this (in baskets) takes the next batch in
 CHUNKS = 8  # ... and so does one smaller than this fraction of the window
@@ -180,18 +181,11 @@ class WindowStore:
     def baskets_with(self, wanted: np.ndarray) -> BasketArrays:
         """Live baskets holding at least one item whose entry in the boolean ``wanted`` is set.
 
-        O(items in the window), vectorised.
+        O(items in the window), one compiled pass.
         """
         parts = []
         for chunk in self._chunks:
-            bound = 1 << 16 if chunk.items.dtype == np.uint16 else int(chunk.items.max()) + 1
-            if wanted.size < bound:
-                wanted = np.concatenate([wanted, np.zeros(bound - wanted.size, dtype=bool)])
-            hits = np.flatnonzero(wanted[chunk.items])
-            if hits.size == 0:
-                continue
-            rows = np.unique(np.searchsorted(chunk.start, hits, side="right") - 1)
-            rows = rows[chunk.alive[rows]]
+            rows = rows_holding(chunk.items, chunk.start, chunk.alive, wanted)
             if rows.size:
                 parts.append(chunk.baskets(rows))
         return BasketArrays.concat(parts)
