@@ -3,7 +3,10 @@
 from __future__ import annotations
 
 import argparse
+import json
+import statistics
 import sys
+import time
 from collections import Counter
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
@@ -80,6 +83,9 @@ def _parser() -> argparse.ArgumentParser:
     win.add_argument("--full-remine", action="store_true",
                      help="with --every: mine the whole window at every tick instead of updating "
                      "the previous result (same output; for comparison)")
+    win.add_argument("--tick-timings", action="store_true",
+                     help="with --every: print the time spent per tick (window update and result "
+                     "refresh, without reading and printing) to stderr as JSON at the end")
     add_mining_options(mine)
     out = mine.add_argument_group("output")
     out.add_argument("--json", action="store_true", help="JSON Lines instead of a table")
@@ -94,8 +100,9 @@ def _subparser(parser: argparse.ArgumentParser, name: str) -> argparse.ArgumentP
 
 def run_mine(args: argparse.Namespace) -> int:
     """The ``mine`` command."""
-    if args.full_remine and args.every is None:
-        raise UsageError("--full-remine needs --every")
+    for flag, given in (("--full-remine", args.full_remine), ("--tick-timings", args.tick_timings)):
+        if given and args.every is None:
+            raise UsageError(f"{flag} needs --every")
     params = mining_params(args)
     miner = WindowMiner(
         CountWindow(args.window) if args.window else None,
@@ -109,6 +116,7 @@ def run_mine(args: argparse.Namespace) -> int:
         records = read_records(stream, fmt, csv_id_column=args.csv_id_column,
                                csv_item_column=args.csv_item_column)
         ticks = _Ticker(args.window, args.every)
+        timings = TickTimings()
         try:
             for number, record in enumerate(records, start=1):
                 progress.update(number)
@@ -119,12 +127,14 @@ def run_mine(args: argparse.Namespace) -> int:
                     continue
                 verdict = miner.add(record.items, record.ts)
                 if verdict in (Verdict.ACCEPTED, Verdict.TRUNCATED) and ticks.accept():
-                    _emit(miner, params, args, out, ticks.emitted())
+                    _emit(miner, params, args, out, ticks.emitted(), timings)
             if ticks.owes_final():
-                _emit(miner, params, args, out, ticks.emitted())
+                _emit(miner, params, args, out, ticks.emitted(), timings)
         finally:
             progress.close()
     _summarise(bad, miner.verdicts, sys.stderr)
+    if args.tick_timings:
+        print("stream-miner: tick timings " + json.dumps(timings.summary(args.full_remine)), file=sys.stderr)
     return 0
 
 
@@ -158,12 +168,53 @@ class _Ticker:
         return self.count - 1
 
 
+class TickTimings:
+    """Seconds spent per tick of ``mine --every``: applying the buffered baskets to the window
+    (the same work in both modes) and refreshing the result (incremental or full re-mine)."""
+
+    def __init__(self) -> None:
+        self.window: list[float] = []
+        self.refresh: list[float] = []
+
+    def timed_tick(self, miner: WindowMiner, params: MiningParams, full_remine: bool) -> MiningResult:
+        started = time.perf_counter()
+        miner.flush()
+        applied = time.perf_counter()
+        result = miner.tick(params, full_remine=full_remine).result
+        self.window.append(applied - started)
+        self.refresh.append(time.perf_counter() - applied)
+        return result
+
+    def summary(self, full_remine: bool) -> dict:
+        """Tick count and median, mean and 90th percentile in milliseconds; the first tick
+        (which starts the tracking) is left out of the refresh figures and shown apart."""
+        steady = self.refresh[1:] or self.refresh
+        return {
+            "mode": "full-remine" if full_remine else "incremental",
+            "ticks": len(self.refresh),
+            "first_refresh_ms": round(1e3 * self.refresh[0], 3) if self.refresh else None,
+            "refresh_ms": _spread(steady),
+            "window_update_ms": _spread(self.window),
+        }
+
+
+def _spread(seconds: list[float]) -> dict[str, float] | None:
+    if not seconds:
+        return None
+    ordered = sorted(seconds)
+    return {
+        "median": round(1e3 * statistics.median(ordered), 3),
+        "mean": round(1e3 * statistics.fmean(ordered), 3),
+        "p90": round(1e3 * ordered[int(0.9 * (len(ordered) - 1))], 3),
+    }
+
+
 def _emit(miner: WindowMiner, params: MiningParams, args: argparse.Namespace, out: TextIO,
-          tick: int | None) -> None:
+          tick: int | None, timings: TickTimings) -> None:
     if tick is None:
         result: MiningResult = miner.mine(params)
     else:
-        result = miner.tick(params, full_remine=args.full_remine).result
+        result = timings.timed_tick(miner, params, args.full_remine)
     if args.json:
         lines = json_lines(result, tick)
         if lines:
