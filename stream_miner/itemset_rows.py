@@ -128,8 +128,7 @@ def join_candidates(frequent: np.ndarray) -> np.ndarray:
     if n < 2:
         return empty_rows(k + 1)
     heads = np.ones(n, dtype=bool)
-    if k > 1:
-        heads[1:] = (frequent[1:, :-1] != frequent[:-1, :-1]).any(axis=1)
+    heads[1:] = (frequent[1:, :-1] != frequent[:-1, :-1]).any(axis=1)  # k = 1: one group
     first, second = index_pairs(offsets(np.diff(np.append(np.flatnonzero(heads), n))))
     candidates = np.column_stack([frequent[first], frequent[second, -1]])
     keep = np.ones(candidates.shape[0], dtype=bool)

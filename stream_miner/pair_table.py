@@ -69,7 +69,8 @@ class PairTable:
         report_from = np.iinfo(np.int32).max if report_from is None else report_from
         n = add_pairs(baskets.items, baskets.start, signs, self.slot_of, only, self.counts.reshape(-1),
                       report_from, reported)
-        return self._items_of(np.unique(reported[:n]))
+        reported = np.unique(reported[:n])
+        return self._items_of(reported[self.counts.reshape(-1)[reported] >= report_from])
 
     def add(self, baskets: BasketArrays, signs: np.ndarray, report_from: int) -> np.ndarray:
         """Count baskets that entered (sign 1) or left (sign -1). Returns the pairs they
@@ -82,20 +83,23 @@ class PairTable:
 
     def pairs_among(self, items: np.ndarray, at_least: int) -> np.ndarray:
         """Every pair of the items set in the boolean ``items`` (all watched) whose count is
-        at least ``at_least``, as rows of sorted item ids. O(items squared)."""
+        at least ``at_least`` (1 or more), as rows of sorted item ids. O(items squared)."""
+        _check_positive(at_least)
         slots = np.sort(self.slot_of[np.flatnonzero(items)])
         top, bottom = np.nonzero(self.counts[slots][:, slots] >= at_least)
         return self._items_of(slots[top] * self.capacity + slots[bottom])
 
     def pairs_with(self, entering: np.ndarray, items: np.ndarray, at_least: int) -> np.ndarray:
         """Every pair of an item in ``entering`` (ids) with an item set in ``items`` whose count
-        is at least ``at_least``, as rows of sorted item ids. O(entering x items)."""
+        is at least ``at_least`` (1 or more), as distinct rows of sorted item ids.
+        O(entering x items)."""
+        _check_positive(at_least)
         others = self.slot_of[np.flatnonzero(items)]
         mine = self.slot_of[entering]
         both = self.counts[mine][:, others] + self.counts[:, mine].T[:, others]
         row, column = np.nonzero(both >= at_least)
         low = np.minimum(mine[row], others[column])
-        return self._items_of(low * self.capacity + np.maximum(mine[row], others[column]))
+        return self._items_of(np.unique(low * self.capacity + np.maximum(mine[row], others[column])))
 
     @property
     def capacity(self) -> int:
@@ -129,3 +133,8 @@ class PairTable:
         counts[: self.capacity, : self.capacity] = self.counts
         self.counts = counts
         self.item_at = np.concatenate([self.item_at, np.full(capacity - self.item_at.size, -1)])
+
+
+def _check_positive(at_least: int) -> None:
+    if at_least < 1:  # a zero bound would pair items with themselves and with unseen items
+        raise ValueError(f"a pair count bound must be at least 1, got {at_least}")
