@@ -281,12 +281,9 @@ class WindowMiner:
         if len(self._named) > 4 * len(found) + 4096:
             self._named = {}
         named = self._named
-        itemsets = {}
-        for items, count in found.items():
-            key = named.get(items)
-            if key is None:
-                key = named[items] = tuple(sorted(names[i] for i in items))
-            itemsets[key] = count
+        for items in found.keys() - named.keys():
+            named[items] = tuple(sorted(names[i] for i in items))
+        itemsets = {named[items]: count for items, count in found.items()}
         return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules, names=names)
 
     @staticmethod

@@ -188,9 +188,10 @@ class BorderTracker:
             old = _Level(empty_rows(size), np.zeros(0, np.int64), np.zeros(0, bool), np.zeros(0, bool))
         rows, counts, candidate, was = old.itemsets, old.counts, old.candidate, old.frequent
         if not np.array_equal(below, old_below):
-            removed = old_below[RowIndex(below).find(old_below) < 0]
+            below_index = RowIndex(below)
+            removed = old_below[below_index.find(old_below) < 0]
             added = below[RowIndex(old_below).find(below) < 0]
-            fresh = self._new_candidates(below, added)
+            fresh = self._new_candidates(below_index, added)
             if fresh is None:  # full join: the candidates are exactly its rows
                 fresh, candidate = join_candidates(unique_rows(below)), np.zeros(len(rows), dtype=bool)
             elif len(removed):
@@ -211,18 +212,17 @@ class BorderTracker:
         keep = candidate | (counts >= max(1, keep_above // 2))
         return _Level(rows[keep], counts[keep], candidate[keep], hot[keep])
 
-    def _new_candidates(self, below: np.ndarray, added: np.ndarray) -> np.ndarray | None:
+    def _new_candidates(self, below: RowIndex, added: np.ndarray) -> np.ndarray | None:
         """Itemsets one larger holding a newly frequent itemset (a row of ``added``) whose
         every subset one smaller is a row of ``below``: each added row extended by one
         frequent item. None when that would be larger than a full join."""
         items = np.flatnonzero(self.frequent_items)
-        if len(added) * items.size > max(EXTENSIONS_IN_FLIGHT, 2 * len(below) ** 2):
+        if len(added) * items.size > max(EXTENSIONS_IN_FLIGHT, 2 * len(below.reference) ** 2):
             return None
         grown = np.sort(np.column_stack([np.repeat(added, items.size, axis=0), np.tile(items, len(added))]), axis=1)
         grown = grown[(grown[:, 1:] != grown[:, :-1]).all(axis=1)]
-        index = RowIndex(below)
         for column in range(grown.shape[1]):
-            grown = grown[index.find(np.delete(grown, column, axis=1)) >= 0]
+            grown = grown[below.find(np.delete(grown, column, axis=1)) >= 0]
         return unique_rows(grown)
 
     def _hot(self, counts: np.ndarray, was: np.ndarray, keep_above: int) -> np.ndarray:
