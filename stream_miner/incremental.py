@@ -9,10 +9,12 @@ the baskets that entered or left the window, and at what crossed the threshold:
    of two frequent items is frequent or on the border, so the table holds all of them); the
    tracked itemsets of three items or more by vertical bitmaps of the changed baskets.
 2. ``retarget``: with the new threshold (a time window changes its size, a user may change
-   the support), itemsets move between F and the border. A level is rebuilt only when the
-   frequent itemsets one smaller changed; its candidates that were tracked before keep
-   their counts, and only the others are counted over the window. Every minimal newly
-   frequent itemset was on the old border, so nothing is missed.
+   the support), itemsets move between F and the border. A level changes only where the
+   frequent itemsets one smaller changed: candidates that lost a frequent subset stop being
+   candidates, and the extensions of newly frequent itemsets by one frequent item become
+   candidates; rows tracked before keep their counts, and only the others are counted over
+   the window. Every minimal newly frequent itemset was on the old border, so nothing is
+   missed.
 
 Hysteresis: an itemset joins F when its count reaches the threshold and leaves it only when
 its count falls below ``(1 - margin)`` of it, so one hovering at the threshold does not make
@@ -21,8 +23,7 @@ the result is exactly the itemsets at or above the threshold. Items are watched 
 table from that lower bound on, and until their count halves again.
 
 The cost of a tick grows with the baskets that changed and with what crossed the threshold,
-not with the window. Itemsets are rows of item ids in increasing order, rows in
-lexicographic order.
+not with the window. Itemsets are rows of item ids in increasing order.
 """
 
 from __future__ import annotations
@@ -47,7 +48,7 @@ class _Level:
     one-smaller subset frequent: F and its border) and, kept counted while their count stays
     near the threshold, former candidates, so that they need no recount when they return."""
 
-    itemsets: np.ndarray  # rows of item ids; the candidates first, in lexicographic order
+    itemsets: np.ndarray  # rows of item ids, in no particular order
     counts: np.ndarray  # int64, aligned
     candidate: np.ndarray  # bool, aligned
     frequent: np.ndarray  # bool, aligned
