@@ -82,8 +82,19 @@ def window_counts(itemsets: np.ndarray, window: BasketSource, item_counts: np.nd
     slotted = slotted.reshape(itemsets.shape)
     slot_of = np.full(flags.size, -1, dtype=np.int64)
     slot_of[items] = np.arange(items.size)
-    counts = np.zeros(n, dtype=np.int64)
+    return batch_counts(baskets, [slotted], slot_of, items.size)[0]
+
+
+def batch_counts(
+    baskets: BasketArrays, itemsets: list[np.ndarray], slot_of: np.ndarray, n_slots: int,
+    signs: np.ndarray | None = None,
+) -> list[np.ndarray]:
+    """Count of every itemset (matrices of slots, see :func:`item_bitmaps`) in the baskets,
+    signed by ``signs`` if given; bitmaps are built for ``BASKETS_PER_PASS`` baskets at once."""
+    counts = [np.zeros(len(rows), dtype=np.int64) for rows in itemsets]
     for first in range(0, len(baskets), BASKETS_PER_PASS):
-        part = baskets.part(first, first + BASKETS_PER_PASS)
-        counts += count_rows(slotted, item_bitmaps(part, slot_of, items.size))
+        bits = item_bitmaps(baskets.part(first, first + BASKETS_PER_PASS), slot_of, n_slots)
+        plus = None if signs is None else sign_bitmap(signs[first : first + BASKETS_PER_PASS])
+        for total, rows in zip(counts, itemsets, strict=True):
+            total += count_rows(rows, bits, plus)
     return counts

@@ -33,7 +33,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from stream_miner.baskets import BasketArrays
-from stream_miner.bitmaps import BasketSource, count_rows, item_bitmaps, sign_bitmap, window_counts
+from stream_miner.bitmaps import BasketSource, batch_counts, window_counts
 from stream_miner.itemset_rows import RowIndex, empty_rows, join_candidates, match_rows, unique_rows
 from stream_miner.pair_table import PairTable
 
@@ -98,11 +98,10 @@ class BorderTracker:
             items = np.unique(np.concatenate([level.itemsets.ravel() for level in self.levels]))
             slot_of = np.full(self.item_counts.size, -1, dtype=np.int64)
             slot_of[items] = np.arange(items.size)
-            bits, plus = item_bitmaps(baskets, slot_of, items.size), sign_bitmap(signs)
+            found = batch_counts(baskets, [slot_of[level.itemsets] for level in self.levels], slot_of, items.size, signs)
             self.levels = [
-                _Level(level.itemsets, level.counts + count_rows(slot_of[level.itemsets], bits, plus),
-                       level.candidate, level.frequent)
-                for level in self.levels
+                _Level(level.itemsets, level.counts + more, level.candidate, level.frequent)
+                for level, more in zip(self.levels, found, strict=True)
             ]
 
     # -------------------------------------------------------------- threshold

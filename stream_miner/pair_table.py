@@ -14,6 +14,7 @@ from stream_miner.bitmaps import BasketSource
 from stream_miner.kernels import add_pairs
 
 FIRST_CAPACITY = 64
+PAIRS_PER_PASS = 1 << 22  # pairs per compiled pass, at most (bounds the report buffer: 32 MiB)
 
 
 class PairTable:
@@ -62,15 +63,22 @@ class PairTable:
         self, baskets: BasketArrays, signs: np.ndarray, only: np.ndarray | None, report_from: int | None
     ) -> np.ndarray:
         """Add each basket's sign to its pairs of watched items that hold an item set in
-        ``only``; the touched pairs counted at least ``report_from``, as rows of item ids."""
+        ``only``; the touched pairs counted at least ``report_from``, as rows of item ids.
+        Compiled passes over at most ``PAIRS_PER_PASS`` pairs each bound the report buffer."""
         lengths = baskets.lengths()
-        room = 0 if report_from is None else int((lengths * (lengths - 1) // 2).sum())
-        reported = np.empty(room, dtype=np.int64)
-        report_from = np.iinfo(np.int32).max if report_from is None else report_from
-        n = add_pairs(baskets.items, baskets.start, signs, self.slot_of, only, self.counts.reshape(-1),
-                      report_from, reported)
-        reported = np.unique(reported[:n])
-        return self._items_of(reported[self.counts.reshape(-1)[reported] >= report_from])
+        pairs = np.cumsum(lengths * (lengths - 1) // 2)  # pairs up to and including each basket
+        cuts = np.searchsorted(pairs, np.arange(PAIRS_PER_PASS, pairs[-1], PAIRS_PER_PASS)) if pairs.size else []
+        bounds = np.unique(np.concatenate([[0], cuts, [len(baskets)]])).astype(np.int64)
+        flat, reported = self.counts.reshape(-1), [np.empty(0, dtype=np.int64)]
+        for first, stop in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
+            part = baskets.part(first, stop)
+            room = 0 if report_from is None else int(pairs[stop - 1] - (pairs[first - 1] if first else 0))
+            cells = np.empty(room, dtype=np.int64)
+            n = add_pairs(part.items, part.start, signs[first:stop], self.slot_of, only, flat,
+                          np.iinfo(np.int32).max if report_from is None else report_from, cells)
+            reported.append(cells[:n])
+        cells = np.unique(np.concatenate(reported))
+        return self._items_of(cells[flat[cells] >= (report_from or 1)])
 
     def add(self, baskets: BasketArrays, signs: np.ndarray, report_from: int) -> np.ndarray:
         """Count baskets that entered (sign 1) or left (sign -1). Returns the pairs they

@@ -13,7 +13,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
-from stream_miner import bitmaps
+from stream_miner import bitmaps, pair_table
 from stream_miner.baskets import BasketArrays
 from stream_miner.bitmaps import count_rows, item_bitmaps, sign_bitmap, window_counts
 from stream_miner.incremental import BorderTracker
@@ -424,17 +424,21 @@ def expected_itemsets(window, allowed: np.ndarray, threshold: int, max_len) -> d
 
 
 @settings(max_examples=150, deadline=None)
-@given(tracker_plans(), st.booleans())
-def test_border_tracker_equals_brute_force_at_every_tick(plan, always_join):
+@given(tracker_plans(), st.booleans(), st.booleans())
+def test_border_tracker_equals_brute_force_at_every_tick(plan, always_join, tiny_passes):
     """BorderTracker driven as the engine does (one apply per tick, then retarget with a
     threshold that changes between ticks): itemsets() equals the brute-force miner over the
     window restricted to the allowed items and max_len, for margins 0, 0.25 and 0.5; also
-    when every changed level is rebuilt by the full Apriori join (its fallback path)."""
+    when every changed level is rebuilt by the full Apriori join (its fallback path), and
+    when the compiled pair loop and the bitmaps work through a batch in tiny passes."""
     max_len, margin, allowed, ticks = plan
     tracker, window = BorderTracker(max_len, margin), []
     with pytest.MonkeyPatch.context() as patch:
         if always_join:
             patch.setattr(BorderTracker, "_new_candidates", lambda self, below, added: None)
+        if tiny_passes:
+            patch.setattr(pair_table, "PAIRS_PER_PASS", 2)
+            patch.setattr(bitmaps, "BASKETS_PER_PASS", 3)
         for tick in ticks:
             step_window(tracker, window, tick)
             threshold = tick[3]
