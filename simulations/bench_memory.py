@@ -82,8 +82,8 @@ def engine_memory(path: str, window: int, limit: int | None, batch: int) -> dict
             tree = PrefixTree(frequency_rank(np.bincount(first)))
         expired = store.expire_oldest(max(0, len(store) + len(chunk) - window))
         paths = tree.paths_of(chunk)
-        handles = tree.update(paths, expired)
-        store.append(paths.items, paths.start, np.full(len(chunk), np.nan), handles)
+        handles = tree.update(paths, expired.handles)
+        store.append(paths, np.full(len(chunk), np.nan), handles)
         streamed += len(chunk)
     if tree is None:
         raise ValueError(f"no baskets in {path}")

@@ -11,7 +11,7 @@ import numpy as np
 
 from stream_miner.baskets import BasketArrays
 from stream_miner.bitmaps import BasketSource
-from stream_miner.kernels import add_pairs
+from stream_miner.kernels import add_pairs, compiled
 
 FIRST_CAPACITY = 64
 PAIRS_PER_PASS = 1 << 22  # pairs per compiled pass, at most (bounds the report buffer: 32 MiB)
@@ -74,8 +74,8 @@ class PairTable:
             part = baskets.part(first, stop)
             room = 0 if report_from is None else int(pairs[stop - 1] - (pairs[first - 1] if first else 0))
             cells = np.empty(room, dtype=np.int64)
-            n = add_pairs(part.items, part.start, signs[first:stop], self.slot_of, only, flat,
-                          np.iinfo(np.int32).max if report_from is None else report_from, cells)
+            n = compiled(add_pairs)(part.items, part.start, signs[first:stop], self.slot_of, only, flat,
+                                    np.iinfo(np.int32).max if report_from is None else report_from, cells)
             reported.append(cells[:n])
         cells = np.unique(np.concatenate(reported))
         return self._items_of(cells[flat[cells] >= (report_from or 1)])

@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from stream_miner.baskets import BasketArrays
-from stream_miner.kernels import rows_holding
+from stream_miner.kernels import compiled, rows_holding
 
 MIN_CHUNK = 4096  # a newest chunk smaller than this (in baskets) takes the next batch in
 CHUNKS = 8  # ... and so does one smaller than this fraction of the window
@@ -185,7 +185,7 @@ class WindowStore:
         """
         parts = []
         for chunk in self._chunks:
-            rows = rows_holding(chunk.items, chunk.start, chunk.alive, wanted)
+            rows = compiled(rows_holding)(chunk.items, chunk.start, chunk.alive, wanted)
             if rows.size:
                 parts.append(chunk.baskets(rows))
         return BasketArrays.concat(parts)

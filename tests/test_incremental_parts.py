@@ -18,7 +18,7 @@ from stream_miner.baskets import BasketArrays
 from stream_miner.bitmaps import count_rows, item_bitmaps, sign_bitmap, window_counts
 from stream_miner.incremental import BorderTracker
 from stream_miner.itemset_rows import RowIndex, empty_rows, join_candidates, match_rows, unique_rows
-from stream_miner.kernels import rows_holding
+from stream_miner.kernels import compiled, rows_holding
 from stream_miner.pair_table import FIRST_CAPACITY, PairTable
 
 SETTINGS = settings(max_examples=100, deadline=None)
@@ -264,7 +264,7 @@ def test_rows_holding_equals_python_loop(dtype, baskets, data):
     largest = max((i for b in baskets for i in b), default=0)
     size = data.draw(st.integers(0, min(largest, 50)))  # shorter than the largest id
     wanted = np.array(data.draw(st.lists(st.booleans(), min_size=size, max_size=size)), dtype=bool)
-    out = rows_holding(batch.items.astype(dtype), batch.start, alive, wanted)
+    out = compiled(rows_holding)(batch.items.astype(dtype), batch.start, alive, wanted)
     expected = [r for r, b in enumerate(baskets) if alive[r] and any(i < size and wanted[i] for i in b)]
     assert out.dtype == np.int64
     assert out.tolist() == expected
