@@ -67,12 +67,13 @@ class _Chunk:
         return chunk
 
     def joined(self, newer: _Chunk) -> _Chunk:
-        """This chunk with ``newer``'s baskets after its own (expired rows stay expired)."""
+        """This chunk with ``newer``'s baskets after its own (expired rows stay expired); both
+        compact, so the join copies no wider arrays than it keeps."""
         ts = None if self.event_ts is None and newer.event_ts is None else np.concatenate([self.ts, newer.ts])
         chunk = _Chunk(
-            np.concatenate([self.items.astype(np.int64), newer.items.astype(np.int64)]),
-            np.concatenate([self.start[:-1].astype(np.int64), newer.start + self.start[-1]]),
-            np.concatenate([self.handle, newer.handle]).astype(np.int64),
+            np.concatenate([self.items, newer.items]),
+            np.concatenate([self.start[:-1], newer.start + self.start[-1]]),
+            np.concatenate([self.handle, newer.handle]),
             ts,
         )
         chunk.alive = np.concatenate([self.alive, newer.alive])
@@ -143,10 +144,10 @@ class WindowStore:
             start=paths.start - paths.start[0],
             handle=handles,
             event_ts=None if np.isnan(ts).all() else ts.astype(np.float64),
-        )
+        ).compact()
         if self._chunks and self._chunks[-1].handle.size < max(MIN_CHUNK, self._size // CHUNKS):
             chunk = self._chunks.pop().joined(chunk)
-        self._chunks.append(chunk.compact())
+        self._chunks.append(chunk)
         self._size += ts.size
 
     def expire_oldest(self, n: int) -> Expired:
