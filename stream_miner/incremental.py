@@ -38,7 +38,7 @@ from stream_miner.itemset_rows import RowIndex, empty_rows, join_candidates, mat
 from stream_miner.pair_table import PairTable
 
 Itemset = tuple[int, ...]
-MAX_WATCHED = 4096  # items in the pair table at most (a 64 MiB matrix); beyond, no tracking
+MAX_WATCHED = 4096  # items in the pair table at most (a 32 MiB triangle); beyond, no tracking
 EXTENSIONS_IN_FLIGHT = 1 << 18  # rows of one-item extensions built at once, at most
 
 

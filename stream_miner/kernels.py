@@ -31,13 +31,12 @@ def add_pairs(
     counts: np.ndarray, report_from: int, reported: np.ndarray,
 ) -> int:
     """Add ``signs[r]`` to the count of every pair of items with slots in basket ``r``
-    (``counts`` is the flattened square matrix; the pair of slots ``s < t`` is cell
-    ``s * side + t``), skipping pairs with no item set in ``only`` (None: skip none).
+    (``counts`` is the packed triangle: the pair of slots ``s < t`` is cell
+    ``t * (t - 1) // 2 + s``), skipping pairs with no item set in ``only`` (None: skip none).
 
     Cells whose count reached ``report_from`` are written to ``reported`` (one entry per
     update: to see them all it needs room for every pair); returns how many were written.
     """
-    side = int(np.sqrt(counts.size))
     slots = np.empty(items.size, dtype=np.int64)
     marked = np.ones(items.size, dtype=np.bool_)
     for i in range(items.size):
@@ -56,7 +55,7 @@ def add_pairs(
                 b = slots[j]
                 if b < 0 or not (marked[i] or marked[j]):
                     continue
-                cell = a * side + b if a < b else b * side + a
+                cell = b * (b - 1) // 2 + a if a < b else a * (a - 1) // 2 + b
                 counts[cell] += sign
                 if counts[cell] >= report_from and n < reported.size:
                     reported[n] = cell

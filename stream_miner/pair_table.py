@@ -1,8 +1,10 @@
-"""Exact counts of every pair of watched items, in a dense square matrix.
+"""Exact counts of every pair of watched items, in a dense packed triangle.
 
-Each watched item holds a slot; the count of the pair in slots ``s < t`` sits at
-``[s, t]`` (the lower triangle stays zero). Updating a batch is one scatter-add over the
-pairs inside its baskets; the matrix grows by doubling up to a fixed number of slots.
+Each watched item holds a slot; the count of the pair in slots ``s < t`` sits at cell
+``t * (t - 1) // 2 + s`` of one int32 array, so the layout does not depend on the number
+of slots (growing appends) and the pairs of the most frequent items, which take the lowest
+slots, lie close together. Updating a batch is one scatter-add over the pairs inside its
+baskets (a compiled loop).
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ from stream_miner.bitmaps import BasketSource
 from stream_miner.kernels import add_pairs, compiled
 
 FIRST_CAPACITY = 64
+ROWS_PER_PASS = 256  # slots scanned at once by pairs_among (bounds its temporary arrays)
 PAIRS_PER_PASS = 1 << 22  # pairs per compiled pass, at most (bounds the report buffer: 32 MiB)
 
 
@@ -30,7 +33,7 @@ class PairTable:
     def __init__(self) -> None:
         self.slot_of = np.full(0, -1, dtype=np.int64)  # item id -> slot, -1 when not watched
         self.item_at = np.full(0, -1, dtype=np.int64)  # slot -> item id, -1 when free
-        self.counts = np.zeros((0, 0), dtype=np.int32)
+        self.counts = np.zeros(0, dtype=np.int32)  # the packed triangle
 
     @property
     def watched(self) -> np.ndarray:
@@ -48,8 +51,9 @@ class PairTable:
             gone = np.concatenate([gone, np.flatnonzero(self.watched[wanted.size :]) + wanted.size])
         if gone.size:
             slots = self.slot_of[gone]
-            self.counts[slots, :] = 0
-            self.counts[:, slots] = 0
+            every = np.arange(self.capacity)
+            low, high = np.minimum(slots[:, None], every), np.maximum(slots[:, None], every)
+            self.counts[cell_of(low[low != high], high[low != high])] = 0
             self.item_at[slots] = -1
             self.slot_of[gone] = -1
         fresh = wanted & ~watched
@@ -69,7 +73,7 @@ class PairTable:
         pairs = np.cumsum(lengths * (lengths - 1) // 2)  # pairs up to and including each basket
         cuts = np.searchsorted(pairs, np.arange(PAIRS_PER_PASS, pairs[-1], PAIRS_PER_PASS)) if pairs.size else []
         bounds = np.unique(np.concatenate([[0], cuts, [len(baskets)]])).astype(np.int64)
-        flat, reported = self.counts.reshape(-1), [np.empty(0, dtype=np.int64)]
+        flat, reported = self.counts, [np.empty(0, dtype=np.int64)]
         for first, stop in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
             part = baskets.part(first, stop)
             room = 0 if report_from is None else int(pairs[stop - 1] - (pairs[first - 1] if first else 0))
@@ -87,15 +91,21 @@ class PairTable:
 
     def count(self, first: np.ndarray, second: np.ndarray) -> np.ndarray:
         """Count of each pair (both items watched)."""
-        return self.counts.reshape(-1)[self._cells(first, second)].astype(np.int64)
+        return self.counts[self._cells(first, second)].astype(np.int64)
 
     def pairs_among(self, items: np.ndarray, at_least: int) -> np.ndarray:
         """Every pair of the items set in the boolean ``items`` (all watched) whose count is
         at least ``at_least`` (1 or more), as rows of sorted item ids. O(items squared)."""
         _check_positive(at_least)
         slots = np.sort(self.slot_of[np.flatnonzero(items)])
-        top, bottom = np.nonzero(self.counts[slots][:, slots] >= at_least)
-        return self._items_of(slots[top] * self.capacity + slots[bottom])
+        found = [np.empty(0, dtype=np.int64)]
+        for first in range(0, slots.size, ROWS_PER_PASS):  # slots[i] < slots[j] for i < j
+            rows = np.arange(first, min(first + ROWS_PER_PASS, slots.size))
+            low, high = np.minimum(slots[rows][:, None], slots), np.maximum(slots[rows][:, None], slots)
+            cells = cell_of(low, high)
+            hit = (rows[:, None] < np.arange(slots.size)) & (self.counts[cells] >= at_least)
+            found.append(cells[hit])
+        return self._items_of(np.concatenate(found))
 
     def pairs_with(self, entering: np.ndarray, items: np.ndarray, at_least: int) -> np.ndarray:
         """Every pair of an item in ``entering`` (ids) with an item set in ``items`` whose count
@@ -104,10 +114,10 @@ class PairTable:
         _check_positive(at_least)
         others = self.slot_of[np.flatnonzero(items)]
         mine = self.slot_of[entering]
-        both = self.counts[mine][:, others] + self.counts[:, mine].T[:, others]
-        row, column = np.nonzero(both >= at_least)
-        low = np.minimum(mine[row], others[column])
-        return self._items_of(np.unique(low * self.capacity + np.maximum(mine[row], others[column])))
+        low, high = np.minimum(mine[:, None], others[None, :]), np.maximum(mine[:, None], others[None, :])
+        cells = cell_of(low, high)
+        hit = (low != high) & (self.counts[cells] >= at_least)
+        return self._items_of(np.unique(cells[hit]))
 
     @property
     def capacity(self) -> int:
@@ -115,10 +125,13 @@ class PairTable:
 
     def _cells(self, first: np.ndarray, second: np.ndarray) -> np.ndarray:
         s, t = self.slot_of[first], self.slot_of[second]
-        return np.minimum(s, t) * self.capacity + np.maximum(s, t)
+        return cell_of(np.minimum(s, t), np.maximum(s, t))
 
     def _items_of(self, cells: np.ndarray) -> np.ndarray:
-        a, b = self.item_at[cells // self.capacity], self.item_at[cells % self.capacity]
+        high = ((1 + np.sqrt(1 + 8 * cells.astype(np.float64))) // 2).astype(np.int64)
+        high -= cell_of(0, high) > cells  # float rounding, either way
+        high += cell_of(0, high + 1) <= cells
+        a, b = self.item_at[cells - cell_of(0, high)], self.item_at[high]
         pairs = np.column_stack([np.minimum(a, b), np.maximum(a, b)])
         return pairs[np.lexsort((pairs[:, 1], pairs[:, 0]))]
 
@@ -137,12 +150,20 @@ class PairTable:
         capacity = max(FIRST_CAPACITY, self.capacity)
         while capacity < needed:
             capacity *= 2
-        counts = np.zeros((capacity, capacity), dtype=np.int32)
-        counts[: self.capacity, : self.capacity] = self.counts
-        self.counts = counts
+        self.counts = np.concatenate([self.counts, np.zeros(cell_of(0, capacity) - self.counts.size, dtype=np.int32)])
         self.item_at = np.concatenate([self.item_at, np.full(capacity - self.item_at.size, -1)])
 
 
 def _check_positive(at_least: int) -> None:
     if at_least < 1:  # a zero bound would pair items with themselves and with unseen items
         raise ValueError(f"a pair count bound must be at least 1, got {at_least}")
+
+
+def cell_of(low: np.ndarray | int, high: np.ndarray | int) -> np.ndarray:
+    """Cell of the pair of slots ``low < high`` in the packed triangle.
+
+    >>> cell_of(np.array([0, 0, 1, 2]), np.array([1, 2, 2, 3])).tolist()
+    [0, 1, 2, 5]
+    """
+    high = np.asarray(high, dtype=np.int64)
+    return high * (high - 1) // 2 + low
