@@ -14,6 +14,7 @@ from collections.abc import Callable
 import numpy as np
 
 from stream_miner.baskets import BasketArrays
+from stream_miner.itemset_rows import numbering
 
 BasketSource = Callable[[np.ndarray], BasketArrays]  # the window's baskets holding any flagged item
 WORDS_IN_FLIGHT = 1 << 21  # bitmap words gathered per numpy pass (16 MiB), bounds memory
@@ -78,11 +79,8 @@ def window_counts(itemsets: np.ndarray, window: BasketSource, item_counts: np.nd
     flags = np.zeros(int(itemsets.max()) + 1, dtype=bool)
     flags[anchors] = True
     baskets = window(flags)
-    items, slotted = np.unique(itemsets, return_inverse=True)
-    slotted = slotted.reshape(itemsets.shape)
-    slot_of = np.full(flags.size, -1, dtype=np.int64)
-    slot_of[items] = np.arange(items.size)
-    return batch_counts(baskets, [slotted], slot_of, items.size)[0]
+    slot_of = numbering(itemsets)
+    return batch_counts(baskets, [slot_of[itemsets]], slot_of, int(slot_of.max()) + 1)[0]
 
 
 def batch_counts(

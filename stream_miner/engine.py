@@ -243,13 +243,12 @@ class WindowMiner:
         names = self.vocabulary.names()
         min_count = params.threshold(len(self.store))
         if full_remine:
-            result = self.mine(params)
-            self._tracker = None
+            self._tracker, found = None, None
         else:
-            found = self._track(params, names, min_count)
-            if found is None:  # too many items to track pairs of: this tick mines in full
-                found = self._mine_tree(params, names, min_count)
-            result = self._result(found, min_count, params, names)
+            found = self._track(params, names, min_count)  # None: too many items to track pairs of
+        if found is None:
+            found = self._mine_tree(params, names, min_count)
+        result = self._result(found, min_count, params, names)
         tick = Tick(self._ticks, result, diff_results(self._last, result))
         self._last = result
         self._ticks += 1

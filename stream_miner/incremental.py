@@ -34,7 +34,7 @@ import numpy as np
 
 from stream_miner.baskets import BasketArrays
 from stream_miner.bitmaps import BasketSource, batch_counts, window_counts
-from stream_miner.itemset_rows import RowIndex, empty_rows, join_candidates, match_rows, unique_rows
+from stream_miner.itemset_rows import RowIndex, empty_rows, join_candidates, match_rows, numbering, unique_rows
 from stream_miner.pair_table import PairTable
 
 Itemset = tuple[int, ...]
@@ -95,10 +95,9 @@ class BorderTracker:
             return
         self._touched.append(self.table.add(baskets, signs, self.threshold))
         if self.levels:
-            items = np.unique(np.concatenate([level.itemsets.ravel() for level in self.levels]))
-            slot_of = np.full(self.item_counts.size, -1, dtype=np.int64)
-            slot_of[items] = np.arange(items.size)
-            found = batch_counts(baskets, [slot_of[level.itemsets] for level in self.levels], slot_of, items.size, signs)
+            slot_of = numbering(np.concatenate([level.itemsets.ravel() for level in self.levels]))
+            found = batch_counts(baskets, [slot_of[level.itemsets] for level in self.levels], slot_of,
+                                 int(slot_of.max()) + 1, signs)
             self.levels = [
                 _Level(level.itemsets, level.counts + more, level.candidate, level.frequent)
                 for level, more in zip(self.levels, found, strict=True)
@@ -151,9 +150,7 @@ class BorderTracker:
         if self.table is None:
             wanted = allowed & stay
         else:
-            watched = np.zeros(counts.size, dtype=bool)
-            watched[: self.table.slot_of.size] = self.table.watched
-            wanted = allowed & ((counts >= keep_above) | watched & stay)
+            wanted = allowed & ((counts >= keep_above) | self.table.watched_among(counts.size) & stay)
         return None if wanted.sum() > self.max_watched else wanted
 
     def _retarget_levels(self, old_below: np.ndarray, keep_above: int, window: BasketSource) -> None:
@@ -207,7 +204,7 @@ class BorderTracker:
             rows = np.concatenate([rows, new])
             counts = np.concatenate([counts, window_counts(new, window, self.item_counts)])
             candidate = np.concatenate([candidate, np.ones(len(new), dtype=bool)])
-            was = np.concatenate([was, np.zeros(len(new), dtype=bool)]) & candidate
+            was = np.concatenate([was, np.zeros(len(new), dtype=bool)])
         hot = candidate & self._hot(counts, was, keep_above)
         keep = candidate | (counts >= max(1, keep_above // 2))
         return _Level(rows[keep], counts[keep], candidate[keep], hot[keep])

@@ -32,6 +32,18 @@ def empty_rows(width: int) -> np.ndarray:
     return np.empty((0, width), dtype=np.int64)
 
 
+def numbering(values: np.ndarray) -> np.ndarray:
+    """The distinct non-negative ints of ``values`` numbered 0, 1, ... in increasing order,
+    as a lookup array (value -> number; -1 for values in its range that do not occur).
+
+    >>> numbering(np.array([[7, 2], [2, 4]])).tolist()
+    [-1, -1, 0, -1, 1, -1, -1, 2]
+    """
+    present = np.zeros(int(values.max()) + 1 if values.size else 0, dtype=bool)
+    present[values] = True
+    return np.where(present, np.cumsum(present) - 1, -1)
+
+
 def unique_rows(rows: np.ndarray) -> np.ndarray:
     """The distinct rows, in lexicographic order.
 
@@ -59,10 +71,8 @@ class RowIndex:
 
     def __init__(self, reference: np.ndarray) -> None:
         self.reference = reference
-        present = np.zeros(int(reference.max()) + 1 if reference.size else 0, dtype=bool)
-        present[reference] = True
-        self.number = np.where(present, np.cumsum(present) - 1, -1)  # item id -> its number
-        self.base = int(present.sum())
+        self.number = numbering(reference)  # item id -> its number
+        self.base = int(self.number.max()) + 1 if self.number.size else 0
         self.packs = self.base ** reference.shape[1] < 1 << 62
         if self.packs:
             keys, _ = self._keys(reference)

@@ -40,20 +40,24 @@ class PairTable:
         """Boolean mask over item ids."""
         return self.slot_of >= 0
 
+    def watched_among(self, n: int) -> np.ndarray:
+        """Boolean mask over item ids ``0 .. n - 1``."""
+        mask = np.zeros(n, dtype=bool)
+        mask[: min(n, self.slot_of.size)] = self.watched[:n]
+        return mask
+
     def watch(self, wanted: np.ndarray, window: BasketSource, item_counts: np.ndarray) -> None:
         """Watch exactly the items set in the boolean ``wanted``: forget the pairs of items
         no longer wanted, and count the pairs of newly wanted items over the window. Items
         with larger ``item_counts`` take lower slots, so the busiest cells lie close together."""
-        watched = np.zeros(wanted.size, dtype=bool)
-        watched[: min(wanted.size, self.slot_of.size)] = self.watched[: wanted.size]
+        watched = self.watched_among(wanted.size)
         gone = np.flatnonzero(watched & ~wanted)
         if self.slot_of.size > wanted.size:
             gone = np.concatenate([gone, np.flatnonzero(self.watched[wanted.size :]) + wanted.size])
         if gone.size:
-            slots = self.slot_of[gone]
+            slots = self.slot_of[gone][:, None]
             every = np.arange(self.capacity)
-            low, high = np.minimum(slots[:, None], every), np.maximum(slots[:, None], every)
-            self.counts[cell_of(low[low != high], high[low != high])] = 0
+            self.counts[cell_of(slots, every)[slots != every]] = 0
             self.item_at[slots] = -1
             self.slot_of[gone] = -1
         fresh = wanted & ~watched
@@ -101,8 +105,7 @@ class PairTable:
         found = [np.empty(0, dtype=np.int64)]
         for first in range(0, slots.size, ROWS_PER_PASS):  # slots[i] < slots[j] for i < j
             rows = np.arange(first, min(first + ROWS_PER_PASS, slots.size))
-            low, high = np.minimum(slots[rows][:, None], slots), np.maximum(slots[rows][:, None], slots)
-            cells = cell_of(low, high)
+            cells = cell_of(slots[rows][:, None], slots)
             hit = (rows[:, None] < np.arange(slots.size)) & (self.counts[cells] >= at_least)
             found.append(cells[hit])
         return self._items_of(np.concatenate(found))
@@ -114,9 +117,8 @@ class PairTable:
         _check_positive(at_least)
         others = self.slot_of[np.flatnonzero(items)]
         mine = self.slot_of[entering]
-        low, high = np.minimum(mine[:, None], others[None, :]), np.maximum(mine[:, None], others[None, :])
-        cells = cell_of(low, high)
-        hit = (low != high) & (self.counts[cells] >= at_least)
+        cells = cell_of(mine[:, None], others)
+        hit = (mine[:, None] != others) & (self.counts[cells] >= at_least)
         return self._items_of(np.unique(cells[hit]))
 
     @property
@@ -124,8 +126,7 @@ class PairTable:
         return self.item_at.size
 
     def _cells(self, first: np.ndarray, second: np.ndarray) -> np.ndarray:
-        s, t = self.slot_of[first], self.slot_of[second]
-        return cell_of(np.minimum(s, t), np.maximum(s, t))
+        return cell_of(self.slot_of[first], self.slot_of[second])
 
     def _items_of(self, cells: np.ndarray) -> np.ndarray:
         high = ((1 + np.sqrt(1 + 8 * cells.astype(np.float64))) // 2).astype(np.int64)
@@ -159,11 +160,12 @@ def _check_positive(at_least: int) -> None:
         raise ValueError(f"a pair count bound must be at least 1, got {at_least}")
 
 
-def cell_of(low: np.ndarray | int, high: np.ndarray | int) -> np.ndarray:
-    """Cell of the pair of slots ``low < high`` in the packed triangle.
+def cell_of(s: np.ndarray | int, t: np.ndarray | int) -> np.ndarray:
+    """Cell of the pair of slots ``s`` and ``t`` (either order, broadcast) in the packed
+    triangle; ``cell_of(0, t)`` is where the pairs of ``t`` with lower slots start.
 
-    >>> cell_of(np.array([0, 0, 1, 2]), np.array([1, 2, 2, 3])).tolist()
+    >>> cell_of(np.array([0, 2, 1, 3]), np.array([1, 0, 2, 2])).tolist()
     [0, 1, 2, 5]
     """
-    high = np.asarray(high, dtype=np.int64)
+    low, high = np.minimum(s, t), np.maximum(s, t).astype(np.int64)
     return high * (high - 1) // 2 + low

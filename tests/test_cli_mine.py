@@ -505,22 +505,18 @@ def test_oversized_baskets_truncated(capsys, tmp_path):
     assert "1 oversized baskets truncated" in err
 
 
-def test_empty_fimi_lines_are_skipped_and_reported(capsys, tmp_path):
-    path = tmp_path / "b.dat"
-    path.write_text("a b\n\n   \na\n")
+@pytest.mark.parametrize("name, text", [
+    ("b.dat", "a b\n\n   \na\n"),
+    # the blank line is not a basket at all, so only the two empty item lists are counted
+    ("b.jsonl", '{"items": ["a"]}\n{"items": []}\n\n{"items": ["a", "b"]}\n{"items": []}\n'),
+])
+def test_empty_baskets_are_skipped_and_reported(capsys, tmp_path, name, text):
+    path = tmp_path / name
+    path.write_text(text)
     records, err = run_json(capsys, path, "--min-count", 1)
     assert itemsets_of(records) == {("a",): 2, ("b",): 1, ("a", "b"): 1}
     assert all(r["support"] == r["count"] / 2 for r in records)
     assert "2 empty baskets skipped" in err
-
-
-def test_empty_jsonl_baskets_are_skipped_and_reported(capsys, tmp_path):
-    path = tmp_path / "b.jsonl"
-    path.write_text('{"items": ["a"]}\n{"items": []}\n\n{"items": ["a", "b"]}\n{"items": []}\n')
-    records, err = run_json(capsys, path, "--min-count", 1)
-    assert itemsets_of(records) == {("a",): 2, ("b",): 1, ("a", "b"): 1}
-    assert all(r["support"] == r["count"] / 2 for r in records)
-    assert "2 empty baskets skipped" in err  # the blank line is not a basket at all
 
 
 def test_clean_run_reports_nothing(capsys, tmp_path):
