@@ -25,6 +25,7 @@ import argparse
 import gc
 import hashlib
 import inspect
+import itertools
 import json
 import os
 import platform
@@ -47,11 +48,11 @@ from mlxtend.preprocessing import TransactionEncoder
 from simulations.heavy_tailed import heavy_tailed_baskets
 from simulations.naive import NaiveFPTree, naive_fpgrowth
 from simulations.quest import quest_baskets
-from stream_miner.engine import DEFAULT_BATCH, WindowMiner
-from stream_miner.params import MiningParams
-from stream_miner.fpgrowth import mine_tree
-from stream_miner.tree import PrefixTree, frequency_rank
-from stream_miner.window import CountWindow
+from stream_miner.engine.fpgrowth import mine_tree
+from stream_miner.engine.miner import DEFAULT_BATCH, WindowMiner
+from stream_miner.engine.params import MiningParams
+from stream_miner.engine.tree import PrefixTree, frequency_rank
+from stream_miner.engine.window import CountWindow
 
 Baskets = list[list[int]]
 Itemsets = dict[tuple[int, ...], int]
@@ -101,7 +102,7 @@ def load_baskets(data: str, n: int, seed: int) -> Baskets:
     if path.exists():
         with np.load(path) as cached:
             flat, start = cached["items"].tolist(), cached["start"].tolist()
-        return [flat[lo:hi] for lo, hi in zip(start[:-1], start[1:])]
+        return [flat[lo:hi] for lo, hi in itertools.pairwise(start)]
     log(f"generating {n} {data} baskets (seed {seed})")
     baskets = generate(data, n, seed)
     start = np.zeros(n + 1, dtype=np.int64)
@@ -149,7 +150,7 @@ def tree_paths(baskets: Baskets, rank: np.ndarray) -> Baskets:
     """Each basket's items in the tree order given by ``rank``."""
     batch = PrefixTree(rank).paths_of(baskets)
     flat, start = batch.items.tolist(), batch.start.tolist()
-    return [flat[lo:hi] for lo, hi in zip(start[:-1], start[1:])]
+    return [flat[lo:hi] for lo, hi in itertools.pairwise(start)]
 
 
 # ---------------------------------------------------------------------- timing
@@ -217,7 +218,7 @@ def naive_stream(paths: Baskets, window: int) -> dict[str, float]:
     for path in paths[:window]:
         tree.insert(path)
     filled = time.perf_counter()
-    for old, new in zip(paths, paths[window:]):
+    for old, new in zip(paths, paths[window:], strict=False):
         tree.expire(old)
         tree.insert(new)
     done = time.perf_counter()
@@ -294,9 +295,7 @@ def throughput(baskets: Baskets, args: argparse.Namespace) -> dict[str, object]:
             **miner,
             "batch_size": DEFAULT_BATCH,
             "item_order": f"frequency of the first {DEFAULT_BATCH} baskets (engine policy)",
-            "over_naive_slide": round(
-                miner["slide_baskets_per_s"] / naive["slide_baskets_per_s"], 2
-            ),
+            "over_naive_slide": round(miner["slide_baskets_per_s"] / naive["slide_baskets_per_s"], 2),
             f"over_tree_update_slide_{args.slide}": round(
                 miner["slide_baskets_per_s"] / default["slide_baskets_per_s"], 3
             ),
@@ -315,9 +314,7 @@ def check_same_nodes(engine: dict[str, dict[str, float]], naive: dict[str, float
 
 
 # ---------------------------------------------------------------------- mining
-def mlxtend_itemsets(
-    window: Baskets, min_count: int, repeats: int
-) -> tuple[float, list[float], Itemsets]:
+def mlxtend_itemsets(window: Baskets, min_count: int, repeats: int) -> tuple[float, list[float], Itemsets]:
     """Time mlxtend fpgrowth (only the call) on a dense one-hot DataFrame of the window."""
     encoder = TransactionEncoder()
     onehot = pd.DataFrame(encoder.fit(window).transform(window), columns=encoder.columns_)
@@ -326,7 +323,7 @@ def mlxtend_itemsets(
     columns = encoder.columns_
     itemsets = {
         tuple(sorted(int(columns[c]) for c in itemset)): round(s * len(window))
-        for itemset, s in zip(found["itemsets"], found["support"])
+        for itemset, s in zip(found["itemsets"], found["support"], strict=False)
     }
     return median, runs, itemsets
 
@@ -351,9 +348,7 @@ def mining(window: Baskets, min_count: int, args: argparse.Namespace) -> dict[st
     tree = PrefixTree.build(window, item_rank(window))
     log("mining: engine")
     arrays_s, _, _ = median_runs(tree.arrays, args.repeats)
-    engine_s, engine_runs, expected = median_runs(
-        lambda: mine_tree(tree.arrays(), min_count), args.repeats
-    )
+    engine_s, engine_runs, expected = median_runs(lambda: mine_tree(tree.arrays(), min_count), args.repeats)
     times: dict[str, float] = {"engine": engine_s}
     runs: dict[str, list[float]] = {"engine": engine_runs}
     log("mining: pyfim")
@@ -363,9 +358,7 @@ def mining(window: Baskets, min_count: int, args: argparse.Namespace) -> dict[st
     check_same("pyfim", {tuple(sorted(s)): int(c) for s, c in pyfim_found}, expected)
     if not args.skip_mlxtend:
         log("mining: mlxtend")
-        times["mlxtend"], runs["mlxtend"], mlxtend_found = mlxtend_itemsets(
-            window, min_count, args.repeats
-        )
+        times["mlxtend"], runs["mlxtend"], mlxtend_found = mlxtend_itemsets(window, min_count, args.repeats)
         check_same("mlxtend", mlxtend_found, expected)
     log("mining: naive FP-growth")
     times["naive"], runs["naive"], naive_found = median_runs(
@@ -407,9 +400,7 @@ def memory(args: argparse.Namespace) -> dict[str, object]:
     path = str(fimi_file("quest", args.memory_window + MEMORY_EXTRA, args.seed))
     engine = ("engine", "--file", path, "--batch", str(MEMORY_BATCH))
     large = child(*engine, "--window", str(args.memory_window))
-    small = child(
-        *engine, "--window", str(args.window), "--baskets", str(args.window + MEMORY_EXTRA)
-    )
+    small = child(*engine, "--window", str(args.window), "--baskets", str(args.window + MEMORY_EXTRA))
     naive = child("naive", "--file", path, "--baskets", str(args.window))
     naive_bytes = naive["peak_minus_baseline_per_basket"]
     engine_peak = small["peak_minus_baseline_per_basket"]

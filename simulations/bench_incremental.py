@@ -28,9 +28,9 @@ from fractions import Fraction
 import fim
 
 from simulations.bench_engine import environment, load_baskets, log
-from stream_miner.engine import WindowMiner
-from stream_miner.params import MiningParams
-from stream_miner.window import CountWindow
+from stream_miner.engine.miner import WindowMiner
+from stream_miner.engine.params import MiningParams
+from stream_miner.engine.window import CountWindow
 
 SCENARIOS = {
     "quest_w100k_s1k": ("quest", 100_000, 1_000, "0.005"),
@@ -43,7 +43,9 @@ SCENARIOS = {
 QUICK = ("quest_w100k_s1k", "quest_w10k_s500_cli_setting")
 
 
-def run_scenario(data: str, window: int, slide: int, support: str, ticks: int, samples: int, seed: int) -> dict:
+def run_scenario(
+    data: str, window: int, slide: int, support: str, ticks: int, samples: int, seed: int
+) -> dict:
     """Fill, start tracking, then time ``ticks`` incremental refreshes and sampled full mines."""
     baskets = load_baskets(data, window + slide * ticks, seed=seed)
     vocabulary = [str(i) for i in range(max(max(b) for b in baskets) + 1)]
@@ -120,14 +122,21 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=1, help="data seed (another seed gives held-out data)")
     args = parser.parse_args(argv)
     chosen = args.only or (QUICK if args.quick else list(SCENARIOS))
-    report: dict = {"environment": environment(), "seed": args.seed, "compiled_loops_start_s": warm_up(), "scenarios": {}}
+    report: dict = {
+        "environment": environment(),
+        "seed": args.seed,
+        "compiled_loops_start_s": warm_up(),
+        "scenarios": {},
+    }
     for name in chosen:
         log(f"scenario {name}")
         report["scenarios"][name] = run_scenario(*SCENARIOS[name], args.ticks, args.samples, args.seed)
     scenarios = report["scenarios"]
     if "quest_w100k_s1k" in scenarios and "quest_w1m_s1k" in scenarios:
         report["window_1m_over_100k_refresh"] = round(
-            scenarios["quest_w1m_s1k"]["refresh_per_tick_s"] / scenarios["quest_w100k_s1k"]["refresh_per_tick_s"], 2
+            scenarios["quest_w1m_s1k"]["refresh_per_tick_s"]
+            / scenarios["quest_w100k_s1k"]["refresh_per_tick_s"],
+            2,
         )
     json.dump(report, sys.stdout, indent=1)
     print()

@@ -26,13 +26,18 @@ from kafka import KafkaConsumer
 from simulations.bench_engine import environment, load_baskets, log
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
-from kafka_broker import GROUP_OPTIONS, start_broker, stop_broker  # noqa: E402
+from kafka_broker import GROUP_OPTIONS, start_broker, stop_broker
 
 
 def raw_rate(address: str, topic: str, n: int) -> float:
     """Messages per second that kafka-python consumes and JSON-decodes, alone."""
-    consumer = KafkaConsumer(topic, bootstrap_servers=address, auto_offset_reset="earliest",
-                             enable_auto_commit=False, max_poll_records=500)
+    consumer = KafkaConsumer(
+        topic,
+        bootstrap_servers=address,
+        auto_offset_reset="earliest",
+        enable_auto_commit=False,
+        max_poll_records=500,
+    )
     seen, started = 0, time.perf_counter()
     while seen < n:
         for messages in consumer.poll(timeout_ms=500).values():
@@ -44,8 +49,9 @@ def raw_rate(address: str, topic: str, n: int) -> float:
     return n / elapsed
 
 
-def run_rate(address: str, topic: str, n: int, window: int, workdir: Path,
-             processes: int) -> tuple[float, float, list[dict]]:
+def run_rate(
+    address: str, topic: str, n: int, window: int, workdir: Path, processes: int
+) -> tuple[float, float, list[dict]]:
     """Baskets per second through ``processes`` ``stream-miner run`` members of one group: from
     start until all are consumed, and sustained (from the moment every member has written a
     snapshot, after start-up and the group join)."""
@@ -53,14 +59,34 @@ def run_rate(address: str, topic: str, n: int, window: int, workdir: Path,
     for k in range(processes):
         member = workdir / f"member-{k}"
         member.mkdir()
-        command = [sys.executable, "-m", "stream_miner.cli", "run", "--source", f"kafka://{address}/{topic}",
-                   "--group", "bench", "--window-size", str(window), "--tick-interval", "1s",
-                   "--min-support", "0.005", "--checkpoint-dir", str(member / "ck"),
-                   "--snapshot-out", str(member / "snap.jsonl")]
+        command = [
+            sys.executable,
+            "-m",
+            "stream_miner",
+            "run",
+            "--source",
+            f"kafka://{address}/{topic}",
+            "--group",
+            "bench",
+            "--window-size",
+            str(window),
+            "--tick-interval",
+            "1s",
+            "--min-support",
+            "0.005",
+            "--checkpoint-dir",
+            str(member / "ck"),
+            "--snapshot-out",
+            str(member / "snap.jsonl"),
+        ]
         for option in GROUP_OPTIONS:
             command += ["--kafka-option", option]
-        running.append((member / "snap.jsonl", subprocess.Popen(
-            command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)))
+        running.append(
+            (
+                member / "snap.jsonl",
+                subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True),
+            )
+        )
     started = time.perf_counter()
     first: tuple[float, int] | None = None
     while True:
@@ -87,22 +113,30 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m simulations.bench_kafka", description=__doc__)
     parser.add_argument("--baskets", type=int, default=200_000)
     parser.add_argument("--window", type=int, default=100_000)
-    parser.add_argument("--processes", type=int, default=1,
-                        help="run members in one group, with as many partitions (each its own window)")
+    parser.add_argument(
+        "--processes",
+        type=int,
+        default=1,
+        help="run members in one group, with as many partitions (each its own window)",
+    )
     args = parser.parse_args(argv)
     baskets = load_baskets("quest", args.baskets, seed=7)
     broker = start_broker()
     try:
         broker.create_topic("bench", args.processes)
         log(f"producing {args.baskets} messages")
-        broker.produce("bench", ({"id": f"b{i}", "items": [str(x) for x in b]} for i, b in enumerate(baskets)),
-                       partition_of=lambda i: i % args.processes)
+        broker.produce(
+            "bench",
+            ({"id": f"b{i}", "items": [str(x) for x in b]} for i, b in enumerate(baskets)),
+            partition_of=lambda i: i % args.processes,
+        )
         log("kafka-python alone")
         raw = raw_rate(broker.address, "bench", args.baskets)
         log("stream-miner run")
         with tempfile.TemporaryDirectory() as workdir:
-            ours, sustained, headers = run_rate(broker.address, "bench", args.baskets, args.window,
-                                                Path(workdir), args.processes)
+            ours, sustained, headers = run_rate(
+                broker.address, "bench", args.baskets, args.window, Path(workdir), args.processes
+            )
     finally:
         stop_broker(broker)
     report = {

@@ -25,8 +25,8 @@ import numpy as np
 import psutil
 
 from simulations.naive import NaiveFPTree
-from stream_miner.tree import PrefixTree, frequency_rank
-from stream_miner.window import WindowStore
+from stream_miner.engine.tree import PrefixTree, frequency_rank
+from stream_miner.engine.window import WindowStore
 
 Baskets = list[list[int]]
 

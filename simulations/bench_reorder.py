@@ -22,10 +22,10 @@ from fractions import Fraction
 import numpy as np
 
 from simulations.bench_engine import environment, load_baskets, log
-from stream_miner.baskets import BasketArrays
-from stream_miner.engine import ORDER_SAMPLE
-from stream_miner.fpgrowth import mine_tree
-from stream_miner.tree import PrefixTree, frequency_rank
+from stream_miner.engine.baskets import BasketArrays
+from stream_miner.engine.fpgrowth import mine_tree
+from stream_miner.engine.miner import ORDER_SAMPLE
+from stream_miner.engine.tree import PrefixTree, frequency_rank
 
 
 def build(baskets: BasketArrays, rank: np.ndarray) -> tuple[PrefixTree, float]:

@@ -39,8 +39,7 @@ def heavy_tailed_baskets(
     sizes[rng.random(n_baskets) < big_basket_rate] = big_basket_size
     sizes = np.minimum(sizes, n_items).tolist()
     patterns = [
-        rng.choice(n_items, min(k, n_items), replace=False).tolist()
-        for k in rng.integers(2, 5, n_patterns)
+        rng.choice(n_items, min(k, n_items), replace=False).tolist() for k in rng.integers(2, 5, n_patterns)
     ]
     planted: list[int | None] = [None] * n_baskets
     if n_patterns:

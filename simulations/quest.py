@@ -57,9 +57,7 @@ def quest_baskets(
         carried = []
         while len(basket) < target:
             if i == len(add_anyway):
-                items, bounds, add_anyway = _corrupted_picks(
-                    rng, flat, offsets, weights, corruption
-                )
+                items, bounds, add_anyway = _corrupted_picks(rng, flat, offsets, weights, corruption)
                 i = 0
             pick = items[bounds[i] : bounds[i + 1]]
             overflow_kept = add_anyway[i]
@@ -84,7 +82,7 @@ def _pattern_pool(
     previous = np.empty(0, dtype=np.int64)
     for _ in range(n_patterns):
         size = min(1 + int(rng.poisson(avg_size - 1)), n_items)
-        shared = min(int(round(rng.exponential(_CORRELATION) * size)), size, previous.size)
+        shared = min(round(rng.exponential(_CORRELATION) * size), size, previous.size)
         chosen = rng.choice(previous, shared, replace=False).tolist() if shared else []
         taken = set(chosen)
         while len(chosen) < size:

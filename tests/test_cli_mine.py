@@ -19,7 +19,7 @@ from itertools import combinations
 
 import pytest
 
-from stream_miner.cli import main
+from stream_miner.cli.main import main
 
 # Ten small baskets used by the rule tests. Hand counts (N = 10): bread 7, milk 7, jam 5,
 # tea 4, eggs 3; {bread, milk} 5, {bread, jam} 4, {jam, milk} 4, {bread, jam, milk} 3.
@@ -38,8 +38,17 @@ BASKETS = [
     ["bread", "milk", "jam", "tea"],
 ]
 ITEMSET_KEYS = {"type", "items", "count", "support"}
-RULE_KEYS = {"type", "antecedent", "consequent", "count", "support", "confidence", "lift",
-             "leverage", "conviction"}
+RULE_KEYS = {
+    "type",
+    "antecedent",
+    "consequent",
+    "count",
+    "support",
+    "confidence",
+    "lift",
+    "leverage",
+    "conviction",
+}
 
 
 # ----------------------------------------------------------------------- brute force
@@ -139,10 +148,18 @@ def run_script(*args, stdin=b""):
 
 
 # ----------------------------------------------------------------------- formats
-@pytest.mark.parametrize("name, writer", [
-    ("b.dat", write_fimi), ("b.txt", write_fimi), ("b.fimi", write_fimi), ("B.DAT", write_fimi),
-    ("b.jsonl", write_jsonl), ("b.ndjson", write_jsonl), ("b.csv", write_csv),
-])
+@pytest.mark.parametrize(
+    "name, writer",
+    [
+        ("b.dat", write_fimi),
+        ("b.txt", write_fimi),
+        ("b.fimi", write_fimi),
+        ("B.DAT", write_fimi),
+        ("b.jsonl", write_jsonl),
+        ("b.ndjson", write_jsonl),
+        ("b.csv", write_csv),
+    ],
+)
 def test_format_detected_from_extension(capsys, tmp_path, name, writer):
     path = writer(tmp_path / name, BASKETS)
     records, _ = run_json(capsys, path, "--min-count", 2)
@@ -160,8 +177,9 @@ def test_csv_custom_columns_and_extra_columns(capsys, tmp_path):
         "tea,south,o2\ntea,south,o2\njam,south,o2\n"
         "scone,east,o3\njam,east,o3\ntea,east,o3\n"
     )
-    records, _ = run_json(capsys, path, "--csv-id-column", "order", "--csv-item-column", "product",
-                          "--min-count", 1)
+    records, _ = run_json(
+        capsys, path, "--csv-id-column", "order", "--csv-item-column", "product", "--min-count", 1
+    )
     baskets = [["tea", "scone"], ["tea", "jam"], ["scone", "jam", "tea"]]
     assert itemsets_of(records) == frequent(baskets, 1)
 
@@ -253,7 +271,7 @@ def test_every_emits_ticks_over_the_right_windows(capsys, tmp_path, n, window, e
         by_tick[record["tick"]].append(record)
     assert sorted(by_tick) == list(range(len(ends)))
     for tick, end in enumerate(ends):
-        current = baskets[max(0, end - window):end]
+        current = baskets[max(0, end - window) : end]
         threshold = math.ceil(Fraction(3, 10) * len(current))
         assert itemsets_of(by_tick[tick]) == frequent(current, threshold), tick
         for record in by_tick[tick]:
@@ -313,8 +331,9 @@ def test_max_len(capsys, tmp_path):
 
 def test_include_and_exclude_are_repeatable(capsys, tmp_path):
     path = write_fimi(tmp_path / "b.dat", BASKETS)
-    records, _ = run_json(capsys, path, "--min-count", 2, "--include", "bread", "--include", "milk",
-                          "--include", "jam")
+    records, _ = run_json(
+        capsys, path, "--min-count", 2, "--include", "bread", "--include", "milk", "--include", "jam"
+    )
     kept = [[i for i in b if i in {"bread", "milk", "jam"}] for b in BASKETS]
     assert itemsets_of(records) == frequent(kept, 2)
     # Support is still over all ten baskets, not only those holding included items.
@@ -352,8 +371,9 @@ def test_default_min_confidence_is_one_half(capsys, tmp_path):
 
 def test_min_lift_boundary_is_inclusive(capsys, tmp_path):
     path = write_fimi(tmp_path / "b.dat", BASKETS)
-    records, _ = run_json(capsys, path, "--min-count", 2, "--rules", "--min-confidence", 0,
-                          "--min-lift", "8/7")
+    records, _ = run_json(
+        capsys, path, "--min-count", 2, "--rules", "--min-confidence", 0, "--min-lift", "8/7"
+    )
     expected = {k: r for k, r in all_rules(BASKETS, 2).items() if r["lift"] >= Fraction(8, 7)}
     got = rules_of(records)
     assert_rules_match(got, expected)
@@ -363,20 +383,46 @@ def test_min_lift_boundary_is_inclusive(capsys, tmp_path):
 
 def test_rule_side_sizes(capsys, tmp_path):
     path = write_fimi(tmp_path / "b.dat", BASKETS)
-    records, _ = run_json(capsys, path, "--min-count", 1, "--rules", "--min-confidence", 0,
-                          "--max-antecedent", 2, "--max-consequent", 1)
+    records, _ = run_json(
+        capsys,
+        path,
+        "--min-count",
+        1,
+        "--rules",
+        "--min-confidence",
+        0,
+        "--max-antecedent",
+        2,
+        "--max-consequent",
+        1,
+    )
     expected = {(a, c): r for (a, c), r in all_rules(BASKETS, 1).items() if len(a) <= 2 and len(c) <= 1}
     assert_rules_match(rules_of(records), expected)
 
 
 def test_rule_side_items_are_repeatable(capsys, tmp_path):
     path = write_fimi(tmp_path / "b.dat", BASKETS)
-    records, _ = run_json(capsys, path, "--min-count", 2, "--rules", "--min-confidence", 0,
-                          "--antecedent-item", "bread", "--antecedent-item", "jam",
-                          "--consequent-item", "milk", "--consequent-item", "tea")
+    records, _ = run_json(
+        capsys,
+        path,
+        "--min-count",
+        2,
+        "--rules",
+        "--min-confidence",
+        0,
+        "--antecedent-item",
+        "bread",
+        "--antecedent-item",
+        "jam",
+        "--consequent-item",
+        "milk",
+        "--consequent-item",
+        "tea",
+    )
     left, right = {"bread", "jam"}, {"milk", "tea"}
-    expected = {(a, c): r for (a, c), r in all_rules(BASKETS, 2).items()
-                if set(a) <= left and set(c) <= right}
+    expected = {
+        (a, c): r for (a, c), r in all_rules(BASKETS, 2).items() if set(a) <= left and set(c) <= right
+    }
     assert expected
     assert_rules_match(rules_of(records), expected)
 
@@ -384,8 +430,19 @@ def test_rule_side_items_are_repeatable(capsys, tmp_path):
 @pytest.mark.parametrize("measure", ["confidence", "lift", "leverage", "conviction", "support", "count"])
 def test_max_rules_keeps_the_best_by_rank(capsys, tmp_path, measure):
     path = write_fimi(tmp_path / "b.dat", BASKETS)
-    records, _ = run_json(capsys, path, "--min-count", 2, "--rules", "--min-confidence", 0,
-                          "--max-rules", 4, "--rank-by", measure)
+    records, _ = run_json(
+        capsys,
+        path,
+        "--min-count",
+        2,
+        "--rules",
+        "--min-confidence",
+        0,
+        "--max-rules",
+        4,
+        "--rank-by",
+        measure,
+    )
     candidates = all_rules(BASKETS, 2)
 
     def rank(item):  # documented order: measure (higher first), then count, then names
@@ -397,10 +454,17 @@ def test_max_rules_keeps_the_best_by_rank(capsys, tmp_path, measure):
     assert_rules_match(rules_of(records), expected)
 
 
-@pytest.mark.parametrize("option", [
-    ["--min-lift", "1"], ["--max-antecedent", "1"], ["--max-consequent", "1"],
-    ["--antecedent-item", "bread"], ["--consequent-item", "milk"], ["--max-rules", "3"],
-])
+@pytest.mark.parametrize(
+    "option",
+    [
+        ["--min-lift", "1"],
+        ["--max-antecedent", "1"],
+        ["--max-consequent", "1"],
+        ["--antecedent-item", "bread"],
+        ["--consequent-item", "milk"],
+        ["--max-rules", "3"],
+    ],
+)
 def test_rule_options_without_rules_exit_2(capsys, tmp_path, option):
     code, out, err = run(capsys, write_fimi(tmp_path / "b.dat", BASKETS), *option)
     assert code == 2
@@ -431,7 +495,9 @@ def test_json_schema_and_order(capsys, tmp_path):
         assert set(r) == ITEMSET_KEYS
         assert r["items"] == sorted(r["items"])
         assert isinstance(r["count"], int) and isinstance(r["support"], float)
-    assert [(len(r["items"]), r["items"]) for r in itemsets] == sorted((len(r["items"]), r["items"]) for r in itemsets)
+    assert [(len(r["items"]), r["items"]) for r in itemsets] == sorted(
+        (len(r["items"]), r["items"]) for r in itemsets
+    )
     for r in rules:
         assert set(r) == RULE_KEYS
         assert r["antecedent"] == sorted(r["antecedent"]) and r["consequent"] == sorted(r["consequent"])
@@ -498,18 +564,20 @@ def test_oversized_baskets_truncated(capsys, tmp_path):
     # Cap 2, truncate: "c a a b d" keeps its first two distinct items, c and a; N stays 3.
     path = tmp_path / "b.dat"
     path.write_text("c a a b d\na b\nb\n")
-    records, err = run_json(capsys, path, "--min-count", 1, "--max-basket-items", 2,
-                            "--oversize", "truncate")
+    records, err = run_json(capsys, path, "--min-count", 1, "--max-basket-items", 2, "--oversize", "truncate")
     assert itemsets_of(records) == frequent([["c", "a"], ["a", "b"], ["b"]], 1)
     assert all(r["support"] == r["count"] / 3 for r in records)
     assert "1 oversized baskets truncated" in err
 
 
-@pytest.mark.parametrize("name, text", [
-    ("b.dat", "a b\n\n   \na\n"),
-    # the blank line is not a basket at all, so only the two empty item lists are counted
-    ("b.jsonl", '{"items": ["a"]}\n{"items": []}\n\n{"items": ["a", "b"]}\n{"items": []}\n'),
-])
+@pytest.mark.parametrize(
+    "name, text",
+    [
+        ("b.dat", "a b\n\n   \na\n"),
+        # the blank line is not a basket at all, so only the two empty item lists are counted
+        ("b.jsonl", '{"items": ["a"]}\n{"items": []}\n\n{"items": ["a", "b"]}\n{"items": []}\n'),
+    ],
+)
 def test_empty_baskets_are_skipped_and_reported(capsys, tmp_path, name, text):
     path = tmp_path / name
     path.write_text(text)
@@ -555,10 +623,20 @@ BAD_INPUTS = [
     ("bad ts text", ".jsonl", jsonl_with(b'{"items": ["a"], "ts": "yesterday"}'), 2, "bad event time"),
     ("bad ts bool", ".jsonl", jsonl_with(b'{"items": ["a"], "ts": true}'), 2, "bad event time"),
     ("bad ts nan", ".jsonl", jsonl_with(b'{"items": ["a"], "ts": NaN}'), 2, "bad event time"),
-    ("bad ts huge int", ".jsonl", jsonl_with(b'{"items": ["a"], "ts": ' + BIG_INT.encode() + b"}"), 2,
-     "bad event time"),
-    ("int over digit limit", ".jsonl", jsonl_with(b'{"items": ["a"], "n": ' + b"1" * 5000 + b"}"), 2,
-     "invalid JSON"),
+    (
+        "bad ts huge int",
+        ".jsonl",
+        jsonl_with(b'{"items": ["a"], "ts": ' + BIG_INT.encode() + b"}"),
+        2,
+        "bad event time",
+    ),
+    (
+        "int over digit limit",
+        ".jsonl",
+        jsonl_with(b'{"items": ["a"], "n": ' + b"1" * 5000 + b"}"),
+        2,
+        "invalid JSON",
+    ),
     ("json nested too deep", ".jsonl", jsonl_with(b"[" * 100_000 + b"]" * 100_000), 2, "invalid JSON"),
     ("csv field count", ".csv", csv_with(b"T2,x,extra"), 6, "wrong number of fields"),
     ("csv empty item", ".csv", csv_with(b"T2,"), 6, "empty field"),
@@ -568,8 +646,9 @@ BAD_INPUTS = [
 ]
 
 
-@pytest.mark.parametrize("suffix, content, line, reason",
-                         [case[1:] for case in BAD_INPUTS], ids=[case[0] for case in BAD_INPUTS])
+@pytest.mark.parametrize(
+    "suffix, content, line, reason", [case[1:] for case in BAD_INPUTS], ids=[case[0] for case in BAD_INPUTS]
+)
 def test_bad_input_fails_by_default(capsys, tmp_path, suffix, content, line, reason):
     path = tmp_path / f"b{suffix}"
     path.write_bytes(content)
@@ -581,8 +660,9 @@ def test_bad_input_fails_by_default(capsys, tmp_path, suffix, content, line, rea
     assert "--on-bad-input skip" in err
 
 
-@pytest.mark.parametrize("suffix, content, line, reason",
-                         [case[1:] for case in BAD_INPUTS], ids=[case[0] for case in BAD_INPUTS])
+@pytest.mark.parametrize(
+    "suffix, content, line, reason", [case[1:] for case in BAD_INPUTS], ids=[case[0] for case in BAD_INPUTS]
+)
 def test_bad_input_skipped_and_counted(capsys, tmp_path, suffix, content, line, reason):
     path = tmp_path / f"b{suffix}"
     path.write_bytes(content)
@@ -610,11 +690,20 @@ def test_csv_missing_column_is_fatal(capsys, tmp_path, mode):
     assert len(err.strip().splitlines()) == 1
 
 
-@pytest.mark.parametrize("option", [
-    ["--window", "0"], ["--every", "0"], ["--min-support", "1.5"], ["--min-support", "abc"],
-    ["--min-count", "0"], ["--min-lift", "-1"], ["--min-support", "0.1", "--min-count", "2"],
-    ["--format", "xml"], ["--oversize", "drop"],
-])
+@pytest.mark.parametrize(
+    "option",
+    [
+        ["--window", "0"],
+        ["--every", "0"],
+        ["--min-support", "1.5"],
+        ["--min-support", "abc"],
+        ["--min-count", "0"],
+        ["--min-lift", "-1"],
+        ["--min-support", "0.1", "--min-count", "2"],
+        ["--format", "xml"],
+        ["--oversize", "drop"],
+    ],
+)
 def test_bad_options_are_usage_errors(capsys, tmp_path, option):
     with pytest.raises(SystemExit) as exit_info:
         main(["mine", str(write_fimi(tmp_path / "b.dat", BASKETS)), *option])

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import random
 
-from stream_miner.cli import main
+from stream_miner.cli.main import main
 
 
 def write_stream(path, n=600, seed=4):
@@ -28,8 +28,19 @@ def run(capsys, *args):
 def test_incremental_and_full_remine_print_identical_ticks(tmp_path, capsys):
     data = tmp_path / "stream.dat"
     write_stream(data)
-    common = [str(data), "--window", "200", "--every", "37", "--min-support", "0.05", "--rules",
-              "--min-confidence", "0.3", "--json"]
+    common = [
+        str(data),
+        "--window",
+        "200",
+        "--every",
+        "37",
+        "--min-support",
+        "0.05",
+        "--rules",
+        "--min-confidence",
+        "0.3",
+        "--json",
+    ]
     incremental = run(capsys, "mine", *common)
     full = run(capsys, "mine", *common, "--full-remine")
     assert incremental == full
@@ -50,7 +61,17 @@ def test_full_remine_needs_every(tmp_path, capsys):
 def test_tick_timings_report_every_tick_of_both_modes(tmp_path, capsys):
     data = tmp_path / "stream.dat"
     write_stream(data)
-    common = [str(data), "--window", "200", "--every", "50", "--min-support", "0.05", "--json", "--tick-timings"]
+    common = [
+        str(data),
+        "--window",
+        "200",
+        "--every",
+        "50",
+        "--min-support",
+        "0.05",
+        "--json",
+        "--tick-timings",
+    ]
     for flag, mode in (([], "incremental"), (["--full-remine"], "full-remine")):
         assert main(["mine", *common, *flag]) == 0
         captured = capsys.readouterr()

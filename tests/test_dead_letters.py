@@ -1,4 +1,4 @@
-"""Dead-letter sinks: ``connectors.dead_letters``."""
+"""Dead-letter sinks: ``stream_miner.connectors.dead_letters``."""
 
 from __future__ import annotations
 
@@ -6,8 +6,8 @@ import base64
 import json
 from collections import Counter
 
-from connectors.dead_letters import RAW_TEXT_LIMIT, DeadLetterCounter, DeadLetterFile
-from connectors.messages import DeadLetter, MessageFormat, decode_message
+from stream_miner.connectors.dead_letters import RAW_TEXT_LIMIT, DeadLetterCounter, DeadLetterFile
+from stream_miner.decoding.messages import DeadLetter, MessageFormat, decode_message
 
 
 def letter(raw: bytes = b"\xff{oops", reason: str = "invalid UTF-8", **origin) -> DeadLetter:
@@ -27,8 +27,12 @@ def test_file_record_round_trip(tmp_path):
     [record] = lines(path)
     assert base64.b64decode(record.pop("raw_base64")) == raw
     assert record == {
-        "reason": "bad event time", "detail": "why", "source": "orders", "partition": 3,
-        "offset": 17, "raw_text": '{"items": ["café"], "ts": "x"}\ufffd\x00',
+        "reason": "bad event time",
+        "detail": "why",
+        "source": "orders",
+        "partition": 3,
+        "offset": 17,
+        "raw_text": '{"items": ["café"], "ts": "x"}\ufffd\x00',
     }
 
 
@@ -40,7 +44,11 @@ def test_file_record_from_decode_message(tmp_path):
         sink.write(found)
     [record] = lines(path)
     assert (record["reason"], record["source"], record["partition"], record["offset"]) == (
-        "empty basket", "stdin", None, None)
+        "empty basket",
+        "stdin",
+        None,
+        None,
+    )
     assert base64.b64decode(record["raw_base64"]) == raw
 
 
@@ -60,7 +68,11 @@ def test_file_counts_by_reason(tmp_path):
         sink.write(letter(reason=reason))
     sink.close()
     assert sink.counts == Counter({"invalid JSON": 2, "bad item": 1})
-    assert [r["reason"] for r in lines(tmp_path / "dead.jsonl")] == ["invalid JSON", "bad item", "invalid JSON"]
+    assert [r["reason"] for r in lines(tmp_path / "dead.jsonl")] == [
+        "invalid JSON",
+        "bad item",
+        "invalid JSON",
+    ]
 
 
 def test_each_write_is_flushed(tmp_path):

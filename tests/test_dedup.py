@@ -8,7 +8,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from stream_miner.dedup import RecentIds
+from stream_miner.runtime.dedup import RecentIds
 
 ids_st = st.sampled_from([f"b{i}" for i in range(12)])
 

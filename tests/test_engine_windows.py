@@ -11,10 +11,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
-from stream_miner.engine import WindowMiner
-from stream_miner.params import MiningParams
-from stream_miner.hygiene import BasketPolicy, Oversize, Verdict
-from stream_miner.window import CountWindow, TimeWindow
+from stream_miner.engine.hygiene import BasketPolicy, Oversize, Verdict
+from stream_miner.engine.miner import WindowMiner
+from stream_miner.engine.params import MiningParams
+from stream_miner.engine.window import CountWindow, TimeWindow
 
 names_st = st.lists(st.sampled_from("abcdefgh"), min_size=1, max_size=6)
 
@@ -35,7 +35,9 @@ def test_count_window_equals_brute_force_at_every_check(stream, size, batch, che
         seen.append(basket)
         if i in checks or i == len(stream):
             window = seen[-size:]
-            assert miner.mine(MiningParams(min_count=min_count)).itemsets == frequent_itemsets(window, min_count)
+            assert miner.mine(MiningParams(min_count=min_count)).itemsets == frequent_itemsets(
+                window, min_count
+            )
             miner.check_invariants()
 
 
@@ -134,8 +136,12 @@ def test_bad_configuration_is_refused_with_clear_errors():
 
 def test_item_order_follows_a_popularity_drift_and_results_stay_exact():
     rng = random.Random(8)
-    before = [rng.sample("abcdef", rng.randint(1, 4)) + rng.sample("uvwxyz", rng.randint(0, 1)) for _ in range(3000)]
-    after = [rng.sample("uvwxyz", rng.randint(1, 4)) + rng.sample("abcdef", rng.randint(0, 1)) for _ in range(3000)]
+    before = [
+        rng.sample("abcdef", rng.randint(1, 4)) + rng.sample("uvwxyz", rng.randint(0, 1)) for _ in range(3000)
+    ]
+    after = [
+        rng.sample("uvwxyz", rng.randint(1, 4)) + rng.sample("abcdef", rng.randint(0, 1)) for _ in range(3000)
+    ]
     miner = WindowMiner(CountWindow(1000), batch_size=100)
     for basket in before:
         miner.add(basket)

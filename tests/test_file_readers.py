@@ -1,4 +1,4 @@
-"""The file readers in ``connectors.files``: format detection, record parsing, event times."""
+"""The file readers in ``stream_miner.decoding.files``: format detection, record parsing, event times."""
 
 from __future__ import annotations
 
@@ -7,8 +7,8 @@ import math
 
 import pytest
 
-from connectors.files import InputError, detect_format, parse_event_time, read_records
-from connectors.records import BadRecord, RawBasket
+from stream_miner.decoding.files import InputError, detect_format, parse_event_time, read_records
+from stream_miner.decoding.records import BadRecord, RawBasket
 
 # 2024-03-01T12:00:00Z by hand: 2024-01-01T00:00:00Z is 1704067200 (19723 days), then
 # January (31) and February (29, leap year) add 60 days, then 12 hours:
@@ -25,11 +25,21 @@ def only_bad(found: list) -> list[tuple[int, str]]:
 
 
 # ----------------------------------------------------------------------- detection
-@pytest.mark.parametrize("path, fmt", [
-    ("b.dat", "fimi"), ("b.txt", "fimi"), ("b.fimi", "fimi"), ("b.basket", "fimi"),
-    ("data/B.DAT", "fimi"), ("b.jsonl", "jsonl"), ("b.ndjson", "jsonl"), ("x.csv/b.NDJSON", "jsonl"),
-    ("b.csv", "csv"), ("/tmp/run.jsonl/b.Csv", "csv"),
-])
+@pytest.mark.parametrize(
+    "path, fmt",
+    [
+        ("b.dat", "fimi"),
+        ("b.txt", "fimi"),
+        ("b.fimi", "fimi"),
+        ("b.basket", "fimi"),
+        ("data/B.DAT", "fimi"),
+        ("b.jsonl", "jsonl"),
+        ("b.ndjson", "jsonl"),
+        ("x.csv/b.NDJSON", "jsonl"),
+        ("b.csv", "csv"),
+        ("/tmp/run.jsonl/b.Csv", "csv"),
+    ],
+)
 def test_detect_format(path, fmt):
     assert detect_format(path) == fmt
 
@@ -59,7 +69,12 @@ def test_fimi_lines_and_numbers():
 
 def test_fimi_crlf_and_missing_final_newline():
     found = records(b"a b\r\nc\r\n\r\nd e", "fimi")
-    assert found == [RawBasket(["a", "b"], 1), RawBasket(["c"], 2), RawBasket([], 3), RawBasket(["d", "e"], 4)]
+    assert found == [
+        RawBasket(["a", "b"], 1),
+        RawBasket(["c"], 2),
+        RawBasket([], 3),
+        RawBasket(["d", "e"], 4),
+    ]
 
 
 def test_fimi_invalid_utf8_is_a_bad_record():
@@ -75,11 +90,13 @@ def test_fimi_invalid_utf8_is_a_bad_record():
 
 # ----------------------------------------------------------------------- jsonl
 def test_jsonl_fields_and_line_numbers():
-    data = (b'{"items": ["a"], "id": 7, "ts": 1.5}\n'
-            b"\n"
-            b"   \n"
-            b'{"id": "x", "items": ["b", "a", "b"], "ts": "2024-03-01T12:00:00Z"}\n'
-            b'{"items": [], "id": null, "extra": {"k": 1}}\n')
+    data = (
+        b'{"items": ["a"], "id": 7, "ts": 1.5}\n'
+        b"\n"
+        b"   \n"
+        b'{"id": "x", "items": ["b", "a", "b"], "ts": "2024-03-01T12:00:00Z"}\n'
+        b'{"items": [], "id": null, "extra": {"k": 1}}\n'
+    )
     assert records(data, "jsonl") == [
         RawBasket(["a"], line=1, id="7", ts=1.5),
         RawBasket(["b", "a", "b"], line=4, id="x", ts=float(NOON_2024_03_01)),
@@ -143,18 +160,24 @@ def test_csv_crlf_and_custom_columns():
 
 
 def test_csv_bad_rows_keep_their_line_and_do_not_break_grouping():
-    data = (b"transaction_id,item\n"  # 1
-            b"T1,a\n"  # 2
-            b"T1,b,extra\n"  # 3 wrong number of fields
-            b"T1,\n"  # 4 empty item
-            b"T1,\xff\n"  # 5 invalid UTF-8
-            b"T1,c\n"  # 6 still T1
-            b"T2,d\n"  # 7
-            b"T1,e\n"  # 8 T1 again, after T2
-            b"T3,f\n")  # 9
+    data = (
+        b"transaction_id,item\n"  # 1
+        b"T1,a\n"  # 2
+        b"T1,b,extra\n"  # 3 wrong number of fields
+        b"T1,\n"  # 4 empty item
+        b"T1,\xff\n"  # 5 invalid UTF-8
+        b"T1,c\n"  # 6 still T1
+        b"T2,d\n"  # 7
+        b"T1,e\n"  # 8 T1 again, after T2
+        b"T3,f\n"
+    )  # 9
     found = records(data, "csv")
-    assert only_bad(found) == [(3, "wrong number of fields"), (4, "empty field"), (5, "invalid UTF-8"),
-                               (8, "transaction not contiguous")]
+    assert only_bad(found) == [
+        (3, "wrong number of fields"),
+        (4, "empty field"),
+        (5, "invalid UTF-8"),
+        (8, "transaction not contiguous"),
+    ]
     assert [r for r in found if isinstance(r, RawBasket)] == [
         RawBasket(["a", "c"], line=2, id="T1"),
         RawBasket(["d"], line=7, id="T2"),
@@ -181,18 +204,21 @@ def test_csv_empty_stream_and_header_only():
 
 
 # ----------------------------------------------------------------------- event times
-@pytest.mark.parametrize("text, expected", [
-    ("2024-03-01T12:00:00Z", NOON_2024_03_01),
-    ("2024-03-01T12:00:00+00:00", NOON_2024_03_01),
-    ("2024-03-01T14:30:00+02:30", NOON_2024_03_01),
-    ("2024-03-01T07:00:00-05:00", NOON_2024_03_01),
-    ("2024-03-01T12:00:00", NOON_2024_03_01),  # naive: UTC
-    ("2024-03-01 12:00:00", NOON_2024_03_01),
-    ("2024-03-01T12:00:00.250Z", NOON_2024_03_01 + 0.25),
-    ("2024-03-01", NOON_2024_03_01 - 12 * 3_600),
-    ("1970-01-01T00:00:00Z", 0),
-    ("1969-12-31T23:00:00Z", -3_600),
-])
+@pytest.mark.parametrize(
+    "text, expected",
+    [
+        ("2024-03-01T12:00:00Z", NOON_2024_03_01),
+        ("2024-03-01T12:00:00+00:00", NOON_2024_03_01),
+        ("2024-03-01T14:30:00+02:30", NOON_2024_03_01),
+        ("2024-03-01T07:00:00-05:00", NOON_2024_03_01),
+        ("2024-03-01T12:00:00", NOON_2024_03_01),  # naive: UTC
+        ("2024-03-01 12:00:00", NOON_2024_03_01),
+        ("2024-03-01T12:00:00.250Z", NOON_2024_03_01 + 0.25),
+        ("2024-03-01", NOON_2024_03_01 - 12 * 3_600),
+        ("1970-01-01T00:00:00Z", 0),
+        ("1969-12-31T23:00:00Z", -3_600),
+    ],
+)
 def test_parse_event_time_iso(text, expected):
     assert parse_event_time(text) == expected
 
@@ -203,10 +229,25 @@ def test_parse_event_time_epoch(value):
     assert type(result) is float and result == value
 
 
-@pytest.mark.parametrize("value", [
-    True, False, None, [1], {"ts": 1}, "", "yesterday", "2024-13-01", "2024-03-01T25:00:00",
-    math.nan, math.inf, -math.inf, 10**400,
-], ids=lambda value: "huge int" if value == 10**400 else repr(value))
+@pytest.mark.parametrize(
+    "value",
+    [
+        True,
+        False,
+        None,
+        [1],
+        {"ts": 1},
+        "",
+        "yesterday",
+        "2024-13-01",
+        "2024-03-01T25:00:00",
+        math.nan,
+        math.inf,
+        -math.inf,
+        10**400,
+    ],
+    ids=lambda value: "huge int" if value == 10**400 else repr(value),
+)
 def test_parse_event_time_rejects(value):
     with pytest.raises(ValueError):
         parse_event_time(value)

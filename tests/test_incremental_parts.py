@@ -13,13 +13,19 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
-from stream_miner import bitmaps, pair_table
-from stream_miner.baskets import BasketArrays
-from stream_miner.bitmaps import count_rows, item_bitmaps, sign_bitmap, window_counts
-from stream_miner.incremental import BorderTracker
-from stream_miner.itemset_rows import RowIndex, empty_rows, join_candidates, match_rows, unique_rows
-from stream_miner.kernels import compiled, rows_holding
-from stream_miner.pair_table import FIRST_CAPACITY, PairTable
+from stream_miner.engine.baskets import BasketArrays
+from stream_miner.engine.incremental import bitmaps, pair_table
+from stream_miner.engine.incremental.bitmaps import count_rows, item_bitmaps, sign_bitmap, window_counts
+from stream_miner.engine.incremental.itemset_rows import (
+    RowIndex,
+    empty_rows,
+    join_candidates,
+    match_rows,
+    unique_rows,
+)
+from stream_miner.engine.incremental.kernels import compiled, rows_holding
+from stream_miner.engine.incremental.pair_table import FIRST_CAPACITY, PairTable
+from stream_miner.engine.incremental.tracker import BorderTracker
 
 SETTINGS = settings(max_examples=100, deadline=None)
 
@@ -39,7 +45,9 @@ def dict_lookup(reference: np.ndarray, query: np.ndarray) -> list[int]:
 
 def source_of(window: list[list[int]]):
     """A window source: the baskets of ``window`` holding any flagged item."""
-    return lambda flags: BasketArrays.from_lists([b for b in window if any(i < flags.size and flags[i] for i in b)])
+    return lambda flags: BasketArrays.from_lists(
+        [b for b in window if any(i < flags.size and flags[i] for i in b)]
+    )
 
 
 def holds(basket, itemset) -> bool:
@@ -103,7 +111,9 @@ def test_match_rows_fallback_for_wide_rows_of_many_items_equals_dict_lookup(data
     reference_rows += data.draw(st.lists(st.sampled_from(reference_rows), max_size=5))  # repeats
     reference = as_matrix(reference_rows, width)
     query_rows = data.draw(st.lists(st.sampled_from(reference_rows), max_size=10))
-    query_rows += data.draw(st.lists(st.lists(st.integers(0, 70), min_size=width, max_size=width), max_size=10))
+    query_rows += data.draw(
+        st.lists(st.lists(st.integers(0, 70), min_size=width, max_size=width), max_size=10)
+    )
     query = as_matrix(data.draw(st.permutations(query_rows)), width)
     index = RowIndex(reference)
     assert not index.packs
@@ -135,7 +145,11 @@ def apriori_gen(frequent: list[tuple[int, ...]]) -> list[list[int]]:
 
 
 @SETTINGS
-@given(st.integers(1, 4).flatmap(lambda k: st.tuples(st.just(k), st.lists(st.booleans(), min_size=35, max_size=35))))
+@given(
+    st.integers(1, 4).flatmap(
+        lambda k: st.tuples(st.just(k), st.lists(st.booleans(), min_size=35, max_size=35))
+    )
+)
 def test_join_candidates_equals_brute_force_apriori_gen(case):
     """join_candidates on k-itemsets (k = 1..4): exactly the Apriori-gen candidates, in order."""
     k, mask = case
@@ -196,7 +210,9 @@ def check_bitmap_counts(baskets, slot_of, n_slots, rows, signs):
     itemsets = [[item_at.get(s, -1) for s in row] for row in rows.tolist()]
     containing = [[r for r, b in enumerate(baskets) if all(i in b for i in items)] for items in itemsets]
     assert count_rows(rows, bits).tolist() == [len(c) for c in containing]
-    assert count_rows(rows, bits, plus).tolist() == [sum(1 if signs[r] > 0 else -1 for r in c) for c in containing]
+    assert count_rows(rows, bits, plus).tolist() == [
+        sum(1 if signs[r] > 0 else -1 for r in c) for c in containing
+    ]
 
 
 @SETTINGS
@@ -213,13 +229,17 @@ def window_itemsets(draw):
     the true ones or arbitrary ones (any item of an itemset is a valid anchor)."""
     baskets = draw(baskets_st)
     k = draw(st.integers(1, 4))
-    rows = draw(st.lists(st.lists(st.integers(0, 17), min_size=k, max_size=k, unique=True).map(sorted), max_size=25))
+    rows = draw(
+        st.lists(st.lists(st.integers(0, 17), min_size=k, max_size=k, unique=True).map(sorted), max_size=25)
+    )
     size = max([18] + [i + 1 for b in baskets for i in b])
     if draw(st.booleans()):
         items = [i for b in baskets for i in b]
         item_counts = np.bincount(np.array(items, dtype=np.int64), minlength=size)
     else:
-        item_counts = np.array(draw(st.lists(st.integers(0, 50), min_size=size, max_size=size)), dtype=np.int64)
+        item_counts = np.array(
+            draw(st.lists(st.integers(0, 50), min_size=size, max_size=size)), dtype=np.int64
+        )
     return baskets, as_matrix(rows, k), item_counts
 
 
@@ -252,7 +272,8 @@ def test_counts_stay_exact_in_tiny_chunks(counted, slotted):
 @SETTINGS
 @given(
     st.lists(
-        st.lists(st.sampled_from([0, 1, 2, 3, 5, 8, 13, 21, 40, 300, 65535]), unique=True, max_size=6), max_size=40
+        st.lists(st.sampled_from([0, 1, 2, 3, 5, 8, 13, 21, 40, 300, 65535]), unique=True, max_size=6),
+        max_size=40,
     ),
     st.data(),
 )
@@ -260,7 +281,9 @@ def test_rows_holding_equals_python_loop(dtype, baskets, data):
     """rows_holding: indices of the live baskets holding a wanted item; items past the end
     of ``wanted`` are not wanted."""
     batch = BasketArrays.from_lists(baskets)
-    alive = np.array(data.draw(st.lists(st.booleans(), min_size=len(baskets), max_size=len(baskets))), dtype=bool)
+    alive = np.array(
+        data.draw(st.lists(st.booleans(), min_size=len(baskets), max_size=len(baskets))), dtype=bool
+    )
     largest = max((i for b in baskets for i in b), default=0)
     size = data.draw(st.integers(0, min(largest, 50)))  # shorter than the largest id
     wanted = np.array(data.draw(st.lists(st.booleans(), min_size=size, max_size=size)), dtype=bool)
@@ -283,11 +306,16 @@ def pair_table_plans(draw):
         if draw(st.booleans()):
             length = draw(st.integers(0, n_items))
             plan.append(
-                ("watch", np.array(draw(st.lists(st.booleans(), min_size=length, max_size=length)), dtype=bool))
+                (
+                    "watch",
+                    np.array(draw(st.lists(st.booleans(), min_size=length, max_size=length)), dtype=bool),
+                )
             )
         else:
             entering = draw(st.lists(basket, max_size=12))
-            picks = draw(st.lists(st.integers(0, 10**6), max_size=min(stored + len(entering), 6), unique=True))
+            picks = draw(
+                st.lists(st.integers(0, 10**6), max_size=min(stored + len(entering), 6), unique=True)
+            )
             order = draw(st.permutations(range(len(entering) + len(picks))))
             plan.append(("add", entering, picks, order, draw(st.integers(1, 4))))
             stored += len(entering) - len({p % max(1, stored + len(entering)) for p in picks})
@@ -313,7 +341,10 @@ def check_table(table: PairTable, window, watched: set[int], data):
     entering = sorted(data.draw(st.sets(st.sampled_from(sorted(watched)))) if watched else set())
     with_rows = table.pairs_with(np.array(entering, dtype=np.int64), mask, at_least).tolist()
     expected = {
-        tuple(sorted((e, o))) for e in entering for o in subset if e != o and truth[tuple(sorted((e, o)))] >= at_least
+        tuple(sorted((e, o)))
+        for e in entering
+        for o in subset
+        if e != o and truth[tuple(sorted((e, o)))] >= at_least
     }
     assert {tuple(r) for r in with_rows} == expected
     assert all(a < b for a, b in with_rows) and is_lexicographic(with_rows)
@@ -331,7 +362,9 @@ def test_pair_table_stays_exact_through_watches_and_window_changes(plan, data):
     for step in steps:
         if step[0] == "watch":
             wanted = step[1]
-            item_counts = np.bincount(np.array([i for b in window for i in b], dtype=np.int64), minlength=wanted.size)
+            item_counts = np.bincount(
+                np.array([i for b in window for i in b], dtype=np.int64), minlength=wanted.size
+            )
             table.watch(wanted, source_of(window), item_counts)
             watched = set(np.flatnonzero(wanted).tolist())
         else:
@@ -396,7 +429,9 @@ def tracker_plans(draw):
     for _ in range(draw(st.integers(1, 10))):
         entering = draw(st.lists(basket, max_size=8))
         picks = draw(st.lists(st.integers(0, 10**6), max_size=min(stored + len(entering), 6), unique=True))
-        ticks.append((entering, picks, draw(st.booleans()), draw(st.one_of(st.integers(1, 3), st.integers(1, 8)))))
+        ticks.append(
+            (entering, picks, draw(st.booleans()), draw(st.one_of(st.integers(1, 3), st.integers(1, 8))))
+        )
         stored += len(entering) - len({p % max(1, stored + len(entering)) for p in picks})
     return draw(st.sampled_from([None, 1, 2, 3])), draw(st.sampled_from([0.0, 0.25, 0.5])), allowed, ticks
 
@@ -466,7 +501,9 @@ class WatchModel:
     def step(self, window, tick):
         step_window(self.tracker, window, tick)
         self.seen = max([self.seen] + [i + 1 for b in tick[0] for i in b])
-        self.counts = np.bincount(np.array([i for b in window for i in b], dtype=np.int64), minlength=self.seen)
+        self.counts = np.bincount(
+            np.array([i for b in window for i in b], dtype=np.int64), minlength=self.seen
+        )
         self.allowed_full = np.zeros(self.seen, dtype=bool)
         self.allowed_full[: self.allowed.size] = self.allowed
         if self.watched is not None and self.watched.size < self.seen:
@@ -493,7 +530,9 @@ class WatchModel:
 
     def smallest_fitting_threshold(self, window) -> int:
         """The smallest threshold whose watch list from a fresh table fits."""
-        return next(t for t in range(1, 4 * len(window) + 8) if self.wanted(t, None).sum() <= self.max_watched)
+        return next(
+            t for t in range(1, 4 * len(window) + 8) if self.wanted(t, None).sum() <= self.max_watched
+        )
 
 
 @settings(max_examples=150, deadline=None)

@@ -10,10 +10,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
-from stream_miner.engine import WindowMiner
-from stream_miner.params import MiningParams
-from stream_miner.rules import RuleFilter
-from stream_miner.window import CountWindow, TimeWindow
+from stream_miner.engine.miner import WindowMiner
+from stream_miner.engine.params import MiningParams
+from stream_miner.engine.rules import RuleFilter
+from stream_miner.engine.window import CountWindow, TimeWindow
 
 names_st = st.lists(st.sampled_from("abcdefghijk"), min_size=1, max_size=7)
 params_st = st.builds(
@@ -27,7 +27,8 @@ params_st = st.builds(
 
 def restricted(itemsets, params):
     return {
-        k: v for k, v in itemsets.items()
+        k: v
+        for k, v in itemsets.items()
         if not set(k) & params.exclude and (params.max_len is None or len(k) <= params.max_len)
     }
 
@@ -36,7 +37,9 @@ def check_tick(tick, full, window, params, previous):
     min_count = max(1, math.ceil(params.min_support * len(window)))
     expected = restricted(frequent_itemsets(window, min_count), params)
     assert tick.result.itemsets == full.itemsets == expected
-    assert {full.rule_names(r): r for r in full.rules} == {tick.result.rule_names(r): r for r in tick.result.rules}
+    assert {full.rule_names(r): r for r in full.rules} == {
+        tick.result.rule_names(r): r for r in tick.result.rules
+    }
     old = {} if previous is None else previous.itemsets
     new = tick.result.itemsets
     assert tick.delta.added == {k: v for k, v in new.items() if k not in old}

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from connectors.files import InputError
-from connectors.kafka_source import client_options, parse_kafka_url
+from stream_miner.connectors.kafka_source import client_options, parse_kafka_url
+from stream_miner.decoding.files import InputError
 
 
 def test_kafka_urls():
@@ -17,10 +17,22 @@ def test_kafka_urls():
 
 def test_options_are_typed_and_secrets_come_from_the_environment(monkeypatch):
     monkeypatch.setenv("CHECKOUT_PASSWORD", "s3cret=x")
-    options = client_options(["max_poll_records=50", "check_crcs=false", "security_protocol=SASL_SSL",
-                              "sasl_plain_password=env:CHECKOUT_PASSWORD", "session.timeout.ms=6000"])
-    assert options == {"max_poll_records": 50, "check_crcs": False, "security_protocol": "SASL_SSL",
-                       "sasl_plain_password": "s3cret=x", "session_timeout_ms": 6000}
+    options = client_options(
+        [
+            "max_poll_records=50",
+            "check_crcs=false",
+            "security_protocol=SASL_SSL",
+            "sasl_plain_password=env:CHECKOUT_PASSWORD",
+            "session.timeout.ms=6000",
+        ]
+    )
+    assert options == {
+        "max_poll_records": 50,
+        "check_crcs": False,
+        "security_protocol": "SASL_SSL",
+        "sasl_plain_password": "s3cret=x",
+        "session_timeout_ms": 6000,
+    }
 
 
 def test_bad_options_are_refused_without_echoing_values(monkeypatch):

@@ -30,15 +30,37 @@ def checkouts(n, seed=0, prefix="k"):
 
     rnd = random.Random(seed)
     goods = [f"g{i}" for i in range(10)]
-    return [{"id": f"{prefix}{i}", "items": sorted(set(rnd.sample(goods[:4], rnd.randint(1, 3))
-                                                        + rnd.sample(goods, rnd.randint(0, 2))))}
-            for i in range(n)]
+    return [
+        {
+            "id": f"{prefix}{i}",
+            "items": sorted(
+                set(rnd.sample(goods[:4], rnd.randint(1, 3)) + rnd.sample(goods, rnd.randint(0, 2)))
+            ),
+        }
+        for i in range(n)
+    ]
 
 
 def start_run(broker, topic, group, workdir, *extra):
-    command = [sys.executable, "-m", "stream_miner.cli", "run", "--source", f"kafka://{broker.address}/{topic}",
-               "--group", group, "--min-count", "1", "--checkpoint-dir", str(workdir / "ck"),
-               "--checkpoint-interval", "0.2s", "--snapshot-out", str(workdir / "snap.jsonl"), *extra]
+    command = [
+        sys.executable,
+        "-m",
+        "stream_miner",
+        "run",
+        "--source",
+        f"kafka://{broker.address}/{topic}",
+        "--group",
+        group,
+        "--min-count",
+        "1",
+        "--checkpoint-dir",
+        str(workdir / "ck"),
+        "--checkpoint-interval",
+        "0.2s",
+        "--snapshot-out",
+        str(workdir / "snap.jsonl"),
+        *extra,
+    ]
     for option in GROUP_OPTIONS:
         command += ["--kafka-option", option]
     workdir.mkdir(exist_ok=True)
@@ -79,26 +101,51 @@ def test_several_partitions_and_bad_messages(broker, tmp_path):
     baskets = checkouts(600, seed=1)
     bad = [b"not json", b'{"items": "tea"}']
     broker.produce("multi", [*baskets, *bad], partition_of=lambda n: n % 3)
-    run = start_run(broker, "multi", "g-multi", tmp_path, "--window-size", "5000", "--tick-every", "25",
-                    "--dead-letter-out", str(tmp_path / "dead.jsonl"))
-    assert wait_for(lambda: consumed(tmp_path) == 600 and (tmp_path / "dead.jsonl").exists()
-                    and len((tmp_path / "dead.jsonl").read_text().splitlines()) == 2)
+    run = start_run(
+        broker,
+        "multi",
+        "g-multi",
+        tmp_path,
+        "--window-size",
+        "5000",
+        "--tick-every",
+        "25",
+        "--dead-letter-out",
+        str(tmp_path / "dead.jsonl"),
+    )
+    assert wait_for(
+        lambda: (
+            consumed(tmp_path) == 600
+            and (tmp_path / "dead.jsonl").exists()
+            and len((tmp_path / "dead.jsonl").read_text().splitlines()) == 2
+        )
+    )
     time.sleep(0.5)
     err = stop(run)
     header, itemsets = snapshot(tmp_path)
     assert header["consumed"] == 600
-    assert itemsets == {tuple(sorted(k)): v for k, v in frequent_itemsets([b["items"] for b in baskets], 1).items()}
+    assert itemsets == {
+        tuple(sorted(k)): v for k, v in frequent_itemsets([b["items"] for b in baskets], 1).items()
+    }
     letters = [json.loads(line) for line in (tmp_path / "dead.jsonl").read_text().splitlines()]
     assert sorted(letter["reason"] for letter in letters) == ["invalid JSON", "items not a list"]
-    assert {(letter["partition"], letter["source"]) for letter in letters} == {(0, "kafka:multi"), (1, "kafka:multi")}
+    assert {(letter["partition"], letter["source"]) for letter in letters} == {
+        (0, "kafka:multi"),
+        (1, "kafka:multi"),
+    }
     assert "dead letters: invalid JSON 1, items not a list 1" in err
 
 
 def test_sigkill_mid_stream_then_restart_equals_an_uninterrupted_run(broker, tmp_path):
     broker.create_topic("crash", 1)
     baskets = checkouts(4000, seed=2, prefix="c")
-    producer = threading.Thread(target=lambda: [broker.produce("crash", baskets[i:i + 200])
-                                                for i in range(0, 4000, 200) if time.sleep(0.1) is None])
+    producer = threading.Thread(
+        target=lambda: [
+            broker.produce("crash", baskets[i : i + 200])
+            for i in range(0, 4000, 200)
+            if time.sleep(0.1) is None
+        ]
+    )
     producer.start()
     window = ["--window-size", "700", "--tick-every", "20", "--kafka-option", "max_poll_records=50"]
     victim = start_run(broker, "crash", "g-crash", tmp_path, *window)
@@ -168,13 +215,24 @@ def test_dead_letters_to_a_kafka_topic_keep_raw_bytes_and_reasons(broker, tmp_pa
     broker.create_topic("dead", 1)
     bad = [b"\xff\xfe not utf-8", b'{"items": [1, 2]}']
     broker.produce("with-bad", [*checkouts(50, seed=6), *bad])
-    run = start_run(broker, "with-bad", "g-dead", tmp_path, "--window-size", "100", "--tick-every", "10",
-                    "--dead-letter-out", f"kafka://{broker.address}/dead")
+    run = start_run(
+        broker,
+        "with-bad",
+        "g-dead",
+        tmp_path,
+        "--window-size",
+        "100",
+        "--tick-every",
+        "10",
+        "--dead-letter-out",
+        f"kafka://{broker.address}/dead",
+    )
     assert wait_for(lambda: consumed(tmp_path) == 50)
     time.sleep(1)
     stop(run)
-    reader = KafkaConsumer("dead", bootstrap_servers=broker.address, auto_offset_reset="earliest",
-                           consumer_timeout_ms=5000)
+    reader = KafkaConsumer(
+        "dead", bootstrap_servers=broker.address, auto_offset_reset="earliest", consumer_timeout_ms=5000
+    )
     letters = [(m.value, dict(m.headers)) for m in reader]
     reader.close()
     assert [value for value, _ in letters] == bad
@@ -187,13 +245,34 @@ def test_a_tick_longer_than_max_poll_interval_keeps_the_group_membership(broker,
     from simulations.quest import quest_baskets
 
     broker.create_topic("slow", 1)
-    first = [{"id": f"s{i}", "items": [str(x) for x in b]} for i, b in enumerate(quest_baskets(60000, seed=9))]
+    first = [
+        {"id": f"s{i}", "items": [str(x) for x in b]} for i, b in enumerate(quest_baskets(60000, seed=9))
+    ]
     broker.produce("slow", first)
-    command = [sys.executable, "-m", "stream_miner.cli", "run", "--source", f"kafka://{broker.address}/slow",
-               "--group", "g-slow", "--window-size", "60000", "--tick-every", "60000", "--min-count", "60",
-               "--snapshot-out", str(tmp_path / "snap.jsonl"),
-               "--kafka-option", "max_poll_interval_ms=1000", "--kafka-option", "session_timeout_ms=6000",
-               "--kafka-option", "heartbeat_interval_ms=300"]
+    command = [
+        sys.executable,
+        "-m",
+        "stream_miner",
+        "run",
+        "--source",
+        f"kafka://{broker.address}/slow",
+        "--group",
+        "g-slow",
+        "--window-size",
+        "60000",
+        "--tick-every",
+        "60000",
+        "--min-count",
+        "60",
+        "--snapshot-out",
+        str(tmp_path / "snap.jsonl"),
+        "--kafka-option",
+        "max_poll_interval_ms=1000",
+        "--kafka-option",
+        "session_timeout_ms=6000",
+        "--kafka-option",
+        "heartbeat_interval_ms=300",
+    ]
     run = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     assert wait_for(lambda: consumed(tmp_path) == 60000, seconds=120)  # after a first tick of seconds
     later = [{"id": f"t{i}", "items": ["late-comer"]} for i in range(60)]

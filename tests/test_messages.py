@@ -8,8 +8,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from connectors import messages
-from connectors.messages import (
+from stream_miner.decoding import messages
+from stream_miner.decoding.messages import (
     REASONS,
     TIME_UNITS,
     Basket,
@@ -110,8 +110,9 @@ def test_every_reason_has_a_bad_message():
 def test_dead_letter_carries_raw_bytes_and_origin():
     raw = b'{"items": 3}'
     found = decode_message(raw, DEFAULT, source="orders", partition=2, offset=41)
-    assert found == DeadLetter(raw=raw, reason="items not a list", detail=found.detail,
-                               source="orders", partition=2, offset=41)
+    assert found == DeadLetter(
+        raw=raw, reason="items not a list", detail=found.detail, source="orders", partition=2, offset=41
+    )
     assert '"items"' in found.detail and "integer" in found.detail
 
 
@@ -148,12 +149,16 @@ def test_bad_item_wins_over_too_large():
 
 
 @pytest.mark.parametrize("depth", [10, 500, 900, 990, 999, 1000, 1001, 2000])
-@pytest.mark.parametrize("template, reasons", [
-    ('{"items": ["a"], "ts": %s}', {"bad event time", "invalid JSON"}),
-    ('{"items": ["a"], "id": %s}', {"bad id", "invalid JSON"}),
-    ('{"items": [%s]}', {"bad item", "invalid JSON"}),
-    ("%s", {"not a JSON object", "invalid JSON"}),
-], ids=["ts", "id", "item", "top"])
+@pytest.mark.parametrize(
+    "template, reasons",
+    [
+        ('{"items": ["a"], "ts": %s}', {"bad event time", "invalid JSON"}),
+        ('{"items": ["a"], "id": %s}', {"bad id", "invalid JSON"}),
+        ('{"items": [%s]}', {"bad item", "invalid JSON"}),
+        ("%s", {"not a JSON object", "invalid JSON"}),
+    ],
+    ids=["ts", "id", "item", "top"],
+)
 def test_deep_nesting_never_raises(template, reasons, depth):
     raw = (template % ("[" * depth + "]" * depth)).encode()
     assert reason_of(raw) in reasons
@@ -162,13 +167,15 @@ def test_deep_nesting_never_raises(template, reasons, depth):
 # ----------------------------------------------------------------------- happy paths
 def test_string_items():
     assert decode({"id": "t1", "ts": NOON, "items": ["milk", "bread"]}) == Basket(
-        items=["milk", "bread"], id="t1", ts=NOON, segment=None)
+        items=["milk", "bread"], id="t1", ts=NOON, segment=None
+    )
 
 
 def test_missing_or_null_optional_fields():
     assert decode({"items": ["a"]}) == Basket(items=["a"], id=None, ts=None, segment=None)
     assert decode({"items": ["a"], "id": None, "ts": None, "store": None}, STORE) == Basket(
-        items=["a"], id=None, ts=None, segment=None)
+        items=["a"], id=None, ts=None, segment=None
+    )
 
 
 def test_repeated_items_count_once_in_first_seen_order():
@@ -193,8 +200,14 @@ def test_quantities_do_not_matter():
 
 def test_custom_field_names():
     fmt = MessageFormat(id_field="order_id", time_field="event_time", items_field="lines")
-    message = {"order_id": "o9", "event_time": NOON, "lines": ["x", "y"],
-               "id": "other", "ts": 0, "items": ["other"]}
+    message = {
+        "order_id": "o9",
+        "event_time": NOON,
+        "lines": ["x", "y"],
+        "id": "other",
+        "ts": 0,
+        "items": ["other"],
+    }
     assert decode(message, fmt) == Basket(items=["x", "y"], id="o9", ts=NOON, segment=None)
 
 
@@ -207,21 +220,25 @@ def test_segment_ignored_when_not_configured():
     assert basket_of({"items": ["a"], "store": 7}).segment is None
 
 
-@pytest.mark.parametrize("ts, unit, expected", [
-    (NOON, "s", NOON),
-    (NOON + 0.25, "s", NOON + 0.25),
-    (0, "s", 0.0),
-    (-86_400, "s", -86_400.0),
-    (NOON * 1000, "ms", NOON),
-    (NOON * 1000 + 250, "ms", NOON + 0.25),
-    (NOON, "ms", NOON / 1000),  # the unit is forced, not guessed
-    (NOON, "auto", NOON),
-    (NOON * 1000, "auto", NOON),
-    (NOON * 1000 + 250, "auto", NOON + 0.25),
-    (100_000_000_000, "auto", 100_000_000_000.0),  # 1e11 itself is seconds
-    (100_000_000_001, "auto", 100_000_000.001),  # above 1e11: milliseconds
-    (1e14, "s", None),  # out of range as seconds
-], ids=lambda v: str(v))
+@pytest.mark.parametrize(
+    "ts, unit, expected",
+    [
+        (NOON, "s", NOON),
+        (NOON + 0.25, "s", NOON + 0.25),
+        (0, "s", 0.0),
+        (-86_400, "s", -86_400.0),
+        (NOON * 1000, "ms", NOON),
+        (NOON * 1000 + 250, "ms", NOON + 0.25),
+        (NOON, "ms", NOON / 1000),  # the unit is forced, not guessed
+        (NOON, "auto", NOON),
+        (NOON * 1000, "auto", NOON),
+        (NOON * 1000 + 250, "auto", NOON + 0.25),
+        (100_000_000_000, "auto", 100_000_000_000.0),  # 1e11 itself is seconds
+        (100_000_000_001, "auto", 100_000_000.001),  # above 1e11: milliseconds
+        (1e14, "s", None),  # out of range as seconds
+    ],
+    ids=lambda v: str(v),
+)
 def test_numeric_event_times(ts, unit, expected):
     message = {"items": ["a"], "ts": ts}
     fmt = MessageFormat(time_unit=unit)
@@ -231,21 +248,32 @@ def test_numeric_event_times(ts, unit, expected):
         assert basket_of(message, fmt).ts == pytest.approx(expected, abs=1e-6)
 
 
-@pytest.mark.parametrize("text", [
-    "2024-03-01T12:00:00Z",
-    "2024-03-01T14:00:00+02:00",
-    "2024-03-01T07:00:00-05:00",
-    "2024-03-01T12:00:00",  # naive means UTC
-    "2024-03-01T12:00:00.000+00:00",
-])
+@pytest.mark.parametrize(
+    "text",
+    [
+        "2024-03-01T12:00:00Z",
+        "2024-03-01T14:00:00+02:00",
+        "2024-03-01T07:00:00-05:00",
+        "2024-03-01T12:00:00",  # naive means UTC
+        "2024-03-01T12:00:00.000+00:00",
+    ],
+)
 @pytest.mark.parametrize("unit", TIME_UNITS)
 def test_iso_event_times(text, unit):
     assert basket_of({"items": ["a"], "ts": text}, MessageFormat(time_unit=unit)).ts == NOON
 
 
-@pytest.mark.parametrize("basket_id, expected", [
-    (42, "42"), (0, "0"), (-7, "-7"), (2**70, str(2**70)), ("t-1", "t-1"), ("", ""),
-])
+@pytest.mark.parametrize(
+    "basket_id, expected",
+    [
+        (42, "42"),
+        (0, "0"),
+        (-7, "-7"),
+        (2**70, str(2**70)),
+        ("t-1", "t-1"),
+        ("", ""),
+    ],
+)
 def test_ids(basket_id, expected):
     assert basket_of({"items": ["a"], "id": basket_id}).id == expected
 
@@ -262,20 +290,35 @@ def test_format_is_validated():
 
 
 # ----------------------------------------------------------------------- never raises
-JSON_SCALARS = (st.none() | st.booleans() | st.integers() | st.floats()
-                | st.text(max_size=20) | st.sampled_from(["2024-03-01T12:00:00Z", "2024-03-01"]))
+JSON_SCALARS = (
+    st.none()
+    | st.booleans()
+    | st.integers()
+    | st.floats()
+    | st.text(max_size=20)
+    | st.sampled_from(["2024-03-01T12:00:00Z", "2024-03-01"])
+)
 JSON_VALUES = st.recursive(
     JSON_SCALARS,
     lambda inner: st.lists(inner, max_size=4) | st.dictionaries(st.text(max_size=5), inner, max_size=4),
     max_leaves=12,
 )
-ITEMS = st.lists(st.text(max_size=3) | st.fixed_dictionaries({"sku": JSON_VALUES}) | JSON_VALUES,
-                 max_size=6)
-MESSAGES = JSON_VALUES | st.fixed_dictionaries({}, optional={
-    "items": ITEMS | JSON_VALUES, "id": JSON_VALUES, "ts": JSON_VALUES, "store": JSON_VALUES,
-})
-FORMATS = st.builds(MessageFormat, segment_field=st.sampled_from([None, "store"]),
-                    time_unit=st.sampled_from(TIME_UNITS), max_items=st.integers(1, 5))
+ITEMS = st.lists(st.text(max_size=3) | st.fixed_dictionaries({"sku": JSON_VALUES}) | JSON_VALUES, max_size=6)
+MESSAGES = JSON_VALUES | st.fixed_dictionaries(
+    {},
+    optional={
+        "items": ITEMS | JSON_VALUES,
+        "id": JSON_VALUES,
+        "ts": JSON_VALUES,
+        "store": JSON_VALUES,
+    },
+)
+FORMATS = st.builds(
+    MessageFormat,
+    segment_field=st.sampled_from([None, "store"]),
+    time_unit=st.sampled_from(TIME_UNITS),
+    max_items=st.integers(1, 5),
+)
 
 
 def check_outcome(raw: bytes, fmt: MessageFormat) -> Basket | DeadLetter:

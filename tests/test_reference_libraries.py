@@ -13,12 +13,12 @@ import pytest
 from mlxtend.frequent_patterns import association_rules, fpgrowth
 from mlxtend.preprocessing import TransactionEncoder
 
-from stream_miner.engine import WindowMiner
-from stream_miner.params import MiningParams
-from stream_miner.rules import RuleFilter
-from stream_miner.window import CountWindow
 from simulations.heavy_tailed import heavy_tailed_baskets
 from simulations.quest import quest_baskets
+from stream_miner.engine.miner import WindowMiner
+from stream_miner.engine.params import MiningParams
+from stream_miner.engine.rules import RuleFilter
+from stream_miner.engine.window import CountWindow
 
 DATASETS = {
     "quest": lambda: quest_baskets(4000, n_items=300, n_patterns=200, seed=11),
@@ -37,7 +37,9 @@ def mlxtend_itemsets(baskets, min_count):
     frame = pd.DataFrame(encoder.fit(baskets).transform(baskets), columns=encoder.columns_)
     # (c - 0.5) / N makes mlxtend's float comparison select exactly count >= c
     found = fpgrowth(frame, min_support=(min_count - 0.5) / len(baskets), use_colnames=True)
-    return found, {tuple(sorted(s)): round(p * len(baskets)) for s, p in zip(found.itemsets, found.support)}
+    return found, {
+        tuple(sorted(s)): round(p * len(baskets)) for s, p in zip(found.itemsets, found.support, strict=False)
+    }
 
 
 def engine_result(baskets, window, params):

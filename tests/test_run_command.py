@@ -12,7 +12,7 @@ import time
 import pytest
 
 from brute_force import frequent_itemsets
-from stream_miner.cli import main
+from stream_miner.cli.main import main
 
 
 def write_checkouts(path, n, seed=1, extra=()):
@@ -35,14 +35,30 @@ def read_snapshot(path):
 
 
 def run_cli(*args):
-    return subprocess.run([sys.executable, "-m", "stream_miner.cli", *args], capture_output=True, text=True)
+    return subprocess.run([sys.executable, "-m", "stream_miner", *args], capture_output=True, text=True)
 
 
 def test_snapshot_holds_the_last_window_exactly(tmp_path, capsys):
     data, snapshot = tmp_path / "in.jsonl", tmp_path / "snap.jsonl"
     baskets = write_checkouts(data, 1000)
-    assert main(["run", "--source", f"file:{data}", "--window-size", "300", "--tick-every", "100",
-                 "--min-count", "20", "--snapshot-out", str(snapshot)]) == 0
+    assert (
+        main(
+            [
+                "run",
+                "--source",
+                f"file:{data}",
+                "--window-size",
+                "300",
+                "--tick-every",
+                "100",
+                "--min-count",
+                "20",
+                "--snapshot-out",
+                str(snapshot),
+            ]
+        )
+        == 0
+    )
     header, itemsets = read_snapshot(snapshot)
     assert header == {"type": "window", "size": 300, "consumed": 1000, "last_id": "c999", "tick": 9}
     assert itemsets == {tuple(sorted(k)): v for k, v in frequent_itemsets(baskets[-300:], 20).items()}
@@ -52,11 +68,28 @@ def test_snapshot_holds_the_last_window_exactly(tmp_path, capsys):
 def test_sigkill_mid_stream_then_restart_loses_and_double_counts_nothing(tmp_path):
     data = tmp_path / "in.jsonl"
     baskets = write_checkouts(data, 3000, seed=2)
-    command = ["run", "--source", f"file:{data}", "--window-size", "800", "--tick-every", "50",
-               "--min-count", "40", "--pace", "3000", "--checkpoint-dir", str(tmp_path / "ck"),
-               "--checkpoint-interval", "0.05", "--snapshot-out", str(tmp_path / "snap.jsonl")]
-    victim = subprocess.Popen([sys.executable, "-m", "stream_miner.cli", *command],
-                              stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    command = [
+        "run",
+        "--source",
+        f"file:{data}",
+        "--window-size",
+        "800",
+        "--tick-every",
+        "50",
+        "--min-count",
+        "40",
+        "--pace",
+        "3000",
+        "--checkpoint-dir",
+        str(tmp_path / "ck"),
+        "--checkpoint-interval",
+        "0.05",
+        "--snapshot-out",
+        str(tmp_path / "snap.jsonl"),
+    ]
+    victim = subprocess.Popen(
+        [sys.executable, "-m", "stream_miner", *command], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+    )
     deadline = time.monotonic() + 20
     while not (tmp_path / "ck" / "checkpoint.npz").exists() and time.monotonic() < deadline:
         time.sleep(0.02)
@@ -77,9 +110,26 @@ def test_sigkill_mid_stream_then_restart_loses_and_double_counts_nothing(tmp_pat
 def test_sigterm_finishes_the_tick_checkpoints_and_exits_zero(tmp_path):
     data = tmp_path / "in.jsonl"
     write_checkouts(data, 2000, seed=3)
-    command = [sys.executable, "-m", "stream_miner.cli", "run", "--source", f"file:{data}",
-               "--window-size", "500", "--tick-every", "100", "--min-count", "30", "--pace", "1000",
-               "--checkpoint-dir", str(tmp_path / "ck"), "--snapshot-out", str(tmp_path / "snap.jsonl")]
+    command = [
+        sys.executable,
+        "-m",
+        "stream_miner",
+        "run",
+        "--source",
+        f"file:{data}",
+        "--window-size",
+        "500",
+        "--tick-every",
+        "100",
+        "--min-count",
+        "30",
+        "--pace",
+        "1000",
+        "--checkpoint-dir",
+        str(tmp_path / "ck"),
+        "--snapshot-out",
+        str(tmp_path / "snap.jsonl"),
+    ]
     process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
     time.sleep(1.0)
     process.send_signal(signal.SIGTERM)
@@ -92,18 +142,51 @@ def test_sigterm_finishes_the_tick_checkpoints_and_exits_zero(tmp_path):
 
 def test_bad_records_go_to_the_dead_letter_file_and_the_stream_goes_on(tmp_path):
     data, letters = tmp_path / "in.jsonl", tmp_path / "dead.jsonl"
-    bad = ['{"id": "x1", "items": "tea"}', "not json", '{"id": "x2", "items": []}', '{"items": ["a"], "ts": "soon"}',
-           json.dumps({"id": "x3", "items": [f"bulk-{i}" for i in range(30)]}), '{"items": [{"qty": 2}]}',
-           '{"id": 1.5, "items": ["a"]}']
+    bad = [
+        '{"id": "x1", "items": "tea"}',
+        "not json",
+        '{"id": "x2", "items": []}',
+        '{"items": ["a"], "ts": "soon"}',
+        json.dumps({"id": "x3", "items": [f"bulk-{i}" for i in range(30)]}),
+        '{"items": [{"qty": 2}]}',
+        '{"id": 1.5, "items": ["a"]}',
+    ]
     baskets = write_checkouts(data, 200, extra=bad)
     with data.open("ab") as out:
         out.write(b'{"items": ["caf\xe9"]}\n')
-    assert main(["run", "--source", f"file:{data}", "--window-size", "1000", "--tick-every", "1000",
-                 "--min-count", "5", "--max-basket-items", "20", "--dead-letter-out", str(letters),
-                 "--snapshot-out", str(tmp_path / "snap.jsonl")]) == 0
+    assert (
+        main(
+            [
+                "run",
+                "--source",
+                f"file:{data}",
+                "--window-size",
+                "1000",
+                "--tick-every",
+                "1000",
+                "--min-count",
+                "5",
+                "--max-basket-items",
+                "20",
+                "--dead-letter-out",
+                str(letters),
+                "--snapshot-out",
+                str(tmp_path / "snap.jsonl"),
+            ]
+        )
+        == 0
+    )
     reasons = [json.loads(line)["reason"] for line in letters.read_text().splitlines()]
-    assert reasons == ["items not a list", "invalid JSON", "empty basket", "bad event time", "basket too large",
-                       "bad item", "bad id", "invalid UTF-8"]
+    assert reasons == [
+        "items not a list",
+        "invalid JSON",
+        "empty basket",
+        "bad event time",
+        "basket too large",
+        "bad item",
+        "bad id",
+        "invalid UTF-8",
+    ]
     header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
     assert header["consumed"] == 200
     assert itemsets == {tuple(sorted(k)): v for k, v in frequent_itemsets(baskets, 5).items()}
@@ -113,8 +196,24 @@ def test_a_redelivered_basket_is_counted_once(tmp_path):
     data = tmp_path / "in.jsonl"
     first = [json.dumps({"id": f"o{i}", "items": ["tea", "jam"] if i % 2 else ["tea"]}) for i in range(10)]
     data.write_text("\n".join(first + first[3:6]) + "\n")
-    assert main(["run", "--source", f"file:{data}", "--window-size", "100", "--tick-every", "100",
-                 "--min-count", "1", "--snapshot-out", str(tmp_path / "snap.jsonl")]) == 0
+    assert (
+        main(
+            [
+                "run",
+                "--source",
+                f"file:{data}",
+                "--window-size",
+                "100",
+                "--tick-every",
+                "100",
+                "--min-count",
+                "1",
+                "--snapshot-out",
+                str(tmp_path / "snap.jsonl"),
+            ]
+        )
+        == 0
+    )
     header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
     assert header["consumed"] == 10
     assert itemsets == {("tea",): 10, ("jam",): 5, ("jam", "tea"): 5}
@@ -122,28 +221,86 @@ def test_a_redelivered_basket_is_counted_once(tmp_path):
 
 def test_event_time_window_with_allowed_lateness(tmp_path, capsys):
     data, letters = tmp_path / "in.jsonl", tmp_path / "dead.jsonl"
-    rows = [("a", 100, ["x"]), ("b", 110, ["x", "y"]), ("c", 105, ["y"]),  # c is late but in time
-            ("d", 140, ["x"]), ("e", 95, ["y"]),  # e: older than 140 - 10 - 30
-            ("f", 150, ["x", "y"])]
+    rows = [
+        ("a", 100, ["x"]),
+        ("b", 110, ["x", "y"]),
+        ("c", 105, ["y"]),  # c is late but in time
+        ("d", 140, ["x"]),
+        ("e", 95, ["y"]),  # e: older than 140 - 10 - 30
+        ("f", 150, ["x", "y"]),
+    ]
     data.write_text("\n".join(json.dumps({"id": i, "ts": t, "items": s}) for i, t, s in rows) + "\n")
-    assert main(["run", "--source", f"file:{data}", "--window-time", "30s", "--allowed-lateness", "10s",
-                 "--tick-every", "100", "--min-count", "1", "--dead-letter-out", str(letters),
-                 "--snapshot-out", str(tmp_path / "snap.jsonl")]) == 0
+    assert (
+        main(
+            [
+                "run",
+                "--source",
+                f"file:{data}",
+                "--window-time",
+                "30s",
+                "--allowed-lateness",
+                "10s",
+                "--tick-every",
+                "100",
+                "--min-count",
+                "1",
+                "--dead-letter-out",
+                str(letters),
+                "--snapshot-out",
+                str(tmp_path / "snap.jsonl"),
+            ]
+        )
+        == 0
+    )
     # watermark = 150 - 10 = 140; the window is (110, 140]: only d has entered it; f still waits
-    header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
+    _header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
     assert itemsets == {("x",): 1}
     assert [json.loads(line)["reason"] for line in letters.read_text().splitlines()] == ["too late"]
-    assert main(["run", "--source", f"file:{data}", "--window-time", "30s", "--allowed-lateness", "10s",
-                 "--tick-every", "100", "--min-count", "1", "--late", "drop"]) == 0
+    assert (
+        main(
+            [
+                "run",
+                "--source",
+                f"file:{data}",
+                "--window-time",
+                "30s",
+                "--allowed-lateness",
+                "10s",
+                "--tick-every",
+                "100",
+                "--min-count",
+                "1",
+                "--late",
+                "drop",
+            ]
+        )
+        == 0
+    )
     assert "1 dropped as too late" in capsys.readouterr().err
 
 
 def test_time_window_run_checkpoints_and_resumes_with_its_duplicate_memory(tmp_path):
     data = tmp_path / "in.jsonl"
-    rows = [json.dumps({"id": f"t{i}", "ts": 1000 + i, "items": ["x", "y"] if i % 2 else ["x"]}) for i in range(60)]
+    rows = [
+        json.dumps({"id": f"t{i}", "ts": 1000 + i, "items": ["x", "y"] if i % 2 else ["x"]})
+        for i in range(60)
+    ]
     data.write_text("\n".join(rows[:40]) + "\n")
-    command = ["run", "--source", f"file:{data}", "--window-time", "25s", "--tick-every", "10", "--min-count", "1",
-               "--checkpoint-dir", str(tmp_path / "ck"), "--snapshot-out", str(tmp_path / "snap.jsonl")]
+    command = [
+        "run",
+        "--source",
+        f"file:{data}",
+        "--window-time",
+        "25s",
+        "--tick-every",
+        "10",
+        "--min-count",
+        "1",
+        "--checkpoint-dir",
+        str(tmp_path / "ck"),
+        "--snapshot-out",
+        str(tmp_path / "snap.jsonl"),
+    ]
     assert main(command) == 0
     data.write_text("\n".join(rows[:40] + rows[35:60]) + "\n")  # t35..t39 delivered again
     assert main(command) == 0
@@ -157,15 +314,17 @@ def test_config_file_supplies_options_and_flags_override_it(tmp_path, capsys):
     data = tmp_path / "in.jsonl"
     baskets = write_checkouts(data, 400, seed=5)
     config = tmp_path / "run.toml"
-    config.write_text(f'source = "file:{data}"\nwindow-size = 100\ntick_every = 50\nmin-count = 15\n'
-                      f'snapshot-out = "{tmp_path / "snap.jsonl"}"\n')
+    config.write_text(
+        f'source = "file:{data}"\nwindow-size = 100\ntick_every = 50\nmin-count = 15\n'
+        f'snapshot-out = "{tmp_path / "snap.jsonl"}"\n'
+    )
     assert main(["run", "--config", str(config)]) == 0
     _, itemsets = read_snapshot(tmp_path / "snap.jsonl")
     assert itemsets == {tuple(sorted(k)): v for k, v in frequent_itemsets(baskets[-100:], 15).items()}
     assert main(["run", "--config", str(config), "--min-count", "30"]) == 0
     _, itemsets = read_snapshot(tmp_path / "snap.jsonl")
     assert itemsets == {tuple(sorted(k)): v for k, v in frequent_itemsets(baskets[-100:], 30).items()}
-    config.write_text('windowsize = 3\n')
+    config.write_text("windowsize = 3\n")
     assert main(["run", "--config", str(config)]) == 2
     assert "unknown option 'windowsize'" in capsys.readouterr().err
 
@@ -175,21 +334,35 @@ def test_corrupted_checkpoint_is_an_error_until_start_fresh(tmp_path, capsys):
     write_checkouts(data, 100)
     (tmp_path / "ck").mkdir()
     (tmp_path / "ck" / "checkpoint.npz").write_bytes(b"definitely not a checkpoint")
-    command = ["run", "--source", f"file:{data}", "--window-size", "50", "--tick-every", "50",
-               "--min-count", "5", "--checkpoint-dir", str(tmp_path / "ck")]
+    command = [
+        "run",
+        "--source",
+        f"file:{data}",
+        "--window-size",
+        "50",
+        "--tick-every",
+        "50",
+        "--min-count",
+        "5",
+        "--checkpoint-dir",
+        str(tmp_path / "ck"),
+    ]
     assert main(command) == 2
     assert "--start-fresh" in capsys.readouterr().err
     assert main(command + ["--start-fresh"]) == 0
     assert main(command) == 0  # the fresh run replaced it with a good checkpoint
 
 
-@pytest.mark.parametrize("args, message", [
-    (["--window-size", "5", "--tick-every", "5"], "--source"),
-    (["--source", "file:x", "--tick-every", "5"], "--window-size"),
-    (["--source", "file:x", "--window-size", "5"], "--tick-every"),
-    (["--source", "kafka://h:1/t", "--window-size", "5", "--tick-every", "5"], "needs --group"),
-    (["--source", "ftp://x", "--window-size", "5", "--tick-every", "5"], "unsupported --source"),
-])
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (["--window-size", "5", "--tick-every", "5"], "--source"),
+        (["--source", "file:x", "--tick-every", "5"], "--window-size"),
+        (["--source", "file:x", "--window-size", "5"], "--tick-every"),
+        (["--source", "kafka://h:1/t", "--window-size", "5", "--tick-every", "5"], "needs --group"),
+        (["--source", "ftp://x", "--window-size", "5", "--tick-every", "5"], "unsupported --source"),
+    ],
+)
 def test_missing_or_unsupported_options_exit_2(args, message, capsys):
     assert main(["run", *args]) == 2
     assert message in capsys.readouterr().err
@@ -198,8 +371,21 @@ def test_missing_or_unsupported_options_exit_2(args, message, capsys):
 def test_tick_interval_ticks_by_wall_clock_while_records_keep_coming(tmp_path):
     data = tmp_path / "in.jsonl"
     write_checkouts(data, 3000, seed=6)
-    finished = run_cli("run", "--source", f"file:{data}", "--window-size", "200", "--tick-interval", "0.2s",
-                       "--min-count", "10", "--pace", "1000", "--snapshot-out", str(tmp_path / "snap.jsonl"))
+    finished = run_cli(
+        "run",
+        "--source",
+        f"file:{data}",
+        "--window-size",
+        "200",
+        "--tick-interval",
+        "0.2s",
+        "--min-count",
+        "10",
+        "--pace",
+        "1000",
+        "--snapshot-out",
+        str(tmp_path / "snap.jsonl"),
+    )
     assert finished.returncode == 0, finished.stderr
     header, _ = read_snapshot(tmp_path / "snap.jsonl")
     assert header["consumed"] == 3000
@@ -211,10 +397,27 @@ def test_follow_keeps_reading_a_growing_file_until_sigterm(tmp_path):
     data = tmp_path / "growing.jsonl"
     data.write_text(json.dumps({"id": "a0", "items": ["tea"]}) + "\n")
     process = subprocess.Popen(
-        [sys.executable, "-m", "stream_miner.cli", "run", "--source", f"file:{data}", "--follow",
-         "--window-size", "100", "--tick-interval", "0.1s", "--min-count", "1",
-         "--snapshot-out", str(tmp_path / "snap.jsonl")],
-        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+        [
+            sys.executable,
+            "-m",
+            "stream_miner",
+            "run",
+            "--source",
+            f"file:{data}",
+            "--follow",
+            "--window-size",
+            "100",
+            "--tick-interval",
+            "0.1s",
+            "--min-count",
+            "1",
+            "--snapshot-out",
+            str(tmp_path / "snap.jsonl"),
+        ],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     with data.open("a") as out:
         time.sleep(1.0)
         out.write(json.dumps({"id": "a1", "items": ["tea", "jam"]}) + "\n")

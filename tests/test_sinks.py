@@ -7,8 +7,8 @@ import json
 
 from kafka import KafkaConsumer
 
-from connectors.sinks import JsonlSink, KafkaSink, StdoutSink
 from kafka_broker import start_broker, stop_broker
+from stream_miner.connectors.sinks import JsonlSink, KafkaSink, StdoutSink
 
 RECORDS = [{"type": "event", "items": ["scone", "tea"], "n": 3}, {"type": "event", "items": ["jam"], "n": 1}]
 
@@ -41,8 +41,9 @@ def test_kafka_sink_produces_json_records_to_a_topic():
         for record in RECORDS:
             sink.write(record)
         sink.close()
-        reader = KafkaConsumer("events", bootstrap_servers=broker.address, auto_offset_reset="earliest",
-                               consumer_timeout_ms=5000)
+        reader = KafkaConsumer(
+            "events", bootstrap_servers=broker.address, auto_offset_reset="earliest", consumer_timeout_ms=5000
+        )
         assert [json.loads(m.value) for m in reader] == RECORDS
         reader.close()
     finally:

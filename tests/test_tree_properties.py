@@ -11,8 +11,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
-from stream_miner.fpgrowth import mine_tree
-from stream_miner.tree import PrefixTree, frequency_rank, header_table
+from stream_miner.engine.fpgrowth import mine_tree
+from stream_miner.engine.tree import PrefixTree, frequency_rank, header_table
 
 baskets_st = st.lists(st.integers(0, 9), min_size=1, max_size=7, unique=True)
 ranks_st = st.one_of(st.just([]), st.permutations(list(range(10))))
@@ -102,7 +102,7 @@ def test_freed_nodes_are_reused_so_slots_do_not_grow_under_steady_sliding():
     capacity_after_fill = tree.arrays().count.size
     for start in range(500, 3000, 100):
         expired = handles[:100]
-        handles = handles[100:] + tree.update(tree.paths_of(stream[start:start + 100]), expired).tolist()
+        handles = handles[100:] + tree.update(tree.paths_of(stream[start : start + 100]), expired).tolist()
     tree.check_invariants()
     assert tree.node_count() == PrefixTree.build(stream[-500:], tree.rank).node_count()
     assert tree.arrays().count.size <= 2 * capacity_after_fill

@@ -10,10 +10,10 @@ import math
 
 import pytest
 
-from stream_miner.engine import WindowMiner
-from stream_miner.params import MiningParams
-from stream_miner.rules import RuleFilter
-from stream_miner.window import CountWindow
+from stream_miner.engine.miner import WindowMiner
+from stream_miner.engine.params import MiningParams
+from stream_miner.engine.rules import RuleFilter
+from stream_miner.engine.window import CountWindow
 
 
 def mine(baskets, min_count, window=None, rules=False):
@@ -31,8 +31,15 @@ def test_agrawal_srikant_1994_example():
     baskets = [["1", "3", "4"], ["2", "3", "5"], ["1", "2", "3", "5"], ["2", "5"]]
     result, rules = mine(baskets, min_count=2, rules=True)
     assert result.itemsets == {
-        ("1",): 2, ("2",): 3, ("3",): 3, ("5",): 3,
-        ("1", "3"): 2, ("2", "3"): 2, ("2", "5"): 3, ("3", "5"): 2, ("2", "3", "5"): 2,
+        ("1",): 2,
+        ("2",): 3,
+        ("3",): 3,
+        ("5",): 3,
+        ("1", "3"): 2,
+        ("2", "3"): 2,
+        ("2", "5"): 3,
+        ("3", "5"): 2,
+        ("2", "3", "5"): 2,
     }
     rule = rules[(("2", "3"), ("5",))]
     assert rule.support == 0.5 and rule.confidence == 1.0
@@ -46,8 +53,11 @@ def test_agrawal_srikant_1994_example():
 def test_tan_steinbach_kumar_market_basket():
     # Tan, Steinbach, Kumar, "Introduction to Data Mining", market-basket table (from memory)
     baskets = [
-        ["Bread", "Milk"], ["Bread", "Diapers", "Beer", "Eggs"], ["Milk", "Diapers", "Beer", "Cola"],
-        ["Bread", "Milk", "Diapers", "Beer"], ["Bread", "Milk", "Diapers", "Cola"],
+        ["Bread", "Milk"],
+        ["Bread", "Diapers", "Beer", "Eggs"],
+        ["Milk", "Diapers", "Beer", "Cola"],
+        ["Bread", "Milk", "Diapers", "Beer"],
+        ["Bread", "Milk", "Diapers", "Cola"],
     ]
     _, rules = mine(baskets, min_count=1, rules=True)
     rule = rules[(("Diapers", "Milk"), ("Beer",))]
@@ -63,14 +73,31 @@ def test_tan_steinbach_kumar_market_basket():
 def test_han_kamber_all_electronics():
     # Han & Kamber, "Data Mining: Concepts and Techniques", AllElectronics table (from memory)
     baskets = [
-        ["I1", "I2", "I5"], ["I2", "I4"], ["I2", "I3"], ["I1", "I2", "I4"], ["I1", "I3"],
-        ["I2", "I3"], ["I1", "I3"], ["I1", "I2", "I3", "I5"], ["I1", "I2", "I3"],
+        ["I1", "I2", "I5"],
+        ["I2", "I4"],
+        ["I2", "I3"],
+        ["I1", "I2", "I4"],
+        ["I1", "I3"],
+        ["I2", "I3"],
+        ["I1", "I3"],
+        ["I1", "I2", "I3", "I5"],
+        ["I1", "I2", "I3"],
     ]
     result, rules = mine(baskets, min_count=2, rules=True)
     assert result.itemsets == {
-        ("I1",): 6, ("I2",): 7, ("I3",): 6, ("I4",): 2, ("I5",): 2,
-        ("I1", "I2"): 4, ("I1", "I3"): 4, ("I1", "I5"): 2, ("I2", "I3"): 4, ("I2", "I4"): 2,
-        ("I2", "I5"): 2, ("I1", "I2", "I3"): 2, ("I1", "I2", "I5"): 2,
+        ("I1",): 6,
+        ("I2",): 7,
+        ("I3",): 6,
+        ("I4",): 2,
+        ("I5",): 2,
+        ("I1", "I2"): 4,
+        ("I1", "I3"): 4,
+        ("I1", "I5"): 2,
+        ("I2", "I3"): 4,
+        ("I2", "I4"): 2,
+        ("I2", "I5"): 2,
+        ("I1", "I2", "I3"): 2,
+        ("I1", "I2", "I5"): 2,
     }
     assert rules[(("I1", "I2"), ("I5",))].confidence == pytest.approx(0.5)
     assert rules[(("I1", "I5"), ("I2",))].confidence == 1.0
@@ -84,11 +111,21 @@ def test_sliding_window_example_in_the_style_of_chi_et_al_2004():
     baskets = [["C", "D"], ["A", "B"], ["A", "B", "C"], ["A", "B", "C"]]
     before, _ = mine(baskets, min_count=2, window=4)
     assert before.itemsets == {
-        ("A",): 3, ("B",): 3, ("C",): 3, ("A", "B"): 3, ("A", "C"): 2, ("B", "C"): 2,
+        ("A",): 3,
+        ("B",): 3,
+        ("C",): 3,
+        ("A", "B"): 3,
+        ("A", "C"): 2,
+        ("B", "C"): 2,
         ("A", "B", "C"): 2,
     }
     after, _ = mine(baskets + [["A", "C", "D"]], min_count=2, window=4)
     assert after.itemsets == {
-        ("A",): 4, ("B",): 3, ("C",): 3, ("A", "B"): 3, ("A", "C"): 3, ("B", "C"): 2,
+        ("A",): 4,
+        ("B",): 3,
+        ("C",): 3,
+        ("A", "B"): 3,
+        ("A", "C"): 3,
+        ("B", "C"): 2,
         ("A", "B", "C"): 2,
     }

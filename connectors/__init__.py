@@ -1,1 +1,0 @@
-"""Sources and sinks that move baskets in and out of stream-miner."""

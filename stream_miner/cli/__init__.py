@@ -1,0 +1,1 @@
+"""The ``stream-miner`` command line: one module per command, shared options and output."""

@@ -1,0 +1,1 @@
+"""Sources and sinks for outside systems: files, stdin and Kafka."""

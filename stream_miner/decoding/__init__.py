@@ -1,0 +1,1 @@
+"""Bytes to records: message and file-format decoding into baskets or dead letters."""

@@ -1,0 +1,218 @@
+"""Decoding one message (a Kafka value, or one line of a file or stdin) into a basket.
+
+A message is a JSON object such as
+``{"id": "t1", "ts": "2024-03-01T12:00:00Z", "items": ["A1", {"sku": "B2", "qty": 2}]}``.
+Field names, the key that names an item object and the unit of numeric event times are set
+by :class:`MessageFormat`. Items are kept by membership only: quantities are ignored and a
+repeated item counts once. :func:`decode_message` never raises on any input bytes: a message
+that is not a basket comes back as a :class:`DeadLetter` whose ``reason`` is one of
+:data:`REASONS`, so the caller can set it aside and move on.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from datetime import UTC, datetime
+
+from stream_miner.decoding.files import parse_event_time
+
+REASONS = (
+    "message too large",
+    "invalid UTF-8",
+    "invalid JSON",
+    "not a JSON object",
+    "no items",
+    "items not a list",
+    "bad item",
+    "empty basket",
+    "basket too large",
+    "bad id",
+    "bad event time",
+    "bad segment",
+)
+TIME_UNITS = ("s", "ms", "auto")
+AUTO_MILLISECONDS_ABOVE = 1e11  # with time_unit "auto", larger numbers are milliseconds
+# Numeric event times must fall in years 1 to 9999 (UTC), the range of ISO-8601 dates.
+_MIN_SECONDS = datetime.min.replace(tzinfo=UTC).timestamp()
+_MAX_SECONDS = datetime.max.replace(tzinfo=UTC).timestamp()
+_DETAIL_LIMIT = 200
+_JSON_TYPES = {
+    dict: "an object",
+    list: "an array",
+    str: "a string",
+    bool: "a boolean",
+    int: "an integer",
+    float: "a decimal number",
+    type(None): "null",
+}
+
+
+@dataclass(frozen=True)
+class MessageFormat:
+    """Where a message keeps its fields, the unit of numeric times, and size limits.
+
+    ``item_key`` names an item given as an object (``{"sku": "A1", "qty": 2}``).
+    ``time_unit`` is ``"s"``, ``"ms"`` or ``"auto"`` (numbers above 1e11 are milliseconds).
+    """
+
+    id_field: str = "id"
+    time_field: str = "ts"
+    items_field: str = "items"
+    segment_field: str | None = None
+    item_key: str = "sku"
+    time_unit: str = "auto"
+    max_message_bytes: int = 1_000_000
+    max_items: int = 1000
+
+    def __post_init__(self) -> None:
+        if self.time_unit not in TIME_UNITS:
+            raise ValueError(f"time_unit must be one of {', '.join(TIME_UNITS)}, got {self.time_unit!r}")
+        if self.max_message_bytes < 1 or self.max_items < 1:
+            raise ValueError("max_message_bytes and max_items must be at least 1")
+
+
+@dataclass(frozen=True)
+class Basket:
+    """A decoded message: distinct item names in first-seen order, id, event time, segment."""
+
+    items: list[str]
+    id: str | None
+    ts: float | None
+    segment: str | None
+
+
+@dataclass(frozen=True)
+class DeadLetter:
+    """A message that is not a basket, why (``reason`` is one of REASONS), and where it came from."""
+
+    raw: bytes
+    reason: str
+    detail: str
+    source: str
+    partition: int | None
+    offset: int | None
+
+
+class _Refused(Exception):
+    """Internal: a message is not a basket, for ``reason``."""
+
+    def __init__(self, reason: str, detail: str) -> None:
+        super().__init__(reason, detail)
+        self.reason = reason
+        self.detail = detail[:_DETAIL_LIMIT]
+
+
+def decode_message(
+    raw: bytes, fmt: MessageFormat, *, source: str, partition: int | None = None, offset: int | None = None
+) -> Basket | DeadLetter:
+    """The basket in ``raw``, or a dead letter saying why there is none. Never raises."""
+    try:
+        return _basket(_json_object(raw, fmt), fmt)
+    except _Refused as refusal:
+        return DeadLetter(raw, refusal.reason, refusal.detail, source, partition, offset)
+
+
+def _json_object(raw: bytes, fmt: MessageFormat) -> dict[str, object]:
+    """The JSON object in ``raw``; the size is checked before any decoding."""
+    if len(raw) > fmt.max_message_bytes:
+        raise _Refused("message too large", f"{len(raw)} bytes, limit {fmt.max_message_bytes}")
+    try:
+        text = raw.decode("utf-8-sig")  # a leading byte-order mark is not part of the data
+    except UnicodeDecodeError as error:
+        raise _Refused("invalid UTF-8", str(error)) from None
+    try:
+        value = json.loads(text)
+    except (ValueError, RecursionError) as error:  # also too-long integers, too-deep nesting
+        raise _Refused("invalid JSON", str(error) or type(error).__name__) from None
+    if not isinstance(value, dict):
+        raise _Refused("not a JSON object", f"the message is {_json_type(value)}")
+    return value
+
+
+def _basket(message: dict[str, object], fmt: MessageFormat) -> Basket:
+    """The basket held by a message object; JSON null counts as a missing field."""
+    return Basket(
+        items=_items(message.get(fmt.items_field), fmt),
+        id=_basket_id(message.get(fmt.id_field), fmt.id_field),
+        ts=_event_time(message.get(fmt.time_field), fmt),
+        segment=_segment(message, fmt),
+    )
+
+
+def _items(value: object, fmt: MessageFormat) -> list[str]:
+    """Distinct item names in first-seen order."""
+    field = fmt.items_field
+    if value is None:
+        raise _Refused("no items", f'"{field}" is missing or null')
+    if not isinstance(value, list):
+        raise _Refused("items not a list", f'"{field}" is {_json_type(value)}')
+    if not value:
+        raise _Refused("empty basket", f'"{field}" is an empty array')
+    try:
+        names = list(dict.fromkeys(value))  # the common case: every item a string
+    except TypeError:  # an unhashable item, e.g. an object
+        names = []
+    if not names or not all(type(name) is str for name in names):
+        names = list(dict.fromkeys(_item_name(item, index, fmt.item_key) for index, item in enumerate(value)))
+    if len(names) > fmt.max_items:
+        raise _Refused("basket too large", f"{len(names)} distinct items, limit {fmt.max_items}")
+    return names
+
+
+def _item_name(item: object, index: int, item_key: str) -> str:
+    """The name of one item: a string, or the string under ``item_key`` of an object."""
+    if isinstance(item, str):
+        return item
+    if isinstance(item, dict) and isinstance(name := item.get(item_key), str):
+        return name
+    raise _Refused(
+        "bad item",
+        f'item {index} is {_json_type(item)}, not a string nor an object with a string "{item_key}"',
+    )
+
+
+def _basket_id(value: object, field: str) -> str | None:
+    """A string or integer id, as a string."""
+    if value is None or isinstance(value, str):
+        return value
+    if isinstance(value, int) and not isinstance(value, bool):
+        return str(value)
+    raise _Refused("bad id", f'"{field}" is {_json_type(value)}, not a string or an integer')
+
+
+def _event_time(value: object, fmt: MessageFormat) -> float | None:
+    """Epoch seconds from a number in ``fmt.time_unit`` or an ISO-8601 string."""
+    field = fmt.time_field
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, (int, float, str)):
+        raise _Refused(
+            "bad event time", f'"{field}" is {_json_type(value)}, not a number or an ISO-8601 string'
+        )
+    try:
+        seconds = parse_event_time(value)
+    except ValueError as error:
+        raise _Refused("bad event time", f'"{field}": {error}') from None
+    if isinstance(value, str):
+        return seconds
+    if fmt.time_unit == "ms" or (fmt.time_unit == "auto" and seconds > AUTO_MILLISECONDS_ABOVE):
+        seconds /= 1000
+    if not _MIN_SECONDS <= seconds <= _MAX_SECONDS:
+        raise _Refused("bad event time", f'"{field}" is out of range (years 1 to 9999)')
+    return seconds
+
+
+def _segment(message: dict[str, object], fmt: MessageFormat) -> str | None:
+    """The segment, when the format names a segment field."""
+    if fmt.segment_field is None:
+        return None
+    value = message.get(fmt.segment_field)
+    if value is None or isinstance(value, str):
+        return value
+    raise _Refused("bad segment", f'"{fmt.segment_field}" is {_json_type(value)}, not a string')
+
+
+def _json_type(value: object) -> str:
+    """What kind of JSON value ``value`` is, for a detail message."""
+    return _JSON_TYPES[type(value)]

@@ -1,0 +1,1 @@
+"""The mining engine: window, prefix tree, FP-growth, rules, incremental ticks (no I/O)."""

@@ -1,0 +1,313 @@
+"""The window miner: basket hygiene, item vocabulary, window store and prefix tree together.
+
+Baskets are buffered and applied to the tree in batches (the tree's batch update is
+vectorised); every read (mining, size, checks) applies the buffer first, so results are
+always those of the exact current window.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import Counter
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from stream_miner.engine.baskets import BasketArrays
+from stream_miner.engine.delta import ResultDelta, diff_results
+from stream_miner.engine.fpgrowth import Itemset, mine_tree
+from stream_miner.engine.hygiene import BasketPolicy, Verdict
+from stream_miner.engine.incremental.tracker import BorderTracker
+from stream_miner.engine.params import MiningParams
+from stream_miner.engine.result import MiningResult
+from stream_miner.engine.rules import generate_rules
+from stream_miner.engine.tree import PrefixTree, frequency_rank
+from stream_miner.engine.vocabulary import ItemVocabulary
+from stream_miner.engine.window import CountWindow, Expired, TimeWindow, WindowStore
+
+DEFAULT_BATCH = 8192
+ORDER_SAMPLE = 8192  # baskets used to test whether a new item order would pay off
+ORDER_CHECK_MIN = 1000  # baskets applied between two such tests, at least
+ORDER_GAIN = 0.02  # rebuild when the current order needs this much more nodes than a fresh one
+
+
+@dataclass(frozen=True)
+class MinerState:
+    """Everything a :class:`WindowMiner` needs to carry on after a restart (for checkpoints):
+    the window's baskets and their event times, the not yet applied buffer, the vocabulary,
+    the tree's item order and the counters."""
+
+    names: list[str]
+    baskets: BasketArrays
+    ts: np.ndarray
+    pending: BasketArrays
+    pending_ts: np.ndarray
+    newest_ts: float
+    rank: np.ndarray
+    ranked: bool
+    applied_since_order: int
+    verdicts: Counter[Verdict]
+
+
+@dataclass(frozen=True)
+class Tick:
+    """One tick: its number (0, 1, ...), the full current result, and the change since the
+    previous tick (everything counts as added on tick 0)."""
+
+    number: int
+    result: MiningResult
+    delta: ResultDelta
+
+
+class WindowMiner:
+    """Keeps an exact sliding window of baskets in a prefix tree and mines it on demand.
+
+    >>> miner = WindowMiner(CountWindow(3))
+    >>> for basket in (["tea", "scone"], ["tea"], ["tea", "scone", "jam"], ["scone", "jam"]):
+    ...     _ = miner.add(basket)
+    >>> sorted(miner.mine(MiningParams(min_count=2)).itemsets.items())
+    [(('jam',), 2), (('jam', 'scone'), 2), (('scone',), 2), (('tea',), 2)]
+    """
+
+    def __init__(
+        self,
+        window: CountWindow | TimeWindow | None = None,
+        policy: BasketPolicy = BasketPolicy(),
+        batch_size: int = DEFAULT_BATCH,
+    ) -> None:
+        if batch_size < 1:
+            raise ValueError(f"batch size must be at least 1, got {batch_size}")
+        self.window = window
+        self.policy = policy
+        self.batch_size = batch_size
+        self.vocabulary = ItemVocabulary()
+        self.tree = PrefixTree()
+        self.store = WindowStore()
+        self.verdicts: Counter[Verdict] = Counter()
+        self._pending: list[list[int]] = []
+        self._pending_ts: list[float] = []
+        self._newest_ts = -math.inf
+        self._ranked = False
+        self._applied_since_order = 0
+        self._tracker: BorderTracker | None = None
+        self._tracker_key: tuple | None = None
+        self._changes: list[tuple[BasketArrays, int]] = []
+        self._last: MiningResult | None = None
+        self._ticks = 0
+        self._named: dict[Itemset, tuple[str, ...]] = {}  # item names of recent results' itemsets
+
+    # ------------------------------------------------------------------ state
+    def state(self) -> MinerState:
+        """The miner's state, read only: the buffer is kept as it is rather than applied, so
+        taking the state changes nothing (not even the batch boundaries that decide the
+        tree's item order)."""
+        baskets, ts = self.store.contents()
+        return MinerState(
+            names=self.vocabulary.names(),
+            baskets=baskets,
+            ts=ts,
+            pending=BasketArrays.from_lists(self._pending),
+            pending_ts=np.array(self._pending_ts, dtype=np.float64),
+            newest_ts=self._newest_ts,
+            rank=self.tree.rank,
+            ranked=self._ranked,
+            applied_since_order=self._applied_since_order,
+            verdicts=Counter(self.verdicts),
+        )
+
+    @classmethod
+    def restored(
+        cls,
+        state: MinerState,
+        window: CountWindow | TimeWindow | None = None,
+        policy: BasketPolicy = BasketPolicy(),
+        batch_size: int = DEFAULT_BATCH,
+    ) -> WindowMiner:
+        """A miner holding ``state``: the window's baskets go straight into the tree and store
+        (hygiene and expiry already ran on them); the buffer is applied by the next flush."""
+        miner = cls(window, policy, batch_size)
+        miner.vocabulary = ItemVocabulary(state.names)
+        miner.verdicts = Counter(state.verdicts)
+        miner._newest_ts = state.newest_ts
+        miner._ranked = state.ranked
+        if state.ranked:
+            miner.tree = PrefixTree(state.rank, capacity_hint=state.baskets.items.size + 16)
+            paths = miner.tree.order_paths(state.baskets)
+            miner.store.append(paths, state.ts, miner.tree.update(paths, ()))
+        miner._applied_since_order = state.applied_since_order
+        miner._pending = state.pending.to_lists()
+        miner._pending_ts = state.pending_ts.tolist()
+        return miner
+
+    # ------------------------------------------------------------------ input
+    def add(self, items: Iterable[str], ts: float | None = None) -> Verdict:
+        """Offer one basket of item names (with an optional event time in seconds)."""
+        if isinstance(self.window, TimeWindow) and ts is None:
+            raise ValueError("a time window needs an event time for every basket")
+        ids, verdict = self.policy.clean(self.vocabulary.encode(items))
+        self.verdicts[verdict] += 1
+        if verdict in (Verdict.SKIPPED_EMPTY, Verdict.SKIPPED_OVERSIZE):
+            return verdict
+        self._pending.append(ids)
+        self._pending_ts.append(math.nan if ts is None else float(ts))
+        if ts is not None and ts > self._newest_ts:
+            self._newest_ts = float(ts)
+        if len(self._pending) >= self.batch_size:
+            self.flush()
+        return verdict
+
+    def advance_time(self, ts: float) -> None:
+        """Move an event-time window's end to ``ts`` (if later) even before a basket that new
+        arrives: the runtime's watermark. Baskets at or before ``ts - seconds`` expire."""
+        self._newest_ts = max(self._newest_ts, float(ts))
+
+    def flush(self) -> None:
+        """Apply buffered baskets and expiries to the tree. O(batch) vectorised work."""
+        pending, pending_ts = self._pending, np.array(self._pending_ts, dtype=np.float64)
+        self._pending, self._pending_ts = [], []
+        if isinstance(self.window, CountWindow):
+            overflow = len(self.store) + len(pending) - self.window.size
+            expired = self.store.expire_oldest(max(0, overflow))
+            dropped = max(0, overflow - len(expired.handles))
+            pending, pending_ts = pending[dropped:], pending_ts[dropped:]
+        elif isinstance(self.window, TimeWindow):
+            cutoff = self._newest_ts - self.window.seconds
+            expired = self.store.expire_until(cutoff)
+            keep = pending_ts > cutoff
+            pending = [b for b, k in zip(pending, keep.tolist(), strict=True) if k]
+            pending_ts = pending_ts[keep]
+        else:
+            expired = Expired.concat([])
+        if not self._ranked and pending:
+            self._rank_from(pending)
+        paths = self.tree.paths_of(pending)
+        handles = self.tree.update(paths, expired.handles)
+        self.store.append(paths, pending_ts, handles)
+        if self._tracker is not None:
+            self._changes += [(expired.baskets, -1), (paths, 1)]
+            if sum(len(baskets) for baskets, _ in self._changes) > 2 * max(len(self.store), 1):
+                self._tracker, self._changes = None, []  # restarting from the window is cheaper
+        self._applied_since_order += len(paths)
+        if self._applied_since_order >= max(len(self.store), ORDER_CHECK_MIN):
+            self._reorder_if_stale()
+
+    def _reorder_if_stale(self) -> None:
+        """Once per window turnover: rebuild the tree in the current frequency order when a
+        sample says that order would need at least ``ORDER_GAIN`` fewer nodes."""
+        self._applied_since_order = 0
+        baskets, ts = self.store.contents()
+        fresh = frequency_rank(np.bincount(baskets.items, minlength=len(self.vocabulary)))
+        sample = baskets.select(np.arange(max(0, len(baskets) - ORDER_SAMPLE), len(baskets)))
+        sample_lists = sample.to_lists()
+        stale_nodes = PrefixTree.build(sample_lists, self.tree.rank).node_count()
+        if stale_nodes > (1 + ORDER_GAIN) * PrefixTree.build(sample_lists, fresh).node_count():
+            self._rebuild(baskets, ts, fresh)
+
+    def _rank_from(self, baskets: list[list[int]]) -> None:
+        """Fix the tree's item order from the first batch's item frequencies."""
+        counts = np.bincount(BasketArrays.from_lists(baskets).items, minlength=len(self.vocabulary))
+        self.tree = PrefixTree(frequency_rank(counts))
+        self._ranked = True
+
+    def restructure(self) -> None:
+        """Rebuild the tree in the window's current item-frequency order (results unchanged)."""
+        self.flush()
+        baskets, ts = self.store.contents()
+        self._rebuild(baskets, ts, frequency_rank(np.bincount(baskets.items, minlength=len(self.vocabulary))))
+
+    def _rebuild(self, baskets: BasketArrays, ts: np.ndarray, rank: np.ndarray) -> None:
+        self.tree = PrefixTree(rank, capacity_hint=self.tree.node_count() + 16)
+        paths = self.tree.order_paths(baskets)
+        self.store.replace(paths, ts, self.tree.update(paths, ()))
+        self._applied_since_order = 0
+
+    # ------------------------------------------------------------------ reads
+    def __len__(self) -> int:
+        """Baskets in the window."""
+        self.flush()
+        return len(self.store)
+
+    def mine(self, params: MiningParams) -> MiningResult:
+        """Frequent itemsets (and rules if asked) of the current window: a full FP-growth mine."""
+        self.flush()
+        names = self.vocabulary.names()
+        min_count = params.threshold(len(self.store))
+        return self._result(self._mine_tree(params, names, min_count), min_count, params, names)
+
+    def _mine_tree(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int]:
+        allowed = self._allowed_mask(params, names)
+        return mine_tree(self.tree.arrays(), min_count, max_len=params.max_len, allowed=allowed)
+
+    def tick(self, params: MiningParams, *, full_remine: bool = False) -> Tick:
+        """The current result and what changed since the previous tick.
+
+        Incremental by default: only the baskets that entered or left the window since the
+        previous tick are looked at (see :mod:`stream_miner.engine.incremental.tracker`); the first tick, and
+        any tick whose item lists or length limit differ from the previous one, starts the
+        tracking from the window. ``full_remine`` mines the whole window instead (same result).
+        """
+        self.flush()
+        names = self.vocabulary.names()
+        min_count = params.threshold(len(self.store))
+        if full_remine:
+            self._tracker, found = None, None
+        else:
+            found = self._track(params, names, min_count)  # None: too many items to track pairs of
+        if found is None:
+            found = self._mine_tree(params, names, min_count)
+        result = self._result(found, min_count, params, names)
+        tick = Tick(self._ticks, result, diff_results(self._last, result))
+        self._last = result
+        self._ticks += 1
+        return tick
+
+    def _track(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int] | None:
+        key = (params.max_len, params.include, params.exclude)
+        if self._tracker is None or key != self._tracker_key:
+            self._tracker = BorderTracker(params.max_len)
+            self._tracker_key = key
+            self._changes = [(self.store.contents()[0], 1)]
+        changed = BasketArrays.concat([baskets for baskets, _ in self._changes])
+        signs = np.concatenate(
+            [np.full(len(baskets), sign, dtype=np.int64) for baskets, sign in self._changes]
+            or [np.empty(0, dtype=np.int64)]
+        ).astype(np.int64)
+        self._tracker.apply(changed, signs)
+        self._changes = []
+        allowed = self._allowed_mask(params, names)
+        allowed = np.ones(len(names), dtype=bool) if allowed is None else allowed
+        if not self._tracker.retarget(min_count, allowed, self.store.baskets_with):
+            return None
+        return self._tracker.itemsets()
+
+    def _result(
+        self, found: dict[Itemset, int], min_count: int, params: MiningParams, names: Sequence[str]
+    ) -> MiningResult:
+        n = len(self.store)
+        rules = [] if params.rules is None else generate_rules(found, n, params.rules, names)
+        if len(self._named) > 4 * len(found) + 4096:
+            self._named = {}
+        named = self._named
+        for items in found.keys() - named.keys():
+            named[items] = tuple(sorted(names[i] for i in items))
+        itemsets = {named[items]: count for items, count in found.items()}
+        return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules, names=names)
+
+    @staticmethod
+    def _allowed_mask(params: MiningParams, names: Sequence[str]) -> np.ndarray | None:
+        if params.include is None and not params.exclude:
+            return None
+        return np.array(
+            [
+                (params.include is None or name in params.include) and name not in params.exclude
+                for name in names
+            ],
+            dtype=bool,
+        )
+
+    def check_invariants(self) -> None:
+        """Raise AssertionError unless the tree holds exactly the stored window."""
+        self.flush()
+        self.tree.check_invariants()
+        assert self.tree.n_baskets == len(self.store), "tree and window sizes differ"

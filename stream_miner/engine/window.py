@@ -1,0 +1,212 @@
+"""Window store: the baskets currently in the window, kept compactly for exact expiry.
+
+Baskets are stored in arrival order in numpy chunks (one chunk per applied batch): item ids
+(in the tree's path order; 2 bytes each while ids fit, else 4), row offsets, tree handles
+and event times (only when the baskets carry them). Expiry is exact and never needs the
+tree: a count window drops the oldest baskets, a time window drops every basket whose event
+time has fallen out, in or out of arrival order. About 2 bytes per item plus 9 bytes per
+basket (17 with event times).
+"""
+
+from __future__ import annotations
+
+from collections import deque
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from stream_miner.engine.baskets import BasketArrays
+from stream_miner.engine.incremental.kernels import compiled, rows_holding
+
+MIN_CHUNK = 4096  # a newest chunk smaller than this (in baskets) takes the next batch in
+CHUNKS = 8  # ... and so does one smaller than this fraction of the window
+
+
+@dataclass(frozen=True)
+class CountWindow:
+    """The last ``size`` baskets."""
+
+    size: int
+
+    def __post_init__(self) -> None:
+        if self.size < 1:
+            raise ValueError(f"window size must be at least 1 basket, got {self.size}")
+
+
+@dataclass(frozen=True)
+class TimeWindow:
+    """Baskets whose event time lies in (newest - seconds, newest]."""
+
+    seconds: float
+
+    def __post_init__(self) -> None:
+        if not self.seconds > 0:
+            raise ValueError(f"window duration must be positive, got {self.seconds}")
+
+
+@dataclass
+class _Chunk:
+    items: np.ndarray  # uint16 or int32, all baskets' items back to back
+    start: np.ndarray  # int32, len = baskets + 1
+    handle: np.ndarray  # int32 tree handles
+    event_ts: np.ndarray | None  # float64 event times, None when no basket has one
+    alive: np.ndarray = field(init=False)
+    n_alive: int = field(init=False)
+
+    def __post_init__(self) -> None:
+        self.alive = np.ones(self.handle.size, dtype=bool)
+        self.n_alive = self.handle.size
+
+    def compact(self) -> _Chunk:
+        """The same chunk with items in 2 bytes while ids fit (else 4), offsets and handles in 4."""
+        items = self.items
+        item_type = np.uint16 if items.size == 0 or items.max() < 1 << 16 else np.int32
+        chunk = _Chunk(
+            items.astype(item_type), self.start.astype(np.int32), self.handle.astype(np.int32), self.event_ts
+        )
+        chunk.alive, chunk.n_alive = self.alive, self.n_alive
+        return chunk
+
+    def joined(self, newer: _Chunk) -> _Chunk:
+        """This chunk with ``newer``'s baskets after its own (expired rows stay expired); both
+        compact, so the join copies no wider arrays than it keeps."""
+        ts = None if self.event_ts is None and newer.event_ts is None else np.concatenate([self.ts, newer.ts])
+        chunk = _Chunk(
+            np.concatenate([self.items, newer.items]),
+            np.concatenate([self.start[:-1], newer.start + self.start[-1]]),
+            np.concatenate([self.handle, newer.handle]),
+            ts,
+        )
+        chunk.alive = np.concatenate([self.alive, newer.alive])
+        chunk.n_alive = self.n_alive + newer.n_alive
+        return chunk
+
+    @property
+    def ts(self) -> np.ndarray:
+        """Event times (NaN where unknown)."""
+        if self.event_ts is None:
+            return np.full(self.handle.size, np.nan)
+        return self.event_ts
+
+    def baskets(self, rows: np.ndarray) -> BasketArrays:
+        """The baskets at ``rows`` (increasing indices)."""
+        whole = BasketArrays(self.items, self.start)
+        return whole.select(rows)
+
+    def kill(self, rows: np.ndarray) -> Expired:
+        """Mark rows expired; return their handles and baskets."""
+        self.alive[rows] = False
+        self.n_alive -= rows.size
+        return Expired(self.handle[rows].astype(np.int64), self.baskets(rows))
+
+    @property
+    def nbytes(self) -> int:
+        ts_bytes = 0 if self.event_ts is None else self.event_ts.nbytes
+        return self.items.nbytes + self.start.nbytes + self.handle.nbytes + ts_bytes + (self.alive.nbytes)
+
+
+@dataclass(frozen=True)
+class Expired:
+    """Baskets that left the window: their tree handles and their items."""
+
+    handles: np.ndarray
+    baskets: BasketArrays
+
+    @classmethod
+    def concat(cls, parts: list[Expired]) -> Expired:
+        if not parts:
+            return cls(np.empty(0, dtype=np.int64), BasketArrays.empty())
+        return cls(
+            np.concatenate([p.handles for p in parts]),
+            BasketArrays.concat([p.baskets for p in parts]),
+        )
+
+
+class WindowStore:
+    """Baskets in the window, oldest first, with exact expiry by count or by event time."""
+
+    def __init__(self) -> None:
+        self._chunks: deque[_Chunk] = deque()
+        self._head = 0  # rows of the oldest chunk already expired by count
+        self._size = 0
+
+    def __len__(self) -> int:
+        return self._size
+
+    def append(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray) -> None:
+        """Add a batch of baskets (items in path order), newest last. A small newest chunk
+        takes the batch in, so the window stays in a few chunks however small the batches."""
+        if ts.size == 0:
+            return
+        chunk = _Chunk(
+            items=paths.items,
+            start=paths.start - paths.start[0],
+            handle=handles,
+            event_ts=None if np.isnan(ts).all() else ts.astype(np.float64),
+        ).compact()
+        if self._chunks and self._chunks[-1].handle.size < max(MIN_CHUNK, self._size // CHUNKS):
+            chunk = self._chunks.pop().joined(chunk)
+        self._chunks.append(chunk)
+        self._size += ts.size
+
+    def expire_oldest(self, n: int) -> Expired:
+        """Remove the ``n`` oldest live baskets."""
+        out = []
+        while n > 0 and self._chunks:
+            chunk = self._chunks[0]
+            rows = np.flatnonzero(chunk.alive[self._head :])[:n] + self._head
+            out.append(chunk.kill(rows))
+            n -= rows.size
+            self._size -= rows.size
+            self._head = int(rows[-1]) + 1 if rows.size else self._head
+            if chunk.n_alive == 0:
+                self._chunks.popleft()
+                self._head = 0
+        return Expired.concat(out)
+
+    def expire_until(self, cutoff: float) -> Expired:
+        """Remove every basket with event time <= ``cutoff``."""
+        out = []
+        for chunk in self._chunks:
+            due = chunk.alive & (chunk.ts <= cutoff)
+            if due.any():
+                rows = np.flatnonzero(due)
+                out.append(chunk.kill(rows))
+                self._size -= rows.size
+        while self._chunks and self._chunks[0].n_alive == 0:
+            self._chunks.popleft()
+            self._head = 0
+        return Expired.concat(out)
+
+    def baskets_with(self, wanted: np.ndarray) -> BasketArrays:
+        """Live baskets holding at least one item whose entry in the boolean ``wanted`` is set.
+
+        O(items in the window), one compiled pass.
+        """
+        parts = []
+        for chunk in self._chunks:
+            rows = compiled(rows_holding)(chunk.items, chunk.start, chunk.alive, wanted)
+            if rows.size:
+                parts.append(chunk.baskets(rows))
+        return BasketArrays.concat(parts)
+
+    def contents(self) -> tuple[BasketArrays, np.ndarray]:
+        """All live baskets and their event times, oldest first."""
+        parts, ts = [], []
+        for chunk in self._chunks:
+            rows = np.flatnonzero(chunk.alive)
+            parts.append(chunk.baskets(rows))
+            ts.append(chunk.ts[rows])
+        return BasketArrays.concat(parts), np.concatenate(ts) if ts else np.empty(0)
+
+    def replace(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray) -> None:
+        """Replace the whole content (after the tree was rebuilt in a new item order)."""
+        self._chunks.clear()
+        self._head = 0
+        self._size = 0
+        self.append(paths, ts, handles)
+
+    @property
+    def nbytes(self) -> int:
+        """Memory held by the stored baskets."""
+        return sum(chunk.nbytes for chunk in self._chunks)

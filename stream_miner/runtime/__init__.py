@@ -1,0 +1,1 @@
+"""The live loop of `run`: records -> checks -> window -> ticks -> sinks, with checkpoints."""

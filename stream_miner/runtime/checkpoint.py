@@ -1,0 +1,333 @@
+"""Durable, versioned checkpoints of a :class:`WindowMiner` plus caller metadata (no pickle).
+
+A checkpoint is one ``checkpoint.npz`` file (``np.savez``; every array is numeric, so it
+loads with ``allow_pickle=False``) in a directory of the caller's choice:
+
+- ``header``: a JSON object as UTF-8 bytes (uint8 array): ``format`` (:data:`FORMAT`),
+  ``version`` (:data:`VERSION`), ``window`` (``{"kind": "count", "size": N}``,
+  ``{"kind": "time", "seconds": S}`` or ``{"kind": "unbounded"}``), ``policy``
+  (``max_items``, ``oversize``), ``verdicts`` (verdict value -> count), ``engine`` (tree
+  item order state) and ``metadata`` (the caller's dict, which must round-trip through
+  JSON exactly: offsets, consumed count, dedup state, tick number, ...);
+- ``names``: the vocabulary as a JSON list (UTF-8 bytes, uint8 array), index = item id;
+- ``items`` (int32), ``start`` (int64): the window's baskets, oldest first, in CSR form;
+- ``ts`` (float64): their event times, NaN when unknown;
+- ``newest_ts`` (float64, one value): the engine's newest event time (-inf when none);
+- ``rank`` (int64): the tree's item order, so a restored miner mines in the same order
+  (same itemset and rule ordering) and re-orders on the same schedule;
+- ``pending_items`` (int32), ``pending_start`` (int64), ``pending_ts`` (float64): baskets
+  accepted but not yet applied (the engine's buffer), in arrival order, already cleaned.
+
+Writes are atomic: a temporary file in the same directory is written, flushed and fsynced,
+then renamed onto ``checkpoint.npz`` with ``os.replace`` and the directory is fsynced. A
+crash at any point leaves either the previous checkpoint or the new one, never a partial
+file. Temporary files (``.checkpoint.npz.*.tmp``) are never read; stale ones left by a
+crash are removed by the next save. One writer per directory is assumed.
+
+Loading checks everything it reads and raises :class:`CheckpointError` (one line, naming
+the problem and the caller's start-fresh option) for a file that is not a readable npz,
+a truncated or inconsistent file, a foreign file, a newer format version, or a window /
+basket policy different from the one the caller runs with. It never resets silently.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import pathlib
+import zipfile
+from collections import Counter
+from typing import Any
+
+import numpy as np
+
+from stream_miner.engine.baskets import BasketArrays
+from stream_miner.engine.hygiene import BasketPolicy, Verdict
+from stream_miner.engine.miner import DEFAULT_BATCH, MinerState, WindowMiner
+from stream_miner.engine.window import CountWindow, TimeWindow
+from stream_miner.runtime.atomic_file import remove_stale_temporaries, replace_atomically
+
+FORMAT = "stream-miner-checkpoint"
+VERSION = 1
+CHECKPOINT_NAME = "checkpoint.npz"
+DEFAULT_FRESH_OPTION = "--fresh"
+_DEFAULT_POLICY = BasketPolicy()
+_KEYS = (
+    "header",
+    "names",
+    "items",
+    "start",
+    "ts",
+    "newest_ts",
+    "rank",
+    "pending_items",
+    "pending_start",
+    "pending_ts",
+)
+
+
+class CheckpointError(Exception):
+    """A checkpoint that cannot be used: corrupted, foreign, too new, or made with another
+    window or basket policy. The message is one line and names the start-fresh option."""
+
+
+# ---------------------------------------------------------------------------- save
+def save_checkpoint(directory: str | os.PathLike, miner: WindowMiner, metadata: dict) -> pathlib.Path:
+    """Write ``miner``'s window and ``metadata`` atomically to ``directory/checkpoint.npz``.
+
+    Read-only: the miner's buffered (not yet applied) baskets are saved as a buffer.
+    ``metadata`` must survive a JSON round trip unchanged (str keys; dict, list, str, int,
+    float, bool, None values; no NaN), else ValueError and nothing is written.
+    Returns the checkpoint's path.
+    """
+    if not isinstance(metadata, dict):
+        raise TypeError(f"metadata must be a dict, got {type(metadata).__name__}")
+    try:
+        metadata_json = json.dumps(metadata, allow_nan=False, ensure_ascii=True)
+    except (TypeError, ValueError) as error:
+        raise ValueError(f"checkpoint metadata is not plain JSON: {error}") from None
+    mismatch = _json_mismatch(json.loads(metadata_json), metadata)
+    if mismatch:
+        raise ValueError(f"checkpoint metadata must round-trip through JSON exactly: {mismatch}")
+
+    state = miner.state()  # read only: saving changes nothing in the miner
+    header = {
+        "format": FORMAT,
+        "version": VERSION,
+        "window": _window_config(miner.window),
+        "policy": _policy_config(miner.policy),
+        "verdicts": {str(Verdict(v).value): int(n) for v, n in state.verdicts.items() if n},
+        "engine": {"ranked": state.ranked, "applied_since_order": state.applied_since_order},
+        "metadata": json.loads(metadata_json),
+    }
+    arrays = {
+        "header": _json_bytes(header),
+        "names": _json_bytes(state.names),
+        "items": state.baskets.items.astype(np.int32),
+        "start": state.baskets.start.astype(np.int64),
+        "ts": np.asarray(state.ts, dtype=np.float64),
+        "newest_ts": np.array([state.newest_ts], dtype=np.float64),
+        "rank": state.rank.astype(np.int64),
+        "pending_items": state.pending.items.astype(np.int32),
+        "pending_start": state.pending.start.astype(np.int64),
+        "pending_ts": state.pending_ts,
+    }
+
+    directory = pathlib.Path(directory)
+    directory.mkdir(parents=True, exist_ok=True)
+    final = directory / CHECKPOINT_NAME
+    remove_stale_temporaries(final)
+    return replace_atomically(final, lambda handle: np.savez(handle, **arrays))  # type: ignore[arg-type]
+
+
+# ---------------------------------------------------------------------------- load
+def load_checkpoint(
+    directory: str | os.PathLike,
+    *,
+    window: CountWindow | TimeWindow | None,
+    policy: BasketPolicy = _DEFAULT_POLICY,
+    batch_size: int = DEFAULT_BATCH,
+    fresh_option: str = DEFAULT_FRESH_OPTION,
+) -> tuple[WindowMiner, dict] | None:
+    """Restore ``(miner, metadata)`` from ``directory/checkpoint.npz``; None when there is none.
+
+    ``window`` and ``policy`` must equal those the checkpoint was made with; ``fresh_option``
+    is the caller's option for discarding the checkpoint, quoted in every error message.
+    Raises :class:`CheckpointError` for anything unusable.
+    """
+    path = pathlib.Path(directory) / CHECKPOINT_NAME
+    if not path.exists():
+        return None
+
+    def fail(problem: str) -> CheckpointError:
+        return CheckpointError(
+            f"checkpoint {path}: {problem}; pass {fresh_option} to discard it and start from an empty window"
+        )
+
+    data = _read_arrays(path, fail)
+    if "header" not in data:
+        raise fail(f"foreign file, not a {FORMAT} (no header)")
+    header = _decode_json(data["header"], "header", fail)
+    if not isinstance(header, dict) or header.get("format") != FORMAT:
+        found = header.get("format") if isinstance(header, dict) else None
+        raise fail(f"foreign file, not a {FORMAT} (format {found!r})")
+    version = header.get("version")
+    if type(version) is not int or version < 1:
+        raise fail(f"corrupted: bad version {version!r}")
+    if version > VERSION:
+        raise fail(
+            f"incompatible: version {version} is newer than supported ({VERSION}), upgrade stream-miner"
+        )
+    missing = [key for key in _KEYS if key not in data]
+    missing += [key for key in ("window", "policy", "verdicts", "engine", "metadata") if key not in header]
+    if missing:
+        raise fail(f"corrupted: missing {', '.join(missing)}")
+
+    want_window, want_policy = _window_config(window), _policy_config(policy)
+    if header["window"] != want_window or header["policy"] != want_policy:
+        raise fail(
+            f"incompatible: made with window {_describe(header['window'])} and policy "
+            f"{_describe(header['policy'])}, but this run uses window {_describe(want_window)} "
+            f"and policy {_describe(want_policy)} (restart with the checkpoint's settings)"
+        )
+
+    state = _validate(data, header, window, policy, fail)
+    miner = WindowMiner.restored(MinerState(**state), window, policy, batch_size)
+    return miner, header["metadata"]
+
+
+def _read_arrays(path: pathlib.Path, fail) -> dict[str, np.ndarray]:
+    try:
+        loaded = np.load(path, allow_pickle=False)
+        if not isinstance(loaded, np.lib.npyio.NpzFile):
+            raise fail("foreign file, a single .npy array rather than a checkpoint")
+        with loaded as npz:
+            return {key: npz[key] for key in npz.files}
+    except CheckpointError:
+        raise
+    except (OSError, ValueError, EOFError, KeyError, zipfile.BadZipFile, zipfile.LargeZipFile) as error:
+        raise fail(
+            f"corrupted: not a readable npz file ({type(error).__name__}: {_one_line(error)})"
+        ) from None
+
+
+def _validate(data, header, window, policy, fail) -> dict[str, Any]:
+    """Check every array and header field; return the restore arguments."""
+    names = _decode_json(data["names"], "names", fail)
+    if not isinstance(names, list) or not all(isinstance(n, str) for n in names):
+        raise fail("corrupted: names are not a list of strings")
+    if len(set(names)) != len(names):
+        raise fail("corrupted: repeated item names")
+    if not isinstance(header["metadata"], dict):
+        raise fail("corrupted: metadata is not an object")
+
+    newest, rank = data["newest_ts"], data["rank"]
+    for key, array, kind in (("newest_ts", newest, "f"), ("rank", rank, "i")):
+        if array.ndim != 1 or array.dtype.kind not in kind:
+            raise fail(f"corrupted: array {key} has dtype {array.dtype} and shape {array.shape}")
+    if newest.size != 1 or math.isnan(float(newest[0])) or float(newest[0]) == math.inf:
+        raise fail("corrupted: bad newest event time")
+    newest_ts = float(newest[0])
+    baskets, ts = _baskets(data, "", len(names), policy, fail)
+    pending, pending_ts = _baskets(data, "pending_", len(names), policy, fail)
+    n = len(baskets)
+    if isinstance(window, CountWindow) and n > window.size:
+        raise fail(f"corrupted: {n} baskets in a window of {window.size}")
+    if isinstance(window, TimeWindow) and (np.isnan(ts).any() or np.isnan(pending_ts).any()):
+        raise fail("corrupted: a basket in a time window has no event time")
+
+    engine = header["engine"]
+    ranked = engine.get("ranked") if isinstance(engine, dict) else None
+    applied = engine.get("applied_since_order") if isinstance(engine, dict) else None
+    if type(ranked) is not bool or type(applied) is not int or applied < 0:
+        raise fail("corrupted: bad engine state")
+    if rank.size > len(names) or not np.array_equal(np.sort(rank), np.arange(rank.size)):
+        raise fail("corrupted: the item order is not a permutation")
+    if n and (not ranked or baskets.items.max() >= rank.size):
+        raise fail("corrupted: the item order does not cover the window's items")
+
+    verdicts = header["verdicts"]
+    if not isinstance(verdicts, dict):
+        raise fail("corrupted: bad verdict counters")
+    known = {v.value for v in Verdict}
+    counts: Counter[Verdict] = Counter()
+    for value, count in verdicts.items():
+        if value not in known or type(count) is not int or count < 0:
+            raise fail(f"corrupted: bad verdict counter {value!r}: {count!r}")
+        counts[Verdict(value)] = count
+    return {
+        "names": names,
+        "baskets": baskets,
+        "ts": ts,
+        "pending": pending,
+        "pending_ts": pending_ts,
+        "newest_ts": newest_ts,
+        "rank": rank.astype(np.int64),
+        "ranked": ranked,
+        "applied_since_order": applied,
+        "verdicts": counts,
+    }
+
+
+def _baskets(data, prefix: str, n_names: int, policy: BasketPolicy, fail) -> tuple[BasketArrays, np.ndarray]:
+    """The baskets stored under ``prefix`` (window or buffer), checked: non-empty, distinct
+    known items within the policy's size cap, one event time each."""
+    items, start, ts = data[f"{prefix}items"], data[f"{prefix}start"], data[f"{prefix}ts"]
+    for key, array, kind in (("items", items, "iu"), ("start", start, "i"), ("ts", ts, "f")):
+        if array.ndim != 1 or array.dtype.kind not in kind:
+            raise fail(f"corrupted: array {prefix}{key} has dtype {array.dtype} and shape {array.shape}")
+    if start.size < 1 or start[0] != 0 or start[-1] != items.size or (np.diff(start) < 1).any():
+        raise fail(f"corrupted: {prefix}start offsets are inconsistent")
+    if ts.size != start.size - 1:
+        raise fail(f"corrupted: {prefix}ts does not match the baskets")
+    if items.size and (items.min() < 0 or items.max() >= n_names):
+        raise fail(f"corrupted: an item id in {prefix}items lies outside the vocabulary")
+    baskets = BasketArrays.from_lengths(items.astype(np.int64), np.diff(start))
+    keys = np.sort((baskets.row_of_items() << 32) | baskets.items)
+    if (keys[1:] == keys[:-1]).any():
+        raise fail(f"corrupted: a basket in {prefix}items repeats an item")
+    if len(baskets) and int(baskets.lengths().max()) > policy.max_items:
+        raise fail(f"corrupted: a basket in {prefix}items is larger than the policy allows")
+    return baskets, ts.astype(np.float64)
+
+
+# ---------------------------------------------------------------------------- helpers
+def _window_config(window: CountWindow | TimeWindow | None) -> dict[str, Any]:
+    if isinstance(window, CountWindow):
+        return {"kind": "count", "size": int(window.size)}
+    if isinstance(window, TimeWindow):
+        return {"kind": "time", "seconds": float(window.seconds)}
+    if window is None:
+        return {"kind": "unbounded"}
+    raise TypeError(f"unsupported window {window!r}")
+
+
+def _policy_config(policy: BasketPolicy) -> dict[str, Any]:
+    return {"max_items": int(policy.max_items), "oversize": str(policy.oversize.value)}
+
+
+def _describe(config: Any) -> str:
+    if isinstance(config, dict):
+        return "(" + ", ".join(f"{k}={v}" for k, v in config.items()) + ")"
+    return repr(config)
+
+
+def _json_bytes(value: Any) -> np.ndarray:
+    text = json.dumps(value, ensure_ascii=True, allow_nan=False, separators=(",", ":"))
+    return np.frombuffer(text.encode("ascii"), dtype=np.uint8).copy()
+
+
+def _decode_json(array: np.ndarray, key: str, fail) -> Any:
+    if array.dtype != np.uint8 or array.ndim != 1:
+        raise fail(f"corrupted: {key} is not a byte string")
+    try:
+        return json.loads(array.tobytes().decode("utf-8"))
+    except (UnicodeDecodeError, ValueError):
+        raise fail(f"corrupted: {key} is not valid JSON") from None
+
+
+def _json_mismatch(loaded: Any, original: Any, where: str = "metadata") -> str | None:
+    """Where ``original`` differs from its JSON round trip ``loaded`` (same types all the
+    way down: a tuple is not a list, an int key is not a str key), or None."""
+    if type(loaded) is not type(original):
+        return f"{where} is a {type(original).__name__}, read back as a {type(loaded).__name__}"
+    if isinstance(original, dict):
+        if list(loaded) != list(original):
+            return f"{where} has non-str keys"
+        for key in original:
+            found = _json_mismatch(loaded[key], original[key], f"{where}[{key!r}]")
+            if found:
+                return found
+    elif isinstance(original, list):
+        for i, (x, y) in enumerate(zip(loaded, original, strict=True)):
+            found = _json_mismatch(x, y, f"{where}[{i}]")
+            if found:
+                return found
+    elif loaded != original:
+        return f"{where} changes value"
+    return None
+
+
+def _one_line(error: BaseException) -> str:
+    return " ".join(str(error).split())[:200]
