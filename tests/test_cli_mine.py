@@ -238,7 +238,7 @@ def test_console_script_stdin_needs_format():
 # ----------------------------------------------------------------------- window and ticks
 def test_window_keeps_only_the_last_n_baskets(capsys, tmp_path):
     path = write_fimi(tmp_path / "b.dat", BASKETS)
-    records, _ = run_json(capsys, path, "--window", 4, "--min-count", 2)
+    records, _ = run_json(capsys, path, "--window-size", 4, "--min-count", 2)
     last = BASKETS[-4:]
     assert itemsets_of(records) == frequent(last, 2)
     for record in records:
@@ -247,7 +247,7 @@ def test_window_keeps_only_the_last_n_baskets(capsys, tmp_path):
 
 def test_window_larger_than_input(capsys, tmp_path):
     path = write_fimi(tmp_path / "b.dat", BASKETS)
-    records, _ = run_json(capsys, path, "--window", 50, "--min-count", 2)
+    records, _ = run_json(capsys, path, "--window-size", 50, "--min-count", 2)
     assert itemsets_of(records) == frequent(BASKETS, 2)
 
 
@@ -261,9 +261,11 @@ def random_baskets(count, seed):
 def test_every_emits_ticks_over_the_right_windows(capsys, tmp_path, n, window, every):
     baskets = random_baskets(n, seed=n * 100 + window * 10 + every)
     path = write_fimi(tmp_path / "b.dat", baskets)
-    records, _ = run_json(capsys, path, "--window", window, "--every", every, "--min-support", "0.3")
-    # Emission after the window-th accepted basket, then every `every` more, plus a final one.
-    ends = list(range(window, n + 1, every))
+    records, _ = run_json(
+        capsys, path, "--window-size", window, "--tick-every", every, "--min-support", "0.3"
+    )
+    # A tick after every `every` accepted baskets from the start, plus a final one.
+    ends = list(range(every, n + 1, every))
     if not ends or ends[-1] != n:
         ends.append(n)
     by_tick = defaultdict(list)
@@ -279,16 +281,17 @@ def test_every_emits_ticks_over_the_right_windows(capsys, tmp_path, n, window, e
 
 
 def test_every_counts_only_accepted_baskets(capsys, tmp_path):
-    # Empty lines are not baskets: the 3 real baskets fill --window 2 at the 2nd, then tick
-    # again at the 3rd (every 1); the empty lines between them must not cause emissions.
+    # Empty lines are empty baskets, set aside and counted: only the 3 real baskets tick
+    # (every 1); the empty lines between them must not cause ticks.
     path = tmp_path / "b.dat"
     path.write_text("a b\n\n\na\n\nb c\n\n")
-    records, err = run_json(capsys, path, "--window", 2, "--every", 1, "--min-count", 1)
+    records, err = run_json(capsys, path, "--window-size", 2, "--tick-every", 1, "--min-count", 1)
     ticks = sorted({r["tick"] for r in records})
-    assert ticks == [0, 1]
-    assert itemsets_of([r for r in records if r["tick"] == 0]) == frequent([["a", "b"], ["a"]], 1)
-    assert itemsets_of([r for r in records if r["tick"] == 1]) == frequent([["a"], ["b", "c"]], 1)
-    assert "4 empty baskets skipped" in err
+    assert ticks == [0, 1, 2]
+    assert itemsets_of([r for r in records if r["tick"] == 0]) == frequent([["a", "b"]], 1)
+    assert itemsets_of([r for r in records if r["tick"] == 1]) == frequent([["a", "b"], ["a"]], 1)
+    assert itemsets_of([r for r in records if r["tick"] == 2]) == frequent([["a"], ["b", "c"]], 1)
+    assert "dead letters: empty basket 4" in err
 
 
 # ----------------------------------------------------------------------- thresholds
@@ -323,7 +326,7 @@ def test_min_count(capsys, tmp_path, min_count):
 
 
 def test_max_len(capsys, tmp_path):
-    records, _ = run_json(capsys, write_fimi(tmp_path / "b.dat", BASKETS), "--min-count", 1, "--max-len", 2)
+    records, _ = run_json(capsys, write_fimi(tmp_path / "b.dat", BASKETS), "--min-count", 1, "--max-size", 2)
     found = itemsets_of(records)
     assert found == frequent(BASKETS, 1, max_len=2)
     assert max(map(len, found)) == 2
@@ -521,24 +524,27 @@ def test_table_output_is_readable(capsys, tmp_path):
     expected = frequent(BASKETS, 2)
     rules = {k: r for k, r in all_rules(BASKETS, 2).items() if r["confidence"] >= Fraction(1, 2)}
     lines = [line.split() for line in out.splitlines()]
-    assert "window: 10 baskets, min count 2" in out
-    assert f"{len(expected)} frequent itemsets" in out
-    assert f"{len(rules)} rules" in out
+    assert "window of 10 baskets; an itemset needs 2" in out
+    assert f"frequent itemsets: {len(expected)}" in out
+    assert f"rules: {len(rules)}" in out
+    assert "confidence" in out and "conviction" in out and "leverage" in out
     for items, count in expected.items():
         row = [str(count), f"{count / 10:.4f}", *", ".join(items).split()]
         assert row in lines, items
-    assert sum("=>" in line for line in out.splitlines()) == len(rules)
-    assert "inf" in out  # {bread, tea} -> {milk} has confidence 1 (baskets 8 and 10)
+    assert sum(" -> " in line for line in out.splitlines()) == len(rules)
+    assert "bread + tea -> milk" in out
+    assert "infinite" in out  # {bread, tea} -> {milk} has confidence 1 (baskets 8 and 10)
     assert not out.lstrip().startswith("{")
 
 
 def test_table_output_shows_ticks(capsys, tmp_path):
-    code, out, _ = run(capsys, write_fimi(tmp_path / "b.dat", BASKETS), "--window", 4, "--every", 3)
-    # Ends at baskets 4, 7, 10: three ticks, each over a full window of 4.
+    code, out, _ = run(capsys, write_fimi(tmp_path / "b.dat", BASKETS), "--window-size", 4, "--tick-every", 3)
+    # Ends at baskets 3, 6, 9 and 10: four ticks, the first over 3 baskets, then full windows of 4.
     assert code == 0
     headings = [line for line in out.splitlines() if line.startswith("tick")]
-    assert [h.split()[1] for h in headings] == ["0", "1", "2"]
-    assert all("window: 4 baskets" in h for h in headings)
+    assert [h.split(":")[0] for h in headings] == ["tick 0", "tick 1", "tick 2", "tick 3"]
+    assert ["window of 3 baskets" in h for h in headings] == [True, False, False, False]
+    assert all("window of 4 baskets" in h for h in headings[1:])
 
 
 # ----------------------------------------------------------------------- hygiene
@@ -557,7 +563,7 @@ def test_oversized_baskets_skipped(capsys, tmp_path):
     records, err = run_json(capsys, path, "--min-count", 1, "--max-basket-items", 2)
     assert itemsets_of(records) == frequent([["a", "b"], ["b"]], 1)
     assert all(r["support"] == r["count"] / 2 for r in records)
-    assert "1 oversized baskets skipped" in err
+    assert "dead letters: basket too large 1" in err
 
 
 def test_oversized_baskets_truncated(capsys, tmp_path):
@@ -574,17 +580,17 @@ def test_oversized_baskets_truncated(capsys, tmp_path):
     "name, text",
     [
         ("b.dat", "a b\n\n   \na\n"),
-        # the blank line is not a basket at all, so only the two empty item lists are counted
+        # a blank JSON Lines line is not a record at all, so only the two empty item lists count
         ("b.jsonl", '{"items": ["a"]}\n{"items": []}\n\n{"items": ["a", "b"]}\n{"items": []}\n'),
     ],
 )
-def test_empty_baskets_are_skipped_and_reported(capsys, tmp_path, name, text):
+def test_empty_baskets_are_set_aside_and_reported(capsys, tmp_path, name, text):
     path = tmp_path / name
     path.write_text(text)
     records, err = run_json(capsys, path, "--min-count", 1)
     assert itemsets_of(records) == {("a",): 2, ("b",): 1, ("a", "b"): 1}
     assert all(r["support"] == r["count"] / 2 for r in records)
-    assert "2 empty baskets skipped" in err
+    assert "dead letters: empty basket 2" in err
 
 
 def test_clean_run_reports_nothing(capsys, tmp_path):
@@ -618,7 +624,7 @@ BAD_INPUTS = [
     ("not an object", ".jsonl", jsonl_with(b'["a", "b"]'), 2, "not a JSON object"),
     ("missing items", ".jsonl", jsonl_with(b'{"id": "x"}'), 2, "no items"),
     ("items not a list", ".jsonl", jsonl_with(b'{"items": "a b"}'), 2, "items not a list"),
-    ("non-string item", ".jsonl", jsonl_with(b'{"items": ["a", 3]}'), 2, "item not a string"),
+    ("non-string item", ".jsonl", jsonl_with(b'{"items": ["a", 3]}'), 2, "bad item"),
     ("bad id", ".jsonl", jsonl_with(b'{"items": ["a"], "id": 1.5}'), 2, "bad id"),
     ("bad ts text", ".jsonl", jsonl_with(b'{"items": ["a"], "ts": "yesterday"}'), 2, "bad event time"),
     ("bad ts bool", ".jsonl", jsonl_with(b'{"items": ["a"], "ts": true}'), 2, "bad event time"),
@@ -657,7 +663,7 @@ def test_bad_input_fails_by_default(capsys, tmp_path, suffix, content, line, rea
     assert out == ""
     assert len(err.strip().splitlines()) == 1
     assert f"line {line}: {reason}" in err
-    assert "--on-bad-input skip" in err
+    assert "--bad-records skip" in err
 
 
 @pytest.mark.parametrize(
@@ -666,24 +672,24 @@ def test_bad_input_fails_by_default(capsys, tmp_path, suffix, content, line, rea
 def test_bad_input_skipped_and_counted(capsys, tmp_path, suffix, content, line, reason):
     path = tmp_path / f"b{suffix}"
     path.write_bytes(content)
-    records, err = run_json(capsys, path, "--min-count", 1, "--on-bad-input", "skip")
+    records, err = run_json(capsys, path, "--min-count", 1, "--bad-records", "skip")
     assert itemsets_of(records) == frequent(GOOD, 1)
     assert all(r["support"] == r["count"] / 3 for r in records)
-    assert f"skipped 1 bad records ({reason} 1)" in err
+    assert f"dead letters: {reason} 1" in err
 
 
 def test_skip_summary_counts_each_reason(capsys, tmp_path):
     path = tmp_path / "b.jsonl"
     path.write_text('{"items": ["a"]}\nnope\n{"id": 1}\n{"items": ["a"]}\n{oops\n')
-    records, err = run_json(capsys, path, "--min-count", 1, "--on-bad-input", "skip")
+    records, err = run_json(capsys, path, "--min-count", 1, "--bad-records", "skip")
     assert itemsets_of(records) == {("a",): 2}
-    assert "skipped 3 bad records (invalid JSON 2, no items 1)" in err
+    assert "dead letters: invalid JSON 2, no items 1" in err
 
 
-@pytest.mark.parametrize("mode", ["fail", "skip"])
+@pytest.mark.parametrize("mode", ["stop", "skip"])
 def test_csv_missing_column_is_fatal(capsys, tmp_path, mode):
     path = write_csv(tmp_path / "b.csv", GOOD, id_column="order", item_column="product")
-    code, out, err = run(capsys, path, "--on-bad-input", mode)
+    code, out, err = run(capsys, path, "--bad-records", mode)
     assert code == 2
     assert out == ""
     assert "transaction_id" in err and "--csv-id-column" in err
@@ -693,8 +699,11 @@ def test_csv_missing_column_is_fatal(capsys, tmp_path, mode):
 @pytest.mark.parametrize(
     "option",
     [
+        ["--window-size", "0"],
+        ["--tick-every", "0"],
         ["--window", "0"],
-        ["--every", "0"],
+        ["--max-size", "0"],
+        ["--bad-records", "fail"],
         ["--min-support", "1.5"],
         ["--min-support", "abc"],
         ["--min-count", "0"],

@@ -7,7 +7,8 @@ import json
 from collections import Counter
 
 from stream_miner.connectors.dead_letters import RAW_TEXT_LIMIT, DeadLetterCounter, DeadLetterFile
-from stream_miner.decoding.messages import DeadLetter, MessageFormat, decode_message
+from stream_miner.decoding.messages import MessageFormat, decode_message
+from stream_miner.decoding.records import DeadLetter
 
 
 def letter(raw: bytes = b"\xff{oops", reason: str = "invalid UTF-8", **origin) -> DeadLetter:

@@ -7,8 +7,9 @@ import math
 
 import pytest
 
-from stream_miner.decoding.files import InputError, detect_format, parse_event_time, read_records
-from stream_miner.decoding.records import BadRecord, RawBasket
+from stream_miner.decoding.files import FileLayout, InputError, detect_format, read_records
+from stream_miner.decoding.messages import parse_event_time
+from stream_miner.decoding.records import Basket, DeadLetter
 
 # 2024-03-01T12:00:00Z by hand: 2024-01-01T00:00:00Z is 1704067200 (19723 days), then
 # January (31) and February (29, leap year) add 60 days, then 12 hours:
@@ -17,11 +18,22 @@ NOON_2024_03_01 = 1_704_067_200 + 60 * 86_400 + 12 * 3_600
 
 
 def records(data: bytes, fmt: str, **options) -> list:
-    return list(read_records(io.BytesIO(data), fmt, **options))
+    """(line, items, id, ts) of each basket, and the DeadLetter itself for each bad record."""
+    found = read_records(io.BytesIO(data), FileLayout(fmt, **options), "test")
+    return [
+        (r.offset, r.payload.items, r.payload.id, r.payload.ts)
+        if isinstance(r.payload, Basket)
+        else r.payload
+        for r in found
+    ]
+
+
+def basket(items, line, id=None, ts=None):
+    return (line, items, id, ts)
 
 
 def only_bad(found: list) -> list[tuple[int, str]]:
-    return [(r.line, r.reason) for r in found if isinstance(r, BadRecord)]
+    return [(r.offset, r.reason) for r in found if isinstance(r, DeadLetter)]
 
 
 # ----------------------------------------------------------------------- detection
@@ -53,39 +65,39 @@ def test_detect_format_unknown(path):
 
 def test_unknown_format_name():
     with pytest.raises(InputError, match="unknown format 'xml'"):
-        read_records(io.BytesIO(b""), "xml")
+        FileLayout("xml")
 
 
 # ----------------------------------------------------------------------- fimi
 def test_fimi_lines_and_numbers():
     found = records(b"a b\n\n  c\td  \ncaf\xc3\xa9 \xe6\x97\xa5\n", "fimi")
-    assert found == [
-        RawBasket(["a", "b"], line=1),
-        RawBasket([], line=2),  # an empty line is an empty basket
-        RawBasket(["c", "d"], line=3),
-        RawBasket(["café", "日"], line=4),
+    assert only_bad(found) == [(2, "empty basket")]  # an empty line is an empty basket
+    assert [f for f in found if not isinstance(f, DeadLetter)] == [
+        basket(["a", "b"], line=1),
+        basket(["c", "d"], line=3),
+        basket(["café", "日"], line=4),
     ]
 
 
 def test_fimi_crlf_and_missing_final_newline():
     found = records(b"a b\r\nc\r\n\r\nd e", "fimi")
-    assert found == [
-        RawBasket(["a", "b"], 1),
-        RawBasket(["c"], 2),
-        RawBasket([], 3),
-        RawBasket(["d", "e"], 4),
+    assert only_bad(found) == [(3, "empty basket")]
+    assert [f for f in found if not isinstance(f, DeadLetter)] == [
+        basket(["a", "b"], 1),
+        basket(["c"], 2),
+        basket(["d", "e"], 4),
     ]
 
 
 def test_fimi_invalid_utf8_is_a_bad_record():
     found = records(b"a\nb \xff c\nd\n", "fimi")
-    assert [r.line for r in found] == [1, 2, 3]
+    assert len(found) == 3
     bad = found[1]
-    assert isinstance(bad, BadRecord)
+    assert isinstance(bad, DeadLetter)
     assert bad.reason == "invalid UTF-8"
-    assert bad.raw == b"b \xff c\n"
+    assert bad.raw == b"b \xff c"
     assert bad.message().startswith("line 2: invalid UTF-8: ")
-    assert found[2] == RawBasket(["d"], 3)
+    assert found[2] == basket(["d"], 3)
 
 
 # ----------------------------------------------------------------------- jsonl
@@ -97,16 +109,17 @@ def test_jsonl_fields_and_line_numbers():
         b'{"id": "x", "items": ["b", "a", "b"], "ts": "2024-03-01T12:00:00Z"}\n'
         b'{"items": [], "id": null, "extra": {"k": 1}}\n'
     )
-    assert records(data, "jsonl") == [
-        RawBasket(["a"], line=1, id="7", ts=1.5),
-        RawBasket(["b", "a", "b"], line=4, id="x", ts=float(NOON_2024_03_01)),
-        RawBasket([], line=5),
+    found = records(data, "jsonl")
+    assert found[:2] == [
+        basket(["a"], line=1, id="7", ts=1.5),
+        basket(["b", "a"], line=4, id="x", ts=float(NOON_2024_03_01)),  # a repeat counts once
     ]
+    assert only_bad(found) == [(5, "empty basket")]
 
 
 def test_jsonl_crlf():
     data = b'{"items": ["a", "b"]}\r\n\r\n{"items": ["c"], "ts": 10}\r\n'
-    assert records(data, "jsonl") == [RawBasket(["a", "b"], 1), RawBasket(["c"], 3, ts=10.0)]
+    assert records(data, "jsonl") == [basket(["a", "b"], 1), basket(["c"], 3, ts=10.0)]
 
 
 BAD_JSONL = {
@@ -119,8 +132,8 @@ BAD_JSONL = {
     "null items": (b'{"items": null}', "no items"),
     "items string": (b'{"items": "a"}', "items not a list"),
     "items object": (b'{"items": {"a": 1}}', "items not a list"),
-    "number item": (b'{"items": ["a", 1]}', "item not a string"),
-    "null item": (b'{"items": ["a", null]}', "item not a string"),
+    "number item": (b'{"items": ["a", 1]}', "bad item"),
+    "null item": (b'{"items": ["a", null]}', "bad item"),
     "bool id": (b'{"items": ["a"], "id": true}', "bad id"),
     "list id": (b'{"items": ["a"], "id": [1]}', "bad id"),
     "ts text": (b'{"items": ["a"], "ts": "soon"}', "bad event time"),
@@ -135,10 +148,10 @@ BAD_JSONL = {
 @pytest.mark.parametrize("line, reason", BAD_JSONL.values(), ids=BAD_JSONL.keys())
 def test_jsonl_bad_records(line, reason):
     found = records(b'{"items": ["ok"]}\n' + line + b'\r\n{"items": ["ok"]}\n', "jsonl")
-    assert found[0] == RawBasket(["ok"], 1) and found[2] == RawBasket(["ok"], 3)
+    assert found[0] == basket(["ok"], 1) and found[2] == basket(["ok"], 3)
     bad = found[1]
-    assert isinstance(bad, BadRecord)
-    assert (bad.line, bad.reason) == (2, reason)
+    assert isinstance(bad, DeadLetter)
+    assert (bad.offset, bad.reason) == (2, reason)
     assert bad.raw.rstrip(b"\r\n") == line
     assert bad.message().startswith(f"line 2: {reason}: ")
 
@@ -147,16 +160,16 @@ def test_jsonl_bad_records(line, reason):
 def test_csv_groups_contiguous_rows():
     data = b'transaction_id,item\nT1,a\nT1,"salt, sea"\nT2,c\n7,a\n7,a\n'
     assert records(data, "csv") == [
-        RawBasket(["a", "salt, sea"], line=2, id="T1"),
-        RawBasket(["c"], line=4, id="T2"),
-        RawBasket(["a", "a"], line=5, id="7"),  # repeats are kept here; hygiene removes them later
+        basket(["a", "salt, sea"], line=2, id="T1"),
+        basket(["c"], line=4, id="T2"),
+        basket(["a"], line=5, id="7"),  # a repeated item counts once
     ]
 
 
 def test_csv_crlf_and_custom_columns():
     data = b"qty,product,order\r\n1,tea,o1\r\n2,jam,o1\r\n1,scone,o2\r\n"
     found = records(data, "csv", csv_id_column="order", csv_item_column="product")
-    assert found == [RawBasket(["tea", "jam"], line=2, id="o1"), RawBasket(["scone"], line=4, id="o2")]
+    assert found == [basket(["tea", "jam"], line=2, id="o1"), basket(["scone"], line=4, id="o2")]
 
 
 def test_csv_bad_rows_keep_their_line_and_do_not_break_grouping():
@@ -178,10 +191,10 @@ def test_csv_bad_rows_keep_their_line_and_do_not_break_grouping():
         (5, "invalid UTF-8"),
         (8, "transaction not contiguous"),
     ]
-    assert [r for r in found if isinstance(r, RawBasket)] == [
-        RawBasket(["a", "c"], line=2, id="T1"),
-        RawBasket(["d"], line=7, id="T2"),
-        RawBasket(["f"], line=9, id="T3"),
+    assert [r for r in found if not isinstance(r, DeadLetter)] == [
+        basket(["a", "c"], line=2, id="T1"),
+        basket(["d"], line=7, id="T2"),
+        basket(["f"], line=9, id="T3"),
     ]
 
 
@@ -255,12 +268,12 @@ def test_parse_event_time_rejects(value):
 
 def test_byte_order_mark_is_not_part_of_the_data():
     bom = b"\xef\xbb\xbf"
-    assert records(bom + b"tea scone\n", "fimi")[0].items == ["tea", "scone"]
-    assert records(bom + b'{"items": ["tea"]}\n', "jsonl")[0].items == ["tea"]
+    assert records(bom + b"tea scone\n", "fimi") == [basket(["tea", "scone"], 1)]
+    assert records(bom + b'{"items": ["tea"]}\n', "jsonl") == [basket(["tea"], 1)]
     found = records(bom + b"transaction_id,item\nt1,tea\n", "csv")
-    assert found == [RawBasket(items=["tea"], line=2, id="t1")]
+    assert found == [basket(["tea"], line=2, id="t1")]
 
 
 def test_csv_blank_lines_are_ignored():
     found = records(b"transaction_id,item\nt1,tea\n\nt1,jam\n\n", "csv")
-    assert found == [RawBasket(items=["tea", "jam"], line=2, id="t1")]
+    assert found == [basket(["tea", "jam"], line=2, id="t1")]

@@ -1,41 +1,121 @@
-"""Command-line options shared by ``mine`` and ``run``, and their parsers."""
+"""Command-line options shared by ``mine`` and ``run``, their value parsers, and the objects
+they describe (file layout, message format, basket policy, mining parameters, run settings)."""
 
 from __future__ import annotations
 
 import argparse
 import re
+import sys
+from collections.abc import Sequence
 from fractions import Fraction
+from typing import Any
 
+from stream_miner.decoding.files import FORMATS, FileLayout
+from stream_miner.decoding.messages import TIME_UNITS, MessageFormat
 from stream_miner.engine.hygiene import DEFAULT_MAX_BASKET_ITEMS, BasketPolicy, Oversize
+from stream_miner.engine.limits import DEFAULT_MAX_ITEMSETS
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.rules import RANK_MEASURES, RuleFilter
+from stream_miner.engine.window import CountWindow, TimeWindow
 
 
 class UsageError(ValueError):
     """Options that do not fit together."""
 
 
-def add_hygiene_options(group: argparse._ArgumentGroup) -> None:
-    """Basket size cap options."""
+class DeprecatedAlias(argparse.Action):
+    """An old option name kept for one release: hidden from --help, it stores like the new
+    name and prints a one-line note naming it."""
+
+    def __init__(self, option_strings: Sequence[str], dest: str, *, new: str, values_map=None, **kwargs):
+        self.new = new
+        self.values_map = values_map or {}
+        kwargs.setdefault("help", argparse.SUPPRESS)
+        super().__init__(option_strings, dest, **kwargs)
+
+    def __call__(self, parser, namespace, values, option_string=None) -> None:
+        print(f"stream-miner: note: {option_string} is deprecated, use {self.new}", file=sys.stderr)
+        if self.nargs == 0:
+            values = self.const
+        setattr(namespace, self.dest, self.values_map.get(values, values))
+
+
+def add_input_options(group: argparse._ArgumentGroup, *, format_default: str | None) -> None:
+    """How records are laid out: file format, CSV columns, JSON message fields, size limits."""
+    default = f"(default: {format_default})" if format_default else "(default: from the file name)"
+    group.add_argument("--format", choices=FORMATS, default=format_default, help=f"record format {default}")
+    group.add_argument("--csv-id-column", default="transaction_id", help="CSV transaction-id column")
+    group.add_argument("--csv-item-column", default="item", help="CSV item column")
+    group.add_argument("--id-field", default="id", help="JSON field holding the basket id (default: id)")
+    group.add_argument("--time-field", default="ts", help="JSON field holding the event time (default: ts)")
+    group.add_argument("--items-field", default="items", help="JSON field holding the items (default: items)")
+    group.add_argument(
+        "--item-key", default="sku", help="key naming an item given as a JSON object (default: sku)"
+    )
+    group.add_argument(
+        "--segment-field", help="JSON field holding a segment label (checked, kept with the basket)"
+    )
+    group.add_argument(
+        "--time-unit",
+        choices=TIME_UNITS,
+        default="auto",
+        help="unit of numeric event times (default: auto, numbers above 1e11 are milliseconds)",
+    )
+    group.add_argument(
+        "--max-message-bytes",
+        type=positive_int,
+        default=1_000_000,
+        metavar="N",
+        help="longer messages or lines are set aside (default: 1000000)",
+    )
     group.add_argument(
         "--max-basket-items",
         type=positive_int,
         default=DEFAULT_MAX_BASKET_ITEMS,
-        help="baskets with more distinct items are skipped or truncated (default: "
-        f"{DEFAULT_MAX_BASKET_ITEMS})",
+        metavar="N",
+        help="baskets with more distinct items are set aside or truncated "
+        f"(default: {DEFAULT_MAX_BASKET_ITEMS})",
     )
     group.add_argument(
         "--oversize",
         choices=[o.value for o in Oversize],
         default=Oversize.SKIP.value,
-        help="what to do with oversized baskets (default: skip; both are counted)",
+        help="set oversized baskets aside (skip) or keep their first items (truncate); both are counted",
     )
+
+
+def add_window_options(parser: argparse.ArgumentParser, *, wall_clock: bool) -> argparse._ArgumentGroup:
+    """Window and tick options (``wall_clock``: also --tick-interval)."""
+    window = parser.add_argument_group("window and ticks")
+    size = window.add_mutually_exclusive_group()
+    size.add_argument("--window-size", type=positive_int, metavar="N", help="the last N baskets")
+    size.add_argument(
+        "--window-time", type=duration, metavar="DURATION", help="the last DURATION of event time"
+    )
+    window.add_argument(
+        "--allowed-lateness",
+        type=duration,
+        default=0.0,
+        metavar="DURATION",
+        help="how late (in event time) a basket may arrive and still count (default: 0)",
+    )
+    window.add_argument(
+        "--late",
+        choices=("dead-letter", "drop"),
+        default="dead-letter",
+        help="what happens to baskets later than that (always counted)",
+    )
+    tick = window.add_mutually_exclusive_group()
+    tick.add_argument("--tick-every", type=positive_int, metavar="N", help="refresh after every N baskets")
+    if wall_clock:
+        tick.add_argument("--tick-interval", type=duration, metavar="DURATION", help="refresh every DURATION")
+    return window
 
 
 def add_mining_options(parser: argparse.ArgumentParser) -> None:
     """Itemset and rule options."""
-    thr = parser.add_argument_group("itemsets")
-    support = thr.add_mutually_exclusive_group()
+    found = parser.add_argument_group("itemsets")
+    support = found.add_mutually_exclusive_group()
     support.add_argument(
         "--min-support",
         type=fraction,
@@ -45,11 +125,22 @@ def add_mining_options(parser: argparse.ArgumentParser) -> None:
     support.add_argument(
         "--min-count", type=positive_int, metavar="C", help="minimum support as a basket count"
     )
-    thr.add_argument("--max-len", type=positive_int, metavar="L", help="longest itemset to report")
-    thr.add_argument(
+    found.add_argument("--max-size", type=positive_int, metavar="K", help="largest itemset size to report")
+    found.add_argument(
+        "--max-len", type=positive_int, action=DeprecatedAlias, new="--max-size", dest="max_size"
+    )
+    found.add_argument(
+        "--max-itemsets",
+        type=positive_int,
+        default=DEFAULT_MAX_ITEMSETS,
+        metavar="N",
+        help="stop with an error when a window holds more frequent itemsets "
+        f"(default: {DEFAULT_MAX_ITEMSETS:,})",
+    )
+    found.add_argument(
         "--include", action="append", metavar="ITEM", help="only these items may appear (repeatable)"
     )
-    thr.add_argument(
+    found.add_argument(
         "--exclude", action="append", default=[], metavar="ITEM", help="these items never appear (repeatable)"
     )
     rules = parser.add_argument_group("rules")
@@ -80,9 +171,32 @@ def add_mining_options(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def file_layout(args: argparse.Namespace, fmt: str) -> FileLayout:
+    """The record layout the options ask for."""
+    message = MessageFormat(
+        id_field=args.id_field,
+        time_field=args.time_field,
+        items_field=args.items_field,
+        segment_field=args.segment_field,
+        item_key=args.item_key,
+        time_unit=args.time_unit,
+        max_message_bytes=args.max_message_bytes,
+    )
+    return FileLayout(fmt, message, args.csv_id_column, args.csv_item_column)
+
+
 def basket_policy(args: argparse.Namespace) -> BasketPolicy:
     """The basket policy the options ask for."""
     return BasketPolicy(args.max_basket_items, Oversize(args.oversize))
+
+
+def window_of(args: argparse.Namespace) -> CountWindow | TimeWindow | None:
+    """The window the options ask for (None: every basket of the input)."""
+    if args.window_size is not None:
+        return CountWindow(args.window_size)
+    if args.window_time is not None:
+        return TimeWindow(args.window_time)
+    return None
 
 
 def mining_params(args: argparse.Namespace) -> MiningParams:
@@ -110,7 +224,8 @@ def mining_params(args: argparse.Namespace) -> MiningParams:
     return MiningParams(
         min_support=min_support,
         min_count=args.min_count,
-        max_len=args.max_len,
+        max_size=args.max_size,
+        max_itemsets=args.max_itemsets,
         include=None if args.include is None else frozenset(args.include),
         exclude=frozenset(args.exclude),
         rules=rules,
@@ -132,6 +247,7 @@ def rule_filter(args: argparse.Namespace) -> RuleFilter:
 
 
 def positive_int(text: str) -> int:
+    """A whole number of at least 1."""
     try:
         value = int(text)
     except ValueError:
@@ -142,6 +258,7 @@ def positive_int(text: str) -> int:
 
 
 def fraction(text: str) -> Fraction:
+    """An exact number between 0 and 1 (``0.07``, ``7/100``)."""
     value = non_negative_fraction(text)
     if value > 1:
         raise argparse.ArgumentTypeError(f"{text!r} must lie between 0 and 1")
@@ -149,6 +266,7 @@ def fraction(text: str) -> Fraction:
 
 
 def non_negative_fraction(text: str) -> Fraction:
+    """An exact non-negative number."""
     try:
         value = Fraction(text.strip())
     except (ValueError, ZeroDivisionError):
@@ -162,7 +280,7 @@ _DURATION = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*(ms|s|m|h|d)?\s*$")
 _UNIT_SECONDS = {"ms": 0.001, "s": 1.0, None: 1.0, "m": 60.0, "h": 3600.0, "d": 86400.0}
 
 
-def duration(text: str) -> float:
+def duration(text: Any) -> float:
     """Seconds from ``250ms``, ``30s``, ``5m``, ``2h``, ``1d`` or a plain number of seconds."""
     match = _DURATION.match(str(text))
     if not match:

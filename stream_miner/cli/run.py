@@ -1,33 +1,32 @@
-"""The ``stream-miner run`` command: the long-running service over a stream of checkouts."""
+"""The ``run`` command: the long-running service over a stream of checkouts."""
 
 from __future__ import annotations
 
 import argparse
-import signal
 import sys
+import threading
 import tomllib
 from pathlib import Path
 from typing import Any
 
 from stream_miner.cli.options import (
     UsageError,
-    add_hygiene_options,
+    add_input_options,
     add_mining_options,
+    add_window_options,
     basket_policy,
     duration,
+    file_layout,
     mining_params,
-    positive_int,
+    window_of,
 )
+from stream_miner.cli.paths import check_directory, check_output_file
+from stream_miner.cli.reporting import SnapshotWriter, TickLine
+from stream_miner.cli.signals import stop_on_signals
 from stream_miner.connectors.dead_letters import DeadLetterCounter, DeadLetterFile
 from stream_miner.connectors.file_source import FileSource
-from stream_miner.connectors.kafka_source import KafkaSource, client_options
-from stream_miner.connectors.sinks import KafkaDeadLetters
-from stream_miner.decoding.messages import TIME_UNITS, MessageFormat
-from stream_miner.engine.window import CountWindow, TimeWindow
-from stream_miner.runtime.checkpoint import CheckpointError
+from stream_miner.runtime.protocols import DeadLetterSink, Source, TickListener
 from stream_miner.runtime.runner import Runner, RunSettings
-
-FILE_FORMATS = ("jsonl", "fimi", "csv")
 
 
 def add_run_parser(commands: argparse._SubParsersAction) -> None:
@@ -50,53 +49,25 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
         action="append",
         default=[],
         metavar="KEY=VALUE",
-        help="any kafka-python client option (repeatable); VALUE env:NAME reads it "
-        "from the environment variable NAME",
-    )
-    source.add_argument(
-        "--format", choices=FILE_FORMATS, default="jsonl", help="record format (default: jsonl)"
+        help="any kafka-python client option (repeatable); VALUE env:NAME reads it from the "
+        "environment variable NAME",
     )
     source.add_argument("--follow", action="store_true", help="keep reading as the file grows")
     source.add_argument(
         "--pace", type=float, metavar="PER_SECOND", help="replay at most this many records a second"
     )
-    source.add_argument("--csv-id-column", default="transaction_id", help="CSV transaction-id column")
-    source.add_argument("--csv-item-column", default="item", help="CSV item column")
-    fields = run.add_argument_group("messages (JSON)")
-    fields.add_argument("--id-field", default="id")
-    fields.add_argument("--time-field", default="ts")
-    fields.add_argument("--items-field", default="items")
-    fields.add_argument("--item-key", default="sku", help="key naming an item given as an object")
-    fields.add_argument("--segment-field")
-    fields.add_argument("--time-unit", choices=TIME_UNITS, default="auto", help="unit of numeric event times")
-    fields.add_argument("--max-message-bytes", type=positive_int, default=1_000_000)
-    add_hygiene_options(fields)
-    window = run.add_argument_group("window and ticks")
-    size = window.add_mutually_exclusive_group()
-    size.add_argument("--window-size", type=positive_int, metavar="N", help="the last N baskets")
-    size.add_argument(
-        "--window-time", type=duration, metavar="DURATION", help="the last DURATION of event time"
-    )
-    window.add_argument(
-        "--allowed-lateness",
-        type=duration,
-        default=0.0,
-        metavar="DURATION",
-        help="how late (in event time) a basket may arrive and still count",
-    )
-    window.add_argument(
-        "--late",
-        choices=("dead-letter", "drop"),
-        default="dead-letter",
-        help="what happens to baskets later than that (always counted)",
-    )
-    tick = window.add_mutually_exclusive_group()
-    tick.add_argument("--tick-every", type=positive_int, metavar="N", help="refresh after every N baskets")
-    tick.add_argument("--tick-interval", type=duration, metavar="DURATION", help="refresh every DURATION")
+    add_input_options(run.add_argument_group("records"), format_default="jsonl")
+    add_window_options(run, wall_clock=True)
     add_mining_options(run)
     state = run.add_argument_group("state and output")
     state.add_argument("--checkpoint-dir", type=Path, metavar="DIR", help="where checkpoints are kept")
-    state.add_argument("--checkpoint-interval", type=duration, default=30.0, metavar="DURATION")
+    state.add_argument(
+        "--checkpoint-interval",
+        type=duration,
+        default=30.0,
+        metavar="DURATION",
+        help="checkpoint at the first tick after this much wall-clock time (default: 30s)",
+    )
     state.add_argument(
         "--start-fresh", action="store_true", help="ignore (and later replace) an existing checkpoint"
     )
@@ -104,9 +75,10 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
     state.add_argument(
         "--dead-letter-out",
         metavar="PATH_OR_KAFKA",
-        help="append bad records to this JSON Lines file, or send them to "
-        "kafka://HOST:PORT/TOPIC (default: count and report them)",
+        help="append bad records to this JSON Lines file, or send them to kafka://HOST:PORT/TOPIC "
+        "(default: count and report them)",
     )
+    state.add_argument("--quiet", action="store_true", help="no line per tick on stderr")
 
 
 def apply_config(parser: argparse.ArgumentParser, argv: list[str]) -> None:
@@ -123,59 +95,51 @@ def apply_config(parser: argparse.ArgumentParser, argv: list[str]) -> None:
         raise UsageError(f"cannot read config {path!r}: {error.strerror}") from None
     except tomllib.TOMLDecodeError as error:
         raise UsageError(f"config {path!r} is not valid TOML: {error}") from None
-    known = {action.dest: action for action in parser._actions}
+    known = {
+        option.removeprefix("--"): action for action in parser._actions for option in action.option_strings
+    }
     defaults: dict[str, Any] = {}
     for key, value in values.items():
-        dest = key.replace("-", "_")
-        action = known.get(dest)
-        if action is None or dest in ("help", "config"):
+        action = known.get(key.replace("_", "-"))
+        if action is None or action.dest in ("help", "config"):
             raise UsageError(f"config {path!r}: unknown option {key!r}")
         if isinstance(value, list):
-            defaults[dest] = [str(v) for v in value]
+            defaults[action.dest] = [str(v) for v in value]
         elif isinstance(value, bool) or action.type is None:
-            defaults[dest] = value
+            defaults[action.dest] = value
         else:
-            defaults[dest] = str(value)  # argparse converts string defaults with the option's type
+            defaults[action.dest] = str(value)  # argparse converts string defaults with the option's type
     parser.set_defaults(**defaults)
 
 
 def run_run(args: argparse.Namespace) -> int:
     """The ``run`` command."""
     settings = _settings(args)
-    message_format = MessageFormat(
-        id_field=args.id_field,
-        time_field=args.time_field,
-        items_field=args.items_field,
-        segment_field=args.segment_field,
-        item_key=args.item_key,
-        time_unit=args.time_unit,
-        max_message_bytes=args.max_message_bytes,
-        # oversized baskets become dead letters when skipped; truncation is the hygiene's job
-        max_items=args.max_basket_items if args.oversize == "skip" else 1 << 30,
-    )
-    source = _source(args, message_format)
-    dead_letters = _dead_letters(args)
-    runner = Runner(settings, source, dead_letters)
-    previous = {sig: signal.signal(sig, lambda *_: runner.stop()) for sig in (signal.SIGTERM, signal.SIGINT)}
-    try:
-        return runner.run()
-    except CheckpointError as error:
-        print(f"stream-miner: error: {error}", file=sys.stderr)
-        return 2
-    finally:
-        for sig, handler in previous.items():
-            signal.signal(sig, handler)
-        source.close()
-        dead_letters.close()
-
-
-def _dead_letters(args: argparse.Namespace) -> DeadLetterCounter | KafkaDeadLetters:
-    target = args.dead_letter_out
-    if target is None:
-        return DeadLetterCounter()
-    if target.startswith("kafka://"):
-        return KafkaDeadLetters(target, client_options(args.kafka_option))
-    return DeadLetterFile(target)
+    _check_outputs(args)
+    stop = threading.Event()
+    with stop_on_signals(stop.set):
+        source = _source(args, stop)
+        if source is None:
+            return 0  # stopped while waiting for the source
+        try:
+            dead_letters = _dead_letters(args)
+        except BaseException:
+            source.close()
+            raise
+        listeners: list[TickListener] = []
+        if args.snapshot_out is not None:
+            listeners.append(SnapshotWriter(args.snapshot_out))
+        if not args.quiet:
+            listeners.append(TickLine(sys.stderr))
+        runner = Runner(settings, source, dead_letters, listeners)
+        if stop.is_set():
+            runner.stop()
+        try:
+            with stop_on_signals(runner.stop):
+                return runner.run()
+        finally:
+            source.close()
+            dead_letters.close()
 
 
 def _settings(args: argparse.Namespace) -> RunSettings:
@@ -185,9 +149,8 @@ def _settings(args: argparse.Namespace) -> RunSettings:
         raise UsageError("give --window-size N or --window-time DURATION")
     if args.tick_every is None and args.tick_interval is None:
         raise UsageError("give --tick-every N or --tick-interval DURATION")
-    window = CountWindow(args.window_size) if args.window_size else TimeWindow(args.window_time)
     return RunSettings(
-        window=window,
+        window=window_of(args),
         params=mining_params(args),
         policy=basket_policy(args),
         allowed_lateness=args.allowed_lateness,
@@ -197,24 +160,49 @@ def _settings(args: argparse.Namespace) -> RunSettings:
         checkpoint_dir=args.checkpoint_dir,
         checkpoint_interval=args.checkpoint_interval,
         start_fresh=args.start_fresh,
-        snapshot_out=args.snapshot_out,
     )
 
 
-def _source(args: argparse.Namespace, message_format: MessageFormat) -> FileSource | KafkaSource:
+def _check_outputs(args: argparse.Namespace) -> None:
+    """Every output path can be written, before anything is read."""
+    if args.snapshot_out is not None:
+        check_output_file(args.snapshot_out, "--snapshot-out")
+    if args.checkpoint_dir is not None:
+        check_directory(args.checkpoint_dir, "--checkpoint-dir")
+    target = args.dead_letter_out
+    if target is not None and not target.startswith("kafka://"):
+        check_output_file(Path(target), "--dead-letter-out")
+
+
+def _dead_letters(args: argparse.Namespace) -> DeadLetterSink:
+    target = args.dead_letter_out
+    if target is None:
+        return DeadLetterCounter()
+    if target.startswith("kafka://"):
+        from stream_miner.connectors.kafka_source import client_options  # Kafka only when asked for
+        from stream_miner.connectors.sinks import KafkaDeadLetters
+
+        return KafkaDeadLetters(target, client_options(args.kafka_option))
+    try:
+        return DeadLetterFile(target)
+    except OSError as error:
+        raise UsageError(f"--dead-letter-out {target!r}: cannot open it ({error.strerror})") from None
+
+
+def _source(args: argparse.Namespace, stop: threading.Event) -> Source | None:
+    """The source the options name; None when stopped while waiting for it to answer."""
     spec = args.source
     if spec.startswith("kafka://"):
         if not args.group:
             raise UsageError("a Kafka source needs --group")
-        return KafkaSource(spec, args.group, message_format, client_options(args.kafka_option))
+        from stream_miner.connectors.kafka_source import KafkaSource, SourceStopped, client_options
+
+        message = file_layout(args, "jsonl").message
+        try:
+            return KafkaSource(spec, args.group, message, client_options(args.kafka_option), stop=stop)
+        except SourceStopped:
+            return None
     if spec == "-" or spec.startswith("file:"):
-        return FileSource(
-            "-" if spec == "-" else spec.removeprefix("file:"),
-            args.format,
-            message_format,
-            follow=args.follow,
-            pace=args.pace,
-            csv_id_column=args.csv_id_column,
-            csv_item_column=args.csv_item_column,
-        )
+        path = "-" if spec == "-" else spec.removeprefix("file:")
+        return FileSource(path, file_layout(args, args.format), follow=args.follow, pace=args.pace)
     raise UsageError(f"unsupported --source {spec!r}: use kafka://HOST:PORT/TOPIC, file:PATH or -")

@@ -16,7 +16,7 @@ import os
 from collections import Counter
 from typing import Self
 
-from stream_miner.decoding.messages import DeadLetter
+from stream_miner.decoding.records import DeadLetter
 
 RAW_TEXT_LIMIT = 1000
 

@@ -22,21 +22,24 @@
 from __future__ import annotations
 
 import os
+import socket
 import sys
 import threading
 from collections.abc import Callable
-from typing import TypeVar
+from typing import TextIO, TypeVar
 
 from kafka import KafkaConsumer, KafkaProducer, OffsetAndMetadata, TopicPartition
 from kafka.consumer.subscription_state import AsyncConsumerRebalanceListener
 from kafka.errors import KafkaError
 
-from stream_miner.connectors.file_source import SourceRecord
 from stream_miner.decoding.files import InputError
-from stream_miner.decoding.messages import DeadLetter, MessageFormat, decode_message
+from stream_miner.decoding.messages import MessageFormat, decode_message
+from stream_miner.decoding.records import DeadLetter, SourceRecord
 
 T = TypeVar("T")
 DEFAULTS = {"enable_auto_commit": False, "auto_offset_reset": "earliest", "max_poll_records": 500}
+RETRY_FIRST, RETRY_MAX = 1.0, 30.0  # seconds between attempts to reach the brokers
+CONNECT_TIMEOUT = 3.0  # seconds for one TCP connection attempt
 
 
 def parse_kafka_url(url: str) -> tuple[str, str]:
@@ -80,11 +83,56 @@ def _typed(value: str) -> object:
         return value
 
 
+class SourceStopped(Exception):
+    """The source was asked to stop before it could be reached."""
+
+
+def _connect(servers: str, make: Callable[[], T], stop: threading.Event, log: TextIO) -> T:
+    """``make()`` once a bootstrap server answers; until then one line per attempt says why
+    not, and the wait before the next attempt doubles up to ``RETRY_MAX`` seconds. Raises
+    :class:`SourceStopped` when ``stop`` is set meanwhile."""
+    delay = RETRY_FIRST
+    while True:
+        problem = _unreachable(servers)
+        if problem is None:
+            try:
+                return make()
+            except KafkaError as error:
+                problem = f"{type(error).__name__}: {error}"
+        print(f"stream-miner: cannot reach Kafka at {servers} ({problem}); retrying in {delay:g} s",
+              file=log, flush=True)
+        if stop.wait(delay):
+            raise SourceStopped
+        delay = min(2 * delay, RETRY_MAX)
+
+
+def _unreachable(servers: str) -> str | None:
+    """None when some bootstrap server accepts a TCP connection, else why none did."""
+    problems = []
+    for server in servers.split(","):
+        host, _, port = server.strip().rpartition(":")
+        try:
+            socket.create_connection((host.strip("[]") or "localhost", int(port)), timeout=CONNECT_TIMEOUT).close()
+            return None
+        except ValueError:
+            problems.append(f"{server}: no port")
+        except OSError as error:
+            problems.append(f"{server}: {error.strerror or type(error).__name__}")
+    return "; ".join(problems)
+
+
 class KafkaSource(AsyncConsumerRebalanceListener):
     """Reads one topic as a member of a consumer group."""
 
     def __init__(
-        self, url: str, group: str, message_format: MessageFormat, options: dict[str, object] | None = None
+        self,
+        url: str,
+        group: str,
+        message_format: MessageFormat,
+        options: dict[str, object] | None = None,
+        *,
+        stop: threading.Event | None = None,
+        log: TextIO = sys.stderr,
     ) -> None:
         servers, self.topic = parse_kafka_url(url)
         self.name = f"kafka:{self.topic}"
@@ -92,9 +140,11 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self._checkpointed: dict[int, int] = {}
         self.revoke_handler: Callable[[], dict[int, int]] | None = None
         self._backlog: list[SourceRecord] = []
+        self._next_offsets: dict[int, int] = {}  # per partition, after the last record read
         settings = DEFAULTS | {k: v for k, v in (options or {}).items() if k in KafkaConsumer.DEFAULT_CONFIG}
         self._max_records = int(settings.get("max_poll_records", 500))  # type: ignore[call-overload]
-        self._consumer = KafkaConsumer(bootstrap_servers=servers, group_id=group, **settings)
+        self._consumer = _connect(servers, lambda: KafkaConsumer(bootstrap_servers=servers, group_id=group, **settings),
+                                  stop or threading.Event(), log)
         self._consumer.subscribe([self.topic], listener=self)
 
     # ------------------------------------------------------------- rebalances
@@ -164,6 +214,9 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         return outcome["value"]  # type: ignore[return-value]
 
     def _records(self, batches: dict) -> list[SourceRecord]:
+        for tp, messages in batches.items():
+            if messages:
+                self._next_offsets[tp.partition] = messages[-1].offset + 1
         return [
             SourceRecord(
                 self._decode(message.value, tp.partition, message.offset), tp.partition, message.offset
@@ -174,6 +227,17 @@ class KafkaSource(AsyncConsumerRebalanceListener):
 
     def exhausted(self) -> bool:
         return False  # a topic has no end; stop with SIGTERM
+
+    def position(self) -> str | None:
+        """How far this member is behind the newest messages of its partitions (as of the
+        last fetch)."""
+        lag = 0
+        for tp in self._consumer.assignment():
+            newest = self._consumer.highwater(tp)
+            if newest is None:
+                return None
+            lag += max(0, newest - self._next_offsets.get(tp.partition, newest))
+        return f"{lag:,} messages behind"
 
     def commit(self, positions: dict[int, int]) -> None:
         """Commit next offsets of the partitions this member still owns."""

@@ -17,7 +17,7 @@ from typing import TextIO
 from kafka import KafkaProducer
 
 from stream_miner.connectors.kafka_source import parse_kafka_url
-from stream_miner.decoding.messages import DeadLetter
+from stream_miner.decoding.records import DeadLetter
 
 SAFE_PRODUCER = {"acks": "all", "enable_idempotence": True}
 

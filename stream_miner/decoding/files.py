@@ -1,33 +1,33 @@
-"""File readers for baskets: FIMI, JSON Lines and long-format CSV.
+"""Baskets from files: FIMI, JSON Lines and long-format CSV, as :class:`SourceRecord` values.
 
-Every reader takes a binary stream and yields :class:`RawBasket` or :class:`BadRecord`
-values in input order, never raising on bad content, so the caller decides whether a bad
-line stops the run or is skipped and counted.
+Every format decodes into the same record model as a Kafka message, with the same reasons
+(:data:`~stream_miner.decoding.records.REASONS`), and never raises on bad content; the
+position of a record is its line number (for CSV: the line of the basket's first row).
 
+- ``jsonl``: one message per line, decoded by :func:`~stream_miner.decoding.messages.decode_message`
+  (field names, item objects and time units as the :class:`MessageFormat` says).
 - ``fimi``: one basket per line, items separated by whitespace; an empty line is an empty
-  basket.
-- ``jsonl``: one JSON object per line with ``items`` (list of strings) and optional ``id``
-  (string or integer) and ``ts`` (epoch seconds, or an ISO-8601 string); blank lines are
-  ignored.
+  basket (a dead letter, like ``{"items": []}``).
 - ``csv``: long format with a header row, one line item per row; the transaction-id and item
-  columns are chosen by name. Rows of one transaction must be contiguous; blank lines are
-  ignored.
-A UTF-8 byte-order mark at the start of a file is ignored.
+  columns are chosen by name. Rows of one transaction must be contiguous.
+Blank lines of JSON Lines and CSV hold no record. A UTF-8 byte-order mark is ignored.
 """
 
 from __future__ import annotations
 
 import csv
 import io
-import json
-import math
-from collections.abc import Iterator
-from datetime import UTC, datetime
+import time
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
 from typing import IO
 
-from stream_miner.decoding.records import BadRecord, RawBasket
+from stream_miner.decoding.messages import MessageFormat, decode_message
+from stream_miner.decoding.records import Basket, DeadLetter, SourceRecord
 
-FORMATS = ("fimi", "jsonl", "csv")
+FORMATS = ("jsonl", "fimi", "csv")
+FOLLOW_FORMATS = ("jsonl", "fimi")
+FOLLOW_WAIT = 0.05  # seconds between looks at a followed file that has no new line
 _EXTENSIONS = {
     ".fimi": "fimi",
     ".dat": "fimi",
@@ -38,11 +38,24 @@ _EXTENSIONS = {
     ".csv": "csv",
 }
 
-Record = RawBasket | BadRecord
-
 
 class InputError(ValueError):
-    """Input that cannot be read at all (unknown format, missing CSV columns)."""
+    """Input that cannot be read at all (unknown format, missing CSV columns, no such file)."""
+
+
+@dataclass(frozen=True)
+class FileLayout:
+    """How a file holds baskets: its format, the message fields (JSON Lines) and the CSV
+    columns."""
+
+    fmt: str = "jsonl"
+    message: MessageFormat = MessageFormat()
+    csv_id_column: str = "transaction_id"
+    csv_item_column: str = "item"
+
+    def __post_init__(self) -> None:
+        if self.fmt not in FORMATS:
+            raise InputError(f"unknown format {self.fmt!r}; choose from {', '.join(FORMATS)}")
 
 
 def detect_format(path: str) -> str:
@@ -57,100 +70,68 @@ def detect_format(path: str) -> str:
 
 
 def read_records(
-    stream: IO[bytes], fmt: str, *, csv_id_column: str = "transaction_id", csv_item_column: str = "item"
-) -> Iterator[Record]:
-    """Records of ``stream`` in format ``fmt`` (see the module docstring)."""
-    if fmt == "fimi":
-        return read_fimi(stream)
-    if fmt == "jsonl":
-        return read_jsonl(stream)
-    if fmt == "csv":
-        return read_csv(stream, id_column=csv_id_column, item_column=csv_item_column)
-    raise InputError(f"unknown format {fmt!r}; choose from {', '.join(FORMATS)}")
+    stream: IO[bytes], layout: FileLayout, source: str, *, follow: bool = False
+) -> Iterator[SourceRecord | None]:
+    """The records of ``stream`` in input order. With ``follow`` the file is read as it grows:
+    ``None`` means no complete new line yet (ask again later); a line still being written is
+    held back until its newline arrives."""
+    if layout.fmt == "csv":
+        if follow:
+            raise InputError(f"following a file works with {' and '.join(FOLLOW_FORMATS)} input, not csv")
+        yield from read_csv(stream, layout, source)
+        return
+    decode = _jsonl_decoder(layout.message, source) if layout.fmt == "jsonl" else _fimi_decoder(source)
+    for number, line in _lines(stream, follow):
+        if line is None:
+            yield None
+        elif layout.fmt == "fimi" or line.strip():
+            yield SourceRecord(decode(line, number), 0, number)
 
 
-def _decoded_lines(stream: IO[bytes]) -> Iterator[tuple[int, bytes, str | BadRecord]]:
-    for number, raw in enumerate(stream, start=1):
-        try:
-            text = raw.decode("utf-8")
-        except UnicodeDecodeError as error:
-            yield number, raw, BadRecord(number, "invalid UTF-8", str(error), raw)
+def _lines(stream: IO[bytes], follow: bool) -> Iterator[tuple[int, bytes | None]]:
+    """Numbered lines without their line ending; (number, None) while a followed file has
+    no complete new line."""
+    number, partial = 0, b""
+    while True:
+        chunk = stream.readline()
+        if not chunk:
+            if not follow:
+                if partial:
+                    yield number + 1, partial
+                return
+            yield number, None
+            time.sleep(FOLLOW_WAIT)
             continue
-        if number == 1:
-            text = text.removeprefix("\ufeff")  # a byte-order mark is not part of the data
-        yield number, raw, text.rstrip("\r\n")
+        partial += chunk
+        if follow and not partial.endswith(b"\n"):
+            continue  # a line still being written
+        number += 1
+        line, partial = partial.rstrip(b"\r\n"), b""
+        yield number, line
 
 
-def read_fimi(stream: IO[bytes]) -> Iterator[Record]:
-    """One basket per line, items separated by whitespace."""
-    for number, _, text in _decoded_lines(stream):
-        if isinstance(text, BadRecord):
-            yield text
-        else:
-            yield RawBasket(items=text.split(), line=number)
+def _jsonl_decoder(message: MessageFormat, source: str) -> Callable[[bytes, int], Basket | DeadLetter]:
+    def decode(line: bytes, number: int) -> Basket | DeadLetter:
+        return decode_message(line, message, source=source, partition=0, offset=number)
+
+    return decode
 
 
-def read_jsonl(stream: IO[bytes]) -> Iterator[Record]:
-    """One JSON object per line: ``{"items": [...], "id": ..., "ts": ...}``."""
-    for number, raw, text in _decoded_lines(stream):
-        if isinstance(text, BadRecord):
-            yield text
-        elif text.strip():
-            yield parse_json_basket(text, number, raw)
-
-
-def parse_json_basket(text: str, line: int, raw: bytes) -> Record:
-    """One JSON Lines record as a basket, or the reason it is not one."""
-    try:
-        value = json.loads(text)
-    except (ValueError, RecursionError) as error:  # also too-long integers, too-deep nesting
-        return BadRecord(line, "invalid JSON", str(error) or type(error).__name__, raw)
-    if not isinstance(value, dict):
-        return BadRecord(line, "not a JSON object", f"got {type(value).__name__}", raw)
-    items = value.get("items")
-    if items is None:
-        return BadRecord(line, "no items", 'the object has no "items" field', raw)
-    if not isinstance(items, list):
-        return BadRecord(line, "items not a list", f'"items" is {type(items).__name__}', raw)
-    for item in items:
-        if not isinstance(item, str):
-            return BadRecord(line, "item not a string", f"item {item!r} is {type(item).__name__}", raw)
-    basket_id = value.get("id")
-    if (basket_id is not None and not isinstance(basket_id, (str, int))) or isinstance(basket_id, bool):
-        return BadRecord(line, "bad id", f'"id" must be a string or an integer, got {basket_id!r}', raw)
-    ts = value.get("ts")
-    if ts is not None:
+def _fimi_decoder(source: str) -> Callable[[bytes, int], Basket | DeadLetter]:
+    def decode(line: bytes, number: int) -> Basket | DeadLetter:
         try:
-            ts = parse_event_time(ts)
-        except ValueError as error:
-            return BadRecord(line, "bad event time", str(error), raw)
-    return RawBasket(items=items, line=line, id=None if basket_id is None else str(basket_id), ts=ts)
+            text = line.decode("utf-8").removeprefix("\ufeff")
+        except UnicodeDecodeError as error:
+            return DeadLetter(line, "invalid UTF-8", str(error), source, 0, number)
+        items = list(dict.fromkeys(text.split()))
+        if not items:
+            return DeadLetter(line, "empty basket", "the line holds no items", source, 0, number)
+        return Basket(items, None, None, raw=line)
+
+    return decode
 
 
-def parse_event_time(value: object) -> float:
-    """Epoch seconds from a number (seconds) or an ISO-8601 string (naive means UTC)."""
-    if isinstance(value, bool):
-        raise ValueError(f"event time must be a number or an ISO-8601 string, got {value!r}")
-    if isinstance(value, (int, float)):
-        try:
-            seconds = float(value)
-        except OverflowError:
-            raise ValueError("event time is out of range") from None
-        if not math.isfinite(seconds):
-            raise ValueError(f"event time must be finite, got {value!r}")
-        return seconds
-    if isinstance(value, str):
-        try:
-            moment = datetime.fromisoformat(value.replace("Z", "+00:00"))
-        except ValueError:
-            raise ValueError(f"event time {value!r} is not ISO-8601") from None
-        if moment.tzinfo is None:
-            moment = moment.replace(tzinfo=UTC)
-        return moment.timestamp()
-    raise ValueError(f"event time must be a number or an ISO-8601 string, got {value!r}")
-
-
-def read_csv(stream: IO[bytes], *, id_column: str, item_column: str) -> Iterator[Record]:
+def read_csv(stream: IO[bytes], layout: FileLayout, source: str) -> Iterator[SourceRecord]:
     """Long-format CSV: one row per line item, grouped into baskets by transaction id."""
     text = io.TextIOWrapper(stream, encoding="utf-8-sig", errors="surrogateescape", newline="")
     reader = csv.reader(text)
@@ -159,6 +140,7 @@ def read_csv(stream: IO[bytes], *, id_column: str, item_column: str) -> Iterator
         return
     if _has_undecodable(header):
         raise InputError("line 1: invalid UTF-8 in the CSV header")
+    id_column, item_column = layout.csv_id_column, layout.csv_item_column
     missing = [c for c in (id_column, item_column) if c not in header]
     if missing:
         raise InputError(
@@ -170,36 +152,42 @@ def read_csv(stream: IO[bytes], *, id_column: str, item_column: str) -> Iterator
     items: list[str] = []
     first_line = 0
     finished: set[str] = set()
+
+    def refused(line: int, reason: str, detail: str, row: list[str]) -> SourceRecord:
+        raw = ",".join(row).encode("utf-8", errors="surrogateescape")
+        return SourceRecord(DeadLetter(raw, reason, detail, source, 0, line), 0, line)
+
+    def basket() -> SourceRecord:
+        assert current_id is not None
+        return SourceRecord(Basket(list(dict.fromkeys(items)), current_id, None), 0, first_line)
+
     while (row := _next_row(reader)) is not None:
         line = reader.line_num
         if not row:
             continue  # a blank line holds no line item
         if _has_undecodable(row):
-            yield BadRecord(line, "invalid UTF-8", "a field is not valid UTF-8")
+            yield refused(line, "invalid UTF-8", "a field is not valid UTF-8", row)
             continue
         if len(row) != len(header):
-            yield BadRecord(line, "wrong number of fields", f"expected {len(header)}, got {len(row)}")
+            yield refused(line, "wrong number of fields", f"expected {len(header)}, got {len(row)}", row)
             continue
         transaction, item = row[id_at], row[item_at]
         if not transaction or not item:
-            yield BadRecord(line, "empty field", f"transaction id {transaction!r}, item {item!r}")
+            yield refused(line, "empty field", f"transaction id {transaction!r}, item {item!r}", row)
             continue
         if transaction != current_id:
             if current_id is not None:
                 finished.add(current_id)
-                yield RawBasket(items=items, line=first_line, id=current_id)
+                yield basket()
             if transaction in finished:
-                yield BadRecord(
-                    line,
-                    "transaction not contiguous",
-                    f"rows of transaction {transaction!r} appear after other transactions",
-                )
+                detail = f"rows of transaction {transaction!r} appear after other transactions"
+                yield refused(line, "transaction not contiguous", detail, row)
                 current_id, items = None, []
                 continue
             current_id, items, first_line = transaction, [], line
         items.append(item)
     if current_id is not None:
-        yield RawBasket(items=items, line=first_line, id=current_id)
+        yield basket()
 
 
 def _next_row(reader: Iterator[list[str]]) -> list[str] | None:

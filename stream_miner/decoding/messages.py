@@ -5,32 +5,20 @@ A message is a JSON object such as
 Field names, the key that names an item object and the unit of numeric event times are set
 by :class:`MessageFormat`. Items are kept by membership only: quantities are ignored and a
 repeated item counts once. :func:`decode_message` never raises on any input bytes: a message
-that is not a basket comes back as a :class:`DeadLetter` whose ``reason`` is one of
-:data:`REASONS`, so the caller can set it aside and move on.
+that is not a basket comes back as a :class:`DeadLetter` whose ``reason`` is a key of
+:data:`~stream_miner.decoding.records.REASONS`, so the caller can set it aside and move on.
+The basket size cap is not checked here: it belongs to the window's basket policy.
 """
 
 from __future__ import annotations
 
 import json
+import math
 from dataclasses import dataclass
 from datetime import UTC, datetime
 
-from stream_miner.decoding.files import parse_event_time
+from stream_miner.decoding.records import Basket, DeadLetter
 
-REASONS = (
-    "message too large",
-    "invalid UTF-8",
-    "invalid JSON",
-    "not a JSON object",
-    "no items",
-    "items not a list",
-    "bad item",
-    "empty basket",
-    "basket too large",
-    "bad id",
-    "bad event time",
-    "bad segment",
-)
 TIME_UNITS = ("s", "ms", "auto")
 AUTO_MILLISECONDS_ABOVE = 1e11  # with time_unit "auto", larger numbers are milliseconds
 # Numeric event times must fall in years 1 to 9999 (UTC), the range of ISO-8601 dates.
@@ -63,35 +51,12 @@ class MessageFormat:
     item_key: str = "sku"
     time_unit: str = "auto"
     max_message_bytes: int = 1_000_000
-    max_items: int = 1000
 
     def __post_init__(self) -> None:
         if self.time_unit not in TIME_UNITS:
             raise ValueError(f"time_unit must be one of {', '.join(TIME_UNITS)}, got {self.time_unit!r}")
-        if self.max_message_bytes < 1 or self.max_items < 1:
-            raise ValueError("max_message_bytes and max_items must be at least 1")
-
-
-@dataclass(frozen=True)
-class Basket:
-    """A decoded message: distinct item names in first-seen order, id, event time, segment."""
-
-    items: list[str]
-    id: str | None
-    ts: float | None
-    segment: str | None
-
-
-@dataclass(frozen=True)
-class DeadLetter:
-    """A message that is not a basket, why (``reason`` is one of REASONS), and where it came from."""
-
-    raw: bytes
-    reason: str
-    detail: str
-    source: str
-    partition: int | None
-    offset: int | None
+        if self.max_message_bytes < 1:
+            raise ValueError("max_message_bytes must be at least 1")
 
 
 class _Refused(Exception):
@@ -108,7 +73,7 @@ def decode_message(
 ) -> Basket | DeadLetter:
     """The basket in ``raw``, or a dead letter saying why there is none. Never raises."""
     try:
-        return _basket(_json_object(raw, fmt), fmt)
+        return _basket(_json_object(raw, fmt), fmt, raw)
     except _Refused as refusal:
         return DeadLetter(raw, refusal.reason, refusal.detail, source, partition, offset)
 
@@ -130,13 +95,14 @@ def _json_object(raw: bytes, fmt: MessageFormat) -> dict[str, object]:
     return value
 
 
-def _basket(message: dict[str, object], fmt: MessageFormat) -> Basket:
+def _basket(message: dict[str, object], fmt: MessageFormat, raw: bytes) -> Basket:
     """The basket held by a message object; JSON null counts as a missing field."""
     return Basket(
         items=_items(message.get(fmt.items_field), fmt),
         id=_basket_id(message.get(fmt.id_field), fmt.id_field),
         ts=_event_time(message.get(fmt.time_field), fmt),
         segment=_segment(message, fmt),
+        raw=raw,
     )
 
 
@@ -155,8 +121,6 @@ def _items(value: object, fmt: MessageFormat) -> list[str]:
         names = []
     if not names or not all(type(name) is str for name in names):
         names = list(dict.fromkeys(_item_name(item, index, fmt.item_key) for index, item in enumerate(value)))
-    if len(names) > fmt.max_items:
-        raise _Refused("basket too large", f"{len(names)} distinct items, limit {fmt.max_items}")
     return names
 
 
@@ -216,3 +180,26 @@ def _segment(message: dict[str, object], fmt: MessageFormat) -> str | None:
 def _json_type(value: object) -> str:
     """What kind of JSON value ``value`` is, for a detail message."""
     return _JSON_TYPES[type(value)]
+
+
+def parse_event_time(value: object) -> float:
+    """Epoch seconds from a number (seconds) or an ISO-8601 string (naive means UTC)."""
+    if isinstance(value, bool):
+        raise ValueError(f"event time must be a number or an ISO-8601 string, got {value!r}")
+    if isinstance(value, (int, float)):
+        try:
+            seconds = float(value)
+        except OverflowError:
+            raise ValueError("event time is out of range") from None
+        if not math.isfinite(seconds):
+            raise ValueError(f"event time must be finite, got {value!r}")
+        return seconds
+    if isinstance(value, str):
+        try:
+            moment = datetime.fromisoformat(value.replace("Z", "+00:00"))
+        except ValueError:
+            raise ValueError(f"event time {value!r} is not ISO-8601") from None
+        if moment.tzinfo is None:
+            moment = moment.replace(tzinfo=UTC)
+        return moment.timestamp()
+    raise ValueError(f"event time must be a number or an ISO-8601 string, got {value!r}")

@@ -1,0 +1,85 @@
+"""What the run loop needs from its parts: a source of records, a dead-letter sink, and
+listeners told about every tick."""
+
+from __future__ import annotations
+
+from collections import Counter
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Protocol, TypeVar
+
+from stream_miner.decoding.records import DeadLetter, SourceRecord
+from stream_miner.engine.miner import Tick
+
+T = TypeVar("T")
+
+
+class Source(Protocol):
+    """Records from outside: a file, stdin or a Kafka topic."""
+
+    name: str
+    revoke_handler: Callable[[], dict[int, int]] | None
+    """Set by the loop: called before partitions move to another group member; it saves a
+    checkpoint and returns the offsets it covers."""
+
+    def seek(self, positions: dict[int, int]) -> None:
+        """Resume at these next offsets per partition (from a checkpoint)."""
+
+    def poll(self, max_records: int = 500) -> list[SourceRecord]:
+        """The next records; none when nothing is there now."""
+        ...
+
+    def exhausted(self) -> bool:
+        """True once a finite source has nothing more."""
+        ...
+
+    def while_busy(self, work: Callable[[], T]) -> T:
+        """Run ``work`` (a tick) and return its value; a source that must keep talking to a
+        broker meanwhile runs it on a worker thread."""
+        ...
+
+    def position(self) -> str | None:
+        """Where reading stands, for a person (share of a file read, lag behind a topic)."""
+        ...
+
+    def commit(self, positions: dict[int, int]) -> None:
+        """Record progress outside (a Kafka group's offsets) once a checkpoint covers it."""
+
+    def close(self) -> None:
+        """Release the source."""
+
+
+class DeadLetterSink(Protocol):
+    """Where records that are not baskets go, counted by reason."""
+
+    counts: Counter[str]
+
+    def write(self, letter: DeadLetter) -> None:
+        """Set ``letter`` aside."""
+
+    def flush(self) -> None:
+        """Make what was written durable."""
+
+    def close(self) -> None:
+        """Release the sink."""
+
+
+@dataclass(frozen=True)
+class TickReport:
+    """One tick as the run loop saw it: the tick, the stream so far, and the time it took to
+    update the window (apply buffered baskets) and to refresh the result."""
+
+    tick: Tick
+    consumed: int
+    last_id: str | None
+    window_start: float | None
+    window_end: float | None
+    window_update_seconds: float
+    refresh_seconds: float
+
+
+class TickListener(Protocol):
+    """Told about every tick, in order, on the run loop's thread."""
+
+    def on_tick(self, report: TickReport) -> None:
+        """Handle one tick (print it, write a snapshot, ...)."""
