@@ -124,6 +124,7 @@ class Runner:
         self.source.seek(self.offsets)
         if hasattr(self.source, "revoke_handler"):
             self.source.revoke_handler = self._save  # checkpoint before partitions move away
+        print(f"stream-miner: reading {self.source.name}", file=self.log, flush=True)
         while not self.stopping:
             records = self.source.poll()
             for record in records:
