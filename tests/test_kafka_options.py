@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import pytest
 
+pytest.importorskip("kafka", reason="kafka-python is not installed (the Kafka source needs it)")
+
 from stream_miner.connectors.kafka_source import client_options, parse_kafka_url
 from stream_miner.decoding.files import InputError
 

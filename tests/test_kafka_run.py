@@ -1,12 +1,14 @@
 """`stream-miner run` against a real Kafka-protocol broker (started per module): several
-partitions, bad messages, SIGKILL and restart, two consumers in one group, a paused broker."""
+partitions, bad messages, SIGKILL and restart, two consumers in one group, a paused broker.
+
+Every wait is for something observable (the run's readiness line, its snapshot, a dead
+letter, the group's state), under a generous deadline; the only timed pauses are the
+producer's steady pace and the broker outage, which are the scenarios themselves."""
 
 from __future__ import annotations
 
 import json
 import signal
-import subprocess
-import sys
 import threading
 import time
 from collections import Counter
@@ -16,6 +18,14 @@ import pytest
 
 from brute_force import frequent_itemsets
 from kafka_broker import GROUP_OPTIONS, start_broker, stop_broker
+from processes import stream_miner, wait_until
+
+pytestmark = pytest.mark.kafka
+
+# How long the broker stays stopped (SIGSTOP): longer than session_timeout_ms and
+# max_poll_interval_ms in GROUP_OPTIONS. This is the fault being tested, not a wait for
+# anything: a stopped broker answers nothing and the client logs nothing meanwhile.
+OUTAGE_SECONDS = 15
 
 
 @pytest.fixture(scope="module")
@@ -41,11 +51,9 @@ def checkouts(n, seed=0, prefix="k"):
     ]
 
 
-def start_run(broker, topic, group, workdir, *extra):
-    command = [
-        sys.executable,
-        "-m",
-        "stream_miner",
+def start_run(spawn, broker, topic, group, workdir, *extra):
+    """Start `stream-miner run` on ``topic`` and wait for its readiness line."""
+    command = stream_miner(
         "run",
         "--source",
         f"kafka://{broker.address}/{topic}",
@@ -60,11 +68,13 @@ def start_run(broker, topic, group, workdir, *extra):
         "--snapshot-out",
         str(workdir / "snap.jsonl"),
         *extra,
-    ]
+    )
     for option in GROUP_OPTIONS:
         command += ["--kafka-option", option]
     workdir.mkdir(exist_ok=True)
-    return subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    run = spawn(command)
+    run.wait_ready()
+    return run
 
 
 def snapshot(workdir):
@@ -75,33 +85,30 @@ def snapshot(workdir):
     return lines[0], {tuple(r["items"]): r["count"] for r in lines[1:] if r["type"] == "itemset"}
 
 
-def wait_for(condition, seconds=60):
-    deadline = time.monotonic() + seconds
-    while time.monotonic() < deadline:
-        if condition():
-            return True
-        time.sleep(0.1)
-    return False
-
-
 def consumed(workdir):
     header, _ = snapshot(workdir)
     return 0 if header is None else header["consumed"]
 
 
-def stop(process):
-    process.send_signal(signal.SIGTERM)
-    _, err = process.communicate(timeout=30)
-    assert process.returncode == 0, err
-    return err
+def line_count(path):
+    return len(path.read_text().splitlines()) if path.exists() else 0
 
 
-def test_several_partitions_and_bad_messages(broker, tmp_path):
+def produce_steadily(broker, topic, baskets, batch=200, gap=0.1):
+    """Produce in batches ``gap`` s apart, so the stream flows while it is being consumed."""
+    for start in range(0, len(baskets), batch):
+        broker.produce(topic, baskets[start : start + batch])
+        time.sleep(gap)
+
+
+@pytest.mark.slow
+def test_several_partitions_and_bad_messages(broker, spawn, tmp_path):
     broker.create_topic("multi", 3)
     baskets = checkouts(600, seed=1)
     bad = [b"not json", b'{"items": "tea"}']
     broker.produce("multi", [*baskets, *bad], partition_of=lambda n: n % 3)
     run = start_run(
+        spawn,
         broker,
         "multi",
         "g-multi",
@@ -113,15 +120,12 @@ def test_several_partitions_and_bad_messages(broker, tmp_path):
         "--dead-letter-out",
         str(tmp_path / "dead.jsonl"),
     )
-    assert wait_for(
-        lambda: (
-            consumed(tmp_path) == 600
-            and (tmp_path / "dead.jsonl").exists()
-            and len((tmp_path / "dead.jsonl").read_text().splitlines()) == 2
-        )
+    wait_until(
+        lambda: consumed(tmp_path) == 600 and line_count(tmp_path / "dead.jsonl") == 2,
+        what="600 baskets in the snapshot and 2 dead letters",
+        child=run,
     )
-    time.sleep(0.5)
-    err = stop(run)
+    err = run.stop()
     header, itemsets = snapshot(tmp_path)
     assert header["consumed"] == 600
     assert itemsets == {
@@ -136,29 +140,26 @@ def test_several_partitions_and_bad_messages(broker, tmp_path):
     assert "dead letters: invalid JSON 1, items not a list 1" in err
 
 
-def test_sigkill_mid_stream_then_restart_equals_an_uninterrupted_run(broker, tmp_path):
+@pytest.mark.slow
+def test_sigkill_mid_stream_then_restart_equals_an_uninterrupted_run(broker, spawn, tmp_path):
     broker.create_topic("crash", 1)
     baskets = checkouts(4000, seed=2, prefix="c")
-    producer = threading.Thread(
-        target=lambda: [
-            broker.produce("crash", baskets[i : i + 200])
-            for i in range(0, 4000, 200)
-            if time.sleep(0.1) is None
-        ]
-    )
-    producer.start()
     window = ["--window-size", "700", "--tick-every", "20", "--kafka-option", "max_poll_records=50"]
-    victim = start_run(broker, "crash", "g-crash", tmp_path, *window)
-    assert wait_for(lambda: consumed(tmp_path) > 300, seconds=60)
-    victim.send_signal(signal.SIGKILL)
-    victim.wait()
+    victim = start_run(spawn, broker, "crash", "g-crash", tmp_path, *window)
+    producer = threading.Thread(target=produce_steadily, args=(broker, "crash", baskets[:2000]))
+    producer.start()
+    wait_until(lambda: consumed(tmp_path) > 300, 60, "more than 300 baskets consumed", victim)
+    victim.kill()
+    assert victim.process.returncode == -signal.SIGKILL
     killed_at = consumed(tmp_path)
     producer.join()
-    assert killed_at < 4000
-    restarted = start_run(broker, "crash", "g-crash", tmp_path, *window)
-    assert wait_for(lambda: consumed(tmp_path) == 4000, seconds=90)
-    time.sleep(0.5)
-    err = stop(restarted)
+    # the rest of the stream arrives while the consumer is down and after it is back
+    broker.produce("crash", baskets[2000:3000])
+    assert 300 < killed_at <= 2000  # killed mid-stream
+    restarted = start_run(spawn, broker, "crash", "g-crash", tmp_path, *window)
+    produce_steadily(broker, "crash", baskets[3000:])
+    wait_until(lambda: consumed(tmp_path) == 4000, 90, "4000 baskets consumed", restarted)
+    err = restarted.stop()
     assert "resumed from" in err
     header, itemsets = snapshot(tmp_path)
     assert header["consumed"] == 4000 and header["last_id"] == "c3999" and header["size"] == 700
@@ -168,21 +169,22 @@ def test_sigkill_mid_stream_then_restart_equals_an_uninterrupted_run(broker, tmp
     assert itemsets == {tuple(sorted(k)): v for k, v in reference}
 
 
-def test_two_consumers_in_one_group_lose_and_double_count_nothing(broker, tmp_path):
+@pytest.mark.slow
+def test_two_consumers_in_one_group_lose_and_double_count_nothing(broker, spawn, tmp_path):
     broker.create_topic("shared", 4)
     first, second = checkouts(400, seed=3, prefix="a"), checkouts(400, seed=4, prefix="b")
     one, two = tmp_path / "one", tmp_path / "two"
     settings = ["--window-size", "5000", "--tick-interval", "0.2s"]
-    run_one = start_run(broker, "shared", "g-shared", one, *settings)
+    run_one = start_run(spawn, broker, "shared", "g-shared", one, *settings)
     broker.produce("shared", first, partition_of=lambda n: n % 4)
-    assert wait_for(lambda: consumed(one) == 400)
-    run_two = start_run(broker, "shared", "g-shared", two, *settings)
-    time.sleep(8)  # the second member joins: a rebalance moves partitions to it
+    wait_until(lambda: consumed(one) == 400, what="400 baskets consumed by the first member", child=run_one)
+    run_two = start_run(spawn, broker, "shared", "g-shared", two, *settings)
+    # the second member joins: the rebalance is over (partitions shared) once the group is Stable
+    broker.wait_for_stable_group("g-shared", members=2)
     broker.produce("shared", second, partition_of=lambda n: n % 4)
-    assert wait_for(lambda: consumed(one) + consumed(two) == 800, seconds=90)
-    time.sleep(1)
-    stop(run_one)
-    stop(run_two)
+    wait_until(lambda: consumed(one) + consumed(two) == 800, 90, "800 baskets consumed by the two members")
+    run_one.stop()
+    run_two.stop()
     assert consumed(one) + consumed(two) == 800 and consumed(two) > 0
     totals = Counter()
     for workdir in (one, two):
@@ -191,31 +193,34 @@ def test_two_consumers_in_one_group_lose_and_double_count_nothing(broker, tmp_pa
     assert totals == {(item,): n for item, n in expected.items()}
 
 
-def test_a_broker_paused_for_15_seconds_loses_nothing(broker, tmp_path):
+@pytest.mark.slow
+def test_a_broker_paused_for_15_seconds_loses_nothing(broker, spawn, tmp_path):
     broker.create_topic("paused", 2)
     baskets = checkouts(1000, seed=5, prefix="p")
     broker.produce("paused", baskets[:500], partition_of=lambda n: n % 2)
-    run = start_run(broker, "paused", "g-paused", tmp_path, "--window-size", "5000", "--tick-every", "10")
-    assert wait_for(lambda: consumed(tmp_path) == 500)
+    run = start_run(
+        spawn, broker, "paused", "g-paused", tmp_path, "--window-size", "5000", "--tick-every", "10"
+    )
+    wait_until(lambda: consumed(tmp_path) == 500, what="500 baskets consumed", child=run)
     broker.pause()
-    time.sleep(15)
+    time.sleep(OUTAGE_SECONDS)  # the outage itself (see OUTAGE_SECONDS)
     broker.resume()
     broker.produce("paused", baskets[500:], partition_of=lambda n: n % 2)
-    assert wait_for(lambda: consumed(tmp_path) == 1000, seconds=90)
-    stop(run)
+    wait_until(lambda: consumed(tmp_path) == 1000, 90, "1000 baskets consumed after the outage", run)
+    run.stop()
     _, itemsets = snapshot(tmp_path)
     expected = frequent_itemsets([b["items"] for b in baskets], 1)
     assert itemsets == {tuple(sorted(k)): v for k, v in expected.items()}
 
 
-def test_dead_letters_to_a_kafka_topic_keep_raw_bytes_and_reasons(broker, tmp_path):
-    from kafka import KafkaConsumer
-
+@pytest.mark.slow
+def test_dead_letters_to_a_kafka_topic_keep_raw_bytes_and_reasons(broker, spawn, tmp_path):
     broker.create_topic("with-bad", 1)
     broker.create_topic("dead", 1)
     bad = [b"\xff\xfe not utf-8", b'{"items": [1, 2]}']
     broker.produce("with-bad", [*checkouts(50, seed=6), *bad])
     run = start_run(
+        spawn,
         broker,
         "with-bad",
         "g-dead",
@@ -227,21 +232,19 @@ def test_dead_letters_to_a_kafka_topic_keep_raw_bytes_and_reasons(broker, tmp_pa
         "--dead-letter-out",
         f"kafka://{broker.address}/dead",
     )
-    assert wait_for(lambda: consumed(tmp_path) == 50)
-    time.sleep(1)
-    stop(run)
-    reader = KafkaConsumer(
-        "dead", bootstrap_servers=broker.address, auto_offset_reset="earliest", consumer_timeout_ms=5000
-    )
-    letters = [(m.value, dict(m.headers)) for m in reader]
-    reader.close()
+    wait_until(lambda: consumed(tmp_path) == 50, what="50 baskets consumed", child=run)
+    # the bad messages follow the baskets: wait until both dead letters are in the topic
+    wait_until(lambda: len(broker.read_topic("dead")) >= 2, what="2 dead letters in the topic", child=run)
+    run.stop()
+    letters = [(m.value, dict(m.headers)) for m in broker.read_topic("dead")]
     assert [value for value, _ in letters] == bad
     assert [headers["reason"] for _, headers in letters] == [b"invalid UTF-8", b"bad item"]
     assert [headers["offset"] for _, headers in letters] == [b"50", b"51"]
     assert all(headers["source"] == b"kafka:with-bad" for _, headers in letters)
 
 
-def test_a_tick_longer_than_max_poll_interval_keeps_the_group_membership(broker, tmp_path):
+@pytest.mark.slow
+def test_a_tick_longer_than_max_poll_interval_keeps_the_group_membership(broker, spawn, tmp_path):
     from simulations.quest import quest_baskets
 
     broker.create_topic("slow", 1)
@@ -249,10 +252,7 @@ def test_a_tick_longer_than_max_poll_interval_keeps_the_group_membership(broker,
         {"id": f"s{i}", "items": [str(x) for x in b]} for i, b in enumerate(quest_baskets(60000, seed=9))
     ]
     broker.produce("slow", first)
-    command = [
-        sys.executable,
-        "-m",
-        "stream_miner",
+    command = stream_miner(
         "run",
         "--source",
         f"kafka://{broker.address}/slow",
@@ -266,22 +266,27 @@ def test_a_tick_longer_than_max_poll_interval_keeps_the_group_membership(broker,
         "60",
         "--snapshot-out",
         str(tmp_path / "snap.jsonl"),
+        "--dead-letter-out",
+        str(tmp_path / "dead.jsonl"),
         "--kafka-option",
         "max_poll_interval_ms=1000",
         "--kafka-option",
         "session_timeout_ms=6000",
         "--kafka-option",
         "heartbeat_interval_ms=300",
-    ]
-    run = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
-    assert wait_for(lambda: consumed(tmp_path) == 60000, seconds=120)  # after a first tick of seconds
+    )
+    run = spawn(command)
+    run.wait_ready()
+    wait_until(lambda: consumed(tmp_path) == 60000, 120, "the first tick", run)  # a tick of seconds
+    # 60 more baskets, then a bad message: once it is a dead letter, the baskets before it
+    # in the (single) partition have been taken
     later = [{"id": f"t{i}", "items": ["late-comer"]} for i in range(60)]
-    broker.produce("slow", later)
-    time.sleep(3)
-    run.send_signal(signal.SIGTERM)
-    _, err = run.communicate(timeout=60)
-    assert run.returncode == 0, err
+    broker.produce("slow", [*later, b"end of the late-comers"])
+    wait_until(lambda: line_count(tmp_path / "dead.jsonl") == 1, 60, "the late-comers' end marker", run)
+    err = run.stop()
     header, itemsets = snapshot(tmp_path)
     assert header["consumed"] == 60060  # nothing read twice after a lost membership
     assert itemsets[("late-comer",)] == 60
     assert "warning" not in err
+    letters = [json.loads(line) for line in (tmp_path / "dead.jsonl").read_text().splitlines()]
+    assert [(letter["reason"], letter["offset"]) for letter in letters] == [("invalid JSON", 60060)]

@@ -1,5 +1,6 @@
 """`stream-miner run` over files: snapshots, checkpoints across crashes, bad input, duplicates,
-event-time lateness and the TOML config. Processes are real (subprocess) where signals matter."""
+event-time lateness and the TOML config. Processes are real (subprocess) where signals matter;
+they are waited on by their readiness line and snapshots, never by fixed sleeps."""
 
 from __future__ import annotations
 
@@ -7,11 +8,11 @@ import json
 import signal
 import subprocess
 import sys
-import time
 
 import pytest
 
 from brute_force import frequent_itemsets
+from processes import stream_miner, wait_until
 from stream_miner.cli.main import main
 
 
@@ -32,6 +33,11 @@ def write_checkouts(path, n, seed=1, extra=()):
 def read_snapshot(path):
     lines = [json.loads(line) for line in path.read_text().splitlines()]
     return lines[0], {tuple(r["items"]): r["count"] for r in lines[1:] if r["type"] == "itemset"}
+
+
+def consumed(path):
+    """Baskets consumed as of the last snapshot at ``path`` (0 before the first)."""
+    return read_snapshot(path)[0]["consumed"] if path.exists() else 0
 
 
 def run_cli(*args):
@@ -65,7 +71,7 @@ def test_snapshot_holds_the_last_window_exactly(tmp_path, capsys):
     assert "1000 baskets in the stream" in capsys.readouterr().err
 
 
-def test_sigkill_mid_stream_then_restart_loses_and_double_counts_nothing(tmp_path):
+def test_sigkill_mid_stream_then_restart_loses_and_double_counts_nothing(spawn, tmp_path):
     data = tmp_path / "in.jsonl"
     baskets = write_checkouts(data, 3000, seed=2)
     command = [
@@ -87,16 +93,17 @@ def test_sigkill_mid_stream_then_restart_loses_and_double_counts_nothing(tmp_pat
         "--snapshot-out",
         str(tmp_path / "snap.jsonl"),
     ]
-    victim = subprocess.Popen(
-        [sys.executable, "-m", "stream_miner", *command], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+    victim = spawn(stream_miner(*command))
+    # kill once a checkpoint exists and the run has gone well past it (a few ticks at 3000/s)
+    wait_until(
+        lambda: (tmp_path / "ck" / "checkpoint.npz").exists() and consumed(tmp_path / "snap.jsonl") >= 600,
+        20,
+        "a checkpoint and 600 baskets consumed",
+        victim,
+        every=0.01,
     )
-    deadline = time.monotonic() + 20
-    while not (tmp_path / "ck" / "checkpoint.npz").exists() and time.monotonic() < deadline:
-        time.sleep(0.02)
-    time.sleep(0.2)
-    victim.send_signal(signal.SIGKILL)
-    victim.wait()
-    assert victim.returncode == -signal.SIGKILL
+    victim.kill()
+    assert victim.process.returncode == -signal.SIGKILL
     interrupted, _ = read_snapshot(tmp_path / "snap.jsonl")
     assert 0 < interrupted["consumed"] < 3000  # really killed mid-stream
     finished = run_cli(*command)
@@ -107,13 +114,10 @@ def test_sigkill_mid_stream_then_restart_loses_and_double_counts_nothing(tmp_pat
     assert itemsets == {tuple(sorted(k)): v for k, v in frequent_itemsets(baskets[-800:], 40).items()}
 
 
-def test_sigterm_finishes_the_tick_checkpoints_and_exits_zero(tmp_path):
+def test_sigterm_finishes_the_tick_checkpoints_and_exits_zero(spawn, tmp_path):
     data = tmp_path / "in.jsonl"
     write_checkouts(data, 2000, seed=3)
-    command = [
-        sys.executable,
-        "-m",
-        "stream_miner",
+    command = stream_miner(
         "run",
         "--source",
         f"file:{data}",
@@ -129,12 +133,11 @@ def test_sigterm_finishes_the_tick_checkpoints_and_exits_zero(tmp_path):
         str(tmp_path / "ck"),
         "--snapshot-out",
         str(tmp_path / "snap.jsonl"),
-    ]
-    process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
-    time.sleep(1.0)
-    process.send_signal(signal.SIGTERM)
-    _, err = process.communicate(timeout=20)
-    assert process.returncode == 0, err
+    )
+    process = spawn(command)
+    process.wait_ready()  # the SIGTERM handler is set
+    wait_until(lambda: consumed(tmp_path / "snap.jsonl") > 0, 20, "a first tick", process)
+    process.stop(timeout=20)  # exit code 0
     assert (tmp_path / "ck" / "checkpoint.npz").exists()
     header, _ = read_snapshot(tmp_path / "snap.jsonl")
     assert 0 < header["consumed"] < 2000
@@ -393,14 +396,11 @@ def test_tick_interval_ticks_by_wall_clock_while_records_keep_coming(tmp_path):
     assert 5 <= header["tick"] <= 20
 
 
-def test_follow_keeps_reading_a_growing_file_until_sigterm(tmp_path):
-    data = tmp_path / "growing.jsonl"
+def test_follow_keeps_reading_a_growing_file_until_sigterm(spawn, tmp_path):
+    data, snapshot = tmp_path / "growing.jsonl", tmp_path / "snap.jsonl"
     data.write_text(json.dumps({"id": "a0", "items": ["tea"]}) + "\n")
-    process = subprocess.Popen(
-        [
-            sys.executable,
-            "-m",
-            "stream_miner",
+    process = spawn(
+        stream_miner(
             "run",
             "--source",
             f"file:{data}",
@@ -412,27 +412,22 @@ def test_follow_keeps_reading_a_growing_file_until_sigterm(tmp_path):
             "--min-count",
             "1",
             "--snapshot-out",
-            str(tmp_path / "snap.jsonl"),
-        ],
-        stdout=subprocess.DEVNULL,
-        stderr=subprocess.PIPE,
-        text=True,
+            str(snapshot),
+        )
     )
+    process.wait_ready()
+    wait_until(lambda: consumed(snapshot) == 1, 20, "the first line read (the reader is at the end)", process)
     with data.open("a") as out:
-        time.sleep(1.0)
         out.write(json.dumps({"id": "a1", "items": ["tea", "jam"]}) + "\n")
         out.write('{"id": "a2", "items": ["ja')  # a line still being written
         out.flush()
-        time.sleep(1.0)
+        wait_until(lambda: consumed(snapshot) == 2, 20, "the appended line read", process)
+        # two more ticks, so the loop has polled again with the half-written line pending
+        tick = read_snapshot(snapshot)[0]["tick"]
+        wait_until(lambda: read_snapshot(snapshot)[0]["tick"] >= tick + 2, 20, "two more ticks", process)
         out.write('m"]}\n')
-    deadline = time.monotonic() + 20
-    while time.monotonic() < deadline:
-        if (tmp_path / "snap.jsonl").exists() and read_snapshot(tmp_path / "snap.jsonl")[0]["consumed"] == 3:
-            break
-        time.sleep(0.1)
-    process.send_signal(signal.SIGTERM)
-    _, err = process.communicate(timeout=20)
-    assert process.returncode == 0, err
-    header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
+    wait_until(lambda: consumed(snapshot) == 3, 20, "the completed line read", process)
+    process.stop(timeout=20)  # exit code 0
+    header, itemsets = read_snapshot(snapshot)
     assert header["consumed"] == 3
     assert itemsets == {("tea",): 2, ("jam",): 2, ("jam", "tea"): 1}

