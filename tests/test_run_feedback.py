@@ -13,8 +13,8 @@ import time
 
 import psutil
 import pytest
-from processes import Child, stream_miner, wait_until
 
+from processes import stream_miner, wait_until
 from stream_miner.cli.main import build_parser, main
 
 
@@ -99,7 +99,7 @@ def write_wide_baskets(path, n_baskets, n_items):
 
 
 @pytest.mark.parametrize("command", ["mine", "run"])
-def test_a_combinatorial_blow_up_stops_with_a_clear_message(tmp_path, command):
+def test_a_combinatorial_blow_up_stops_with_a_clear_message(tmp_path, command, spawn):
     # A 10-basket window at a count of one over baskets of 32 items: 2^32 - 1 itemsets.
     data = write_wide_baskets(tmp_path / "wide.dat", 10, 32)
     if command == "mine":
@@ -116,15 +116,16 @@ def test_a_combinatorial_blow_up_stops_with_a_clear_message(tmp_path, command):
             "--tick-every",
             "10",
         ]
-    code, err = Child([*stream_miner(), *args, "--min-count", "1"]).finish(timeout=60)
+    code, err = spawn([*stream_miner(), *args, "--min-count", "1"]).finish(timeout=60)
     assert code == 2
     errors = [line for line in err.splitlines() if "error" in line]
     assert len(errors) == 1 and "--min-support" in errors[0] and "--max-size" in errors[0], err
     assert "Traceback" not in err
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("command, exit_code", [("run", 0), ("mine", 128 + signal.SIGTERM)])
-def test_sigterm_stops_a_long_mine_within_a_second(tmp_path, command, exit_code):
+def test_sigterm_stops_a_long_mine_within_a_second(tmp_path, command, exit_code, spawn):
     # 2^26 - 1 itemsets under a raised cap: minutes of work, unless interrupted.
     data = write_wide_baskets(tmp_path / "wide.dat", 10, 26)
     limits = ["--min-count", "1", "--max-itemsets", str(10**9)]
@@ -140,10 +141,10 @@ def test_sigterm_stops_a_long_mine_within_a_second(tmp_path, command, exit_code)
             "--tick-every",
             "10",
         ]
-        child = Child([*stream_miner(), *args, *limits])
+        child = spawn([*stream_miner(), *args, *limits])
         child.wait_ready()
     else:
-        child = Child([*stream_miner(), "mine", str(data), "--json", *limits])
+        child = spawn([*stream_miner(), "mine", str(data), "--json", *limits])
     process = psutil.Process(child.process.pid)
     started = sum(process.cpu_times()[:2])
     # Reading ten lines costs no CPU to speak of: a further second of CPU is the mine at work.
@@ -162,9 +163,10 @@ def free_port() -> int:
         return probe.getsockname()[1]
 
 
-def test_an_unreachable_broker_is_reported_and_retried_until_sigterm(tmp_path):
+@pytest.mark.slow
+def test_an_unreachable_broker_is_reported_and_retried_until_sigterm(tmp_path, spawn):
     port = free_port()  # nothing listens there
-    child = Child(
+    child = spawn(
         [
             *stream_miner(),
             "run",

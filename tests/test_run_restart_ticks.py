@@ -7,7 +7,9 @@ import json
 import random
 import re
 
-from processes import Child, stream_miner
+import pytest
+
+from processes import stream_miner
 
 TICK = re.compile(r"^stream-miner: (tick (\d+): .*); [0-9.]+ s$")
 
@@ -35,24 +37,25 @@ def ticks_in(stderr: str) -> dict[int, str]:
     return found
 
 
-def test_sigkill_between_ticks_then_restart_continues_numbers_and_deltas(tmp_path):
+@pytest.mark.slow
+def test_sigkill_between_ticks_then_restart_continues_numbers_and_deltas(tmp_path, spawn):
     data = tmp_path / "in.jsonl"
     write_stream(data, 1500)
     common = ["run", "--source", f"file:{data}", "--window-size", "300", "--tick-every", "50"]
     common += ["--min-support", "0.05", "--rules", "--min-confidence", "0.4", "--checkpoint-interval", "0"]
 
-    straight = Child([*stream_miner(), *common, "--checkpoint-dir", str(tmp_path / "straight")])
+    straight = spawn([*stream_miner(), *common, "--checkpoint-dir", str(tmp_path / "straight")])
     code, err = straight.finish()
     assert code == 0, err
     expected = ticks_in(err)
     assert sorted(expected) == list(range(30))
 
     state = str(tmp_path / "killed")
-    victim = Child([*stream_miner(), *common, "--checkpoint-dir", state, "--pace", "400"])
+    victim = spawn([*stream_miner(), *common, "--checkpoint-dir", state, "--pace", "400"])
     victim.wait_for_line(r"^stream-miner: tick 11: ")
     victim.kill()
     before = ticks_in(victim.stderr)
-    restarted = Child([*stream_miner(), *common, "--checkpoint-dir", state])
+    restarted = spawn([*stream_miner(), *common, "--checkpoint-dir", state])
     code, err = restarted.finish()
     assert code == 0, err
     assert "resumed from" in err
