@@ -225,7 +225,7 @@ def test_console_script_bad_input_exits_2_without_traceback(tmp_path):
     assert done.returncode == 2
     assert "Traceback" not in err
     assert len(err.strip().splitlines()) == 1
-    assert "line 2" in err and "item not a string" in err
+    assert "line 2" in err and "bad item" in err
 
 
 def test_console_script_stdin_needs_format():

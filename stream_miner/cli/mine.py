@@ -125,7 +125,7 @@ def run_mine(args: argparse.Namespace) -> int:
         runner = Runner(settings, source, sink, listeners, talk_when_clean=False)
         try:
             with stop_on_signals(runner.stop) as received:
-                runner.run()
+                code = runner.run()
         finally:
             source.close()
             letters.close()
@@ -134,7 +134,7 @@ def run_mine(args: argparse.Namespace) -> int:
     if received:
         print("stream-miner: interrupted", file=sys.stderr)
         return 128 + received[0]
-    return 0
+    return code
 
 
 class StopAtMalformed:

@@ -11,12 +11,10 @@ import os
 import sys
 import time
 from collections.abc import Callable
-from typing import IO, TypeVar
+from typing import IO
 
 from stream_miner.decoding.files import FOLLOW_FORMATS, FileLayout, InputError, read_records
 from stream_miner.decoding.records import SourceRecord
-
-T = TypeVar("T")
 
 
 class FileSource:
@@ -73,9 +71,10 @@ class FileSource:
         except (OSError, ValueError):
             return None
 
-    def while_busy(self, work: Callable[[], T]) -> T:
-        """Run ``work`` here: a file needs no attention meanwhile."""
-        return work()
+    def while_busy(self, busy: Callable[[], bool]) -> None:
+        """Wait while ``busy()`` says so: a file needs no attention meanwhile."""
+        while busy():
+            pass
 
     def commit(self, positions: dict[int, int]) -> None:
         """Files keep no consumer positions: the checkpoint is the only record of progress."""

@@ -10,10 +10,10 @@
   committed. The listener is kafka-python's asynchronous one: it runs on the client's IO
   loop, so it uses the coordinator's awaitable fetch and commit calls (kafka-python 3.x
   internals, pinned in pyproject) instead of the blocking consumer methods.
-- Mining is kept off the poll path: :meth:`KafkaSource.while_busy` runs a tick on a worker
-  thread while this thread keeps polling with every partition paused, so a slow tick never
-  exceeds ``max_poll_interval_ms``; records of partitions assigned meanwhile are kept for
-  the next :meth:`poll`.
+- Mining is kept off the poll path: while a tick runs on the loop's worker thread,
+  :meth:`KafkaSource.while_busy` keeps polling with every partition paused, so a slow tick
+  never exceeds ``max_poll_interval_ms``; records of partitions assigned meanwhile are kept
+  for the next :meth:`poll`.
 - Any client option passes through (``--kafka-option key=value``); a value ``env:NAME`` is
   read from the environment variable NAME, so secrets never appear on the command line.
   Option values are never logged.
@@ -191,27 +191,17 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             self._consumer.poll(timeout_ms=200, max_records=min(max_records, self._max_records))
         )
 
-    def while_busy(self, work: Callable[[], T]) -> T:
-        """Run ``work`` on a worker thread while this thread keeps the group membership alive
-        by polling with every partition paused."""
+    def while_busy(self, busy: Callable[[], bool]) -> None:
+        """Keep the group membership alive while ``busy()`` (a tick on a worker thread) says
+        so, by polling with every partition paused; records of partitions assigned meanwhile
+        are kept for the next :meth:`poll`."""
         paused = set(self._consumer.assignment())
         self._consumer.pause(*paused)
-        outcome: dict[str, object] = {}
-
-        def run() -> None:
-            try:
-                outcome["value"] = work()
-            except BaseException as error:  # handed back to the calling thread below
-                outcome["error"] = error
-
-        worker = threading.Thread(target=run, name="stream-miner-tick")
-        worker.start()
-        while worker.is_alive():
-            self._backlog += self._records(self._consumer.poll(timeout_ms=100))
-        self._consumer.resume(*(paused & set(self._consumer.assignment())))
-        if "error" in outcome:
-            raise outcome["error"]  # type: ignore[misc]
-        return outcome["value"]  # type: ignore[return-value]
+        try:
+            while busy():
+                self._backlog += self._records(self._consumer.poll(timeout_ms=100))
+        finally:
+            self._consumer.resume(*(paused & set(self._consumer.assignment())))
 
     def _records(self, batches: dict) -> list[SourceRecord]:
         for tp, messages in batches.items():

@@ -6,12 +6,10 @@ from __future__ import annotations
 from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Protocol, TypeVar
+from typing import Protocol
 
 from stream_miner.decoding.records import DeadLetter, SourceRecord
 from stream_miner.engine.miner import Tick
-
-T = TypeVar("T")
 
 
 class Source(Protocol):
@@ -33,10 +31,9 @@ class Source(Protocol):
         """True once a finite source has nothing more."""
         ...
 
-    def while_busy(self, work: Callable[[], T]) -> T:
-        """Run ``work`` (a tick) and return its value; a source that must keep talking to a
-        broker meanwhile runs it on a worker thread."""
-        ...
+    def while_busy(self, busy: Callable[[], bool]) -> None:
+        """Return once ``busy()`` (which waits a little for a tick on a worker thread) says
+        False; a source that must keep talking to a broker meanwhile does so between calls."""
 
     def position(self) -> str | None:
         """Where reading stands, for a person (share of a file read, lag behind a topic)."""

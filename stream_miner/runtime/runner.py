@@ -43,6 +43,8 @@ from stream_miner.runtime.schedule import TickSchedule
 
 EXIT_OK, EXIT_USAGE = 0, 2
 IDLE_WAIT = 0.05  # seconds to wait after a poll that returned nothing
+BUSY_WAIT = 0.05  # seconds between looks at a running tick
+ABANDON_AFTER = 0.3  # seconds a tick gets to notice a stop before it is abandoned
 
 
 @dataclass(frozen=True)
@@ -216,7 +218,7 @@ class Runner:
     # ------------------------------------------------------------------- ticks
     def _tick(self) -> None:
         self.progress.close()
-        report = self.source.while_busy(self._refresh)
+        report = self._refresh_off_the_main_thread()
         self.schedule.ticked()
         for listener in self.listeners:
             listener.on_tick(report)
@@ -224,17 +226,48 @@ class Runner:
         if time.monotonic() - self._last_checkpoint_at >= self.settings.checkpoint_interval:
             self._checkpoint()
 
+    def _refresh_off_the_main_thread(self) -> TickReport:
+        """Run :meth:`_refresh` on a worker thread, so that signals are handled at once and a
+        Kafka source keeps polling meanwhile. Once a stop is asked for, the tick gets
+        ``ABANDON_AFTER`` seconds to notice the interrupt; then it is abandoned (its result
+        would be thrown away) and :class:`MiningInterrupted` is raised here."""
+        outcome: dict[str, object] = {}
+
+        def work() -> None:
+            try:
+                outcome["report"] = self._refresh()
+            except BaseException as error:  # handed back to the loop's thread below
+                outcome["error"] = error
+
+        worker = threading.Thread(target=work, name="stream-miner-tick", daemon=True)
+        worker.start()
+        stopped_at: list[float] = []
+
+        def busy() -> bool:
+            worker.join(BUSY_WAIT)
+            if self.stopping and worker.is_alive():
+                stopped_at[:] = stopped_at or [time.monotonic()]
+                return time.monotonic() - stopped_at[0] < ABANDON_AFTER
+            return worker.is_alive()
+
+        self.source.while_busy(busy)
+        if worker.is_alive():
+            raise MiningInterrupted("the tick was abandoned on stop")
+        if "error" in outcome:
+            raise outcome["error"]  # type: ignore[misc]
+        return outcome["report"]  # type: ignore[return-value]
+
     def _refresh(self) -> TickReport:
         """Update the window and refresh the result (on a worker thread for sources that keep
         polling meanwhile)."""
-        with self._lock:
-            started = time.perf_counter()
+        started = time.perf_counter()
+        with self._lock:  # the tick itself changes nothing a checkpoint reads
             self.miner.flush()
-            applied = time.perf_counter()
-            tick = self.miner.tick(
-                self.settings.params, full_remine=self.settings.full_remine, interrupt=self.interrupt
-            )
-            done = time.perf_counter()
+        applied = time.perf_counter()
+        tick = self.miner.tick(
+            self.settings.params, full_remine=self.settings.full_remine, interrupt=self.interrupt
+        )
+        done = time.perf_counter()
         window = self.settings.window
         start = end = None
         if isinstance(window, TimeWindow) and self.newest > -math.inf:
