@@ -36,7 +36,7 @@ FRESH = "--restart-fresh"
 POLICY = BasketPolicy(max_items=4, oversize=Oversize.TRUNCATE)
 PARAMS = [
     MiningParams(min_count=1),
-    MiningParams(min_count=2, max_len=2),
+    MiningParams(min_count=2, max_size=2),
     MiningParams(min_support=Fraction(1, 5), rules=RuleFilter()),
     MiningParams(min_count=1, rules=RuleFilter(min_confidence=Fraction(1, 2)), exclude=frozenset("b")),
 ]
@@ -192,7 +192,7 @@ def canonical(result):
         result.n_baskets,
         result.min_count,
         result.itemsets,
-        {result.rule_names(r): r.count for r in result.rules},
+        {(r.antecedent, r.consequent): r.count for r in result.rules},
     )
 
 

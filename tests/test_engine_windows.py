@@ -92,12 +92,12 @@ def test_threshold_is_compared_in_exact_integers():
     assert MiningParams(min_support=Fraction(1, 100)).threshold(0) == 1
 
 
-def test_max_len_and_include_exclude_lists():
+def test_max_size_and_include_exclude_lists():
     miner = WindowMiner()
     for basket in (["a", "b", "c"], ["a", "b", "c"], ["a", "c"], ["b", "d"]):
         miner.add(basket)
     full = frequent_itemsets([["a", "b", "c"], ["a", "b", "c"], ["a", "c"], ["b", "d"]], 2)
-    assert miner.mine(MiningParams(min_count=2, max_len=2)).itemsets == {
+    assert miner.mine(MiningParams(min_count=2, max_size=2)).itemsets == {
         k: v for k, v in full.items() if len(k) <= 2
     }
     only_ab = miner.mine(MiningParams(min_count=2, include=frozenset("ab"))).itemsets

@@ -110,7 +110,7 @@ def mining_params(args: argparse.Namespace) -> MiningParams:
     return MiningParams(
         min_support=min_support,
         min_count=args.min_count,
-        max_len=args.max_len,
+        max_size=args.max_len,
         include=None if args.include is None else frozenset(args.include),
         exclude=frozenset(args.exclude),
         rules=rules,

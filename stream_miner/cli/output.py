@@ -20,7 +20,7 @@ def json_lines(result: MiningResult, tick: int | None = None) -> list[str]:
     for items, count in sorted(result.itemsets.items(), key=lambda kv: (len(kv[0]), kv[0])):
         record = {"type": "itemset", "items": list(items), "count": count, "support": count / n}
         lines.append(json.dumps(record | extra, ensure_ascii=False))
-    named = sorted((result.rule_names(rule), rule) for rule in result.rules)
+    named = sorted(((rule.antecedent, rule.consequent), rule) for rule in result.rules)
     for (antecedent, consequent), rule in named:
         conviction = None if math.isinf(rule.conviction) else rule.conviction
         record = {
@@ -52,12 +52,12 @@ def write_table(result: MiningResult, out: TextIO, *, show_rules: bool, tick: in
         for items, count in itemsets:
             print(f"{count:>8} {count / n:>8.4f}  {', '.join(items)}", file=out)
     if show_rules:
-        rules = sorted(result.rules, key=lambda r: (-r.confidence, -r.lift, result.rule_names(r)))
+        rules = sorted(result.rules, key=lambda r: (-r.confidence, -r.lift, (r.antecedent, r.consequent)))
         print(f"\n{len(rules)} rules", file=out)
         if rules:
             print(f"{'conf':>6} {'lift':>6} {'lever':>7} {'conv':>6} {'count':>7}  rule", file=out)
         for rule in rules:
-            antecedent, consequent = result.rule_names(rule)
+            antecedent, consequent = rule.antecedent, rule.consequent
             conviction = "inf" if math.isinf(rule.conviction) else f"{rule.conviction:.2f}"
             print(
                 f"{rule.confidence:>6.3f} {rule.lift:>6.2f} {rule.leverage:>7.4f} {conviction:>6}"

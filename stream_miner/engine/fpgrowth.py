@@ -41,18 +41,18 @@ def mine_tree(
     tree: TreeArrays,
     min_count: int,
     *,
-    max_len: int | None = None,
+    max_size: int | None = None,
     allowed: np.ndarray | None = None,
 ) -> dict[Itemset, int]:
-    """All itemsets with count >= ``min_count`` (and at most ``max_len`` items), with counts.
+    """All itemsets with count >= ``min_count`` (and at most ``max_size`` items), with counts.
 
     ``allowed`` is an optional boolean mask over item ids; other items never appear.
     Itemsets are returned as tuples of item ids in increasing id order.
     """
     if min_count < 1:
         raise ValueError(f"min_count must be at least 1, got {min_count}")
-    if max_len is not None and max_len < 1:
-        raise ValueError(f"max_len must be at least 1, got {max_len}")
+    if max_size is not None and max_size < 1:
+        raise ValueError(f"max_size must be at least 1, got {max_size}")
     if tree.n_baskets == 0:
         return {}
     n_items = int(tree.item.max()) + 1
@@ -72,10 +72,10 @@ def mine_tree(
     code_of[by_tree_order] = np.arange(by_tree_order.size)
 
     out: dict[Itemset, int] = {}
-    miner = _Grower(min_count, max_len, by_tree_order, out)
+    miner = _Grower(min_count, max_size, by_tree_order, out)
     for code in range(by_tree_order.size):
         out[miner.itemset((code,))] = int(item_count[by_tree_order[code]])
-    if max_len == 1:
+    if max_size == 1:
         return out
     # the node links of the frequent items, in tree order: row block of code c = bounds[c:c+2]
     links = np.diff(header.start)[by_tree_order]
@@ -133,10 +133,10 @@ class _Grower:
     """Depth-first FP-growth over array-held conditional pattern bases."""
 
     def __init__(
-        self, min_count: int, max_len: int | None, items: np.ndarray, out: dict[Itemset, int]
+        self, min_count: int, max_size: int | None, items: np.ndarray, out: dict[Itemset, int]
     ) -> None:
         self.min_count = min_count
-        self.max_len = max_len
+        self.max_size = max_size
         self.items = items.tolist()
         self.out = out
 
@@ -162,7 +162,7 @@ class _Grower:
         freq_codes = np.flatnonzero(frequent)
         if freq_codes.size == 0:
             return
-        deeper = self.max_len is None or len(suffix) + 1 < self.max_len
+        deeper = self.max_size is None or len(suffix) + 1 < self.max_size
         if weight.size == 1:
             self._emit_single_path(suffix, freq_codes.tolist(), int(weight[0]))
             return
@@ -191,7 +191,7 @@ class _Grower:
 
     def _emit_single_path(self, suffix: tuple[int, ...], path: list[int], count: int) -> None:
         """A base of one row: every combination of its frequent items has the row's count."""
-        room = len(path) if self.max_len is None else min(len(path), self.max_len - len(suffix))
+        room = len(path) if self.max_size is None else min(len(path), self.max_size - len(suffix))
         for size in range(1, room + 1):
             for combo in combinations(path, size):
                 self.out[self.itemset(suffix + combo)] = count

@@ -8,9 +8,11 @@ always those of the exact current window.
 from __future__ import annotations
 
 import math
+import numbers
 from collections import Counter
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
+from decimal import Decimal
 
 import numpy as np
 
@@ -142,17 +144,22 @@ class WindowMiner:
 
     # ------------------------------------------------------------------ input
     def add(self, items: Iterable[str], ts: float | None = None) -> Verdict:
-        """Offer one basket of item names (with an optional event time in seconds)."""
-        if isinstance(self.window, TimeWindow) and ts is None:
+        """Offer one basket: item names (str), with an optional event time in seconds (a
+        finite number). A bad basket raises ValueError and changes nothing."""
+        if not isinstance(items, list | tuple):
+            items = _as_basket(items)
+        if ts is not None:
+            ts = _event_time(ts)
+        elif isinstance(self.window, TimeWindow):
             raise ValueError("a time window needs an event time for every basket")
         ids, verdict = self.policy.clean(self.vocabulary.encode(items))
         self.verdicts[verdict] += 1
         if verdict in (Verdict.SKIPPED_EMPTY, Verdict.SKIPPED_OVERSIZE):
             return verdict
         self._pending.append(ids)
-        self._pending_ts.append(math.nan if ts is None else float(ts))
+        self._pending_ts.append(math.nan if ts is None else ts)
         if ts is not None and ts > self._newest_ts:
-            self._newest_ts = float(ts)
+            self._newest_ts = ts
         if len(self._pending) >= self.batch_size:
             self.flush()
         return verdict
@@ -160,7 +167,7 @@ class WindowMiner:
     def advance_time(self, ts: float) -> None:
         """Move an event-time window's end to ``ts`` (if later) even before a basket that new
         arrives: the runtime's watermark. Baskets at or before ``ts - seconds`` expire."""
-        self._newest_ts = max(self._newest_ts, float(ts))
+        self._newest_ts = max(self._newest_ts, _event_time(ts))
 
     def flush(self) -> None:
         """Apply buffered baskets and expiries to the tree. O(batch) vectorised work."""
@@ -237,15 +244,16 @@ class WindowMiner:
 
     def _mine_tree(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int]:
         allowed = self._allowed_mask(params, names)
-        return mine_tree(self.tree.arrays(), min_count, max_len=params.max_len, allowed=allowed)
+        return mine_tree(self.tree.arrays(), min_count, max_size=params.max_size, allowed=allowed)
 
     def tick(self, params: MiningParams, *, full_remine: bool = False) -> Tick:
         """The current result and what changed since the previous tick.
 
         Incremental by default: only the baskets that entered or left the window since the
-        previous tick are looked at (see :mod:`stream_miner.engine.incremental.tracker`); the first tick, and
-        any tick whose item lists or length limit differ from the previous one, starts the
-        tracking from the window. ``full_remine`` mines the whole window instead (same result).
+        previous tick are looked at (see :mod:`stream_miner.engine.incremental.tracker`); the
+        first tick, and any tick whose item lists or size limit differ from the previous one,
+        starts the tracking from the window. ``full_remine`` mines the whole window instead
+        (same result).
         """
         self.flush()
         names = self.vocabulary.names()
@@ -263,9 +271,9 @@ class WindowMiner:
         return tick
 
     def _track(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int] | None:
-        key = (params.max_len, params.include, params.exclude)
+        key = (params.max_size, params.include, params.exclude)
         if self._tracker is None or key != self._tracker_key:
-            self._tracker = BorderTracker(params.max_len)
+            self._tracker = BorderTracker(params.max_size)
             self._tracker_key = key
             self._changes = [(self.store.contents()[0], 1)]
         changed = BasketArrays.concat([baskets for baskets, _ in self._changes])
@@ -285,29 +293,44 @@ class WindowMiner:
         self, found: dict[Itemset, int], min_count: int, params: MiningParams, names: Sequence[str]
     ) -> MiningResult:
         n = len(self.store)
-        rules = [] if params.rules is None else generate_rules(found, n, params.rules, names)
         if len(self._named) > 4 * len(found) + 4096:
             self._named = {}
         named = self._named
         for items in found.keys() - named.keys():
             named[items] = tuple(sorted(names[i] for i in items))
         itemsets = {named[items]: count for items, count in found.items()}
-        return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules, names=names)
+        rules = [] if params.rules is None else generate_rules(itemsets, n, params.rules)
+        return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules)
 
     @staticmethod
     def _allowed_mask(params: MiningParams, names: Sequence[str]) -> np.ndarray | None:
         if params.include is None and not params.exclude:
             return None
-        return np.array(
-            [
-                (params.include is None or name in params.include) and name not in params.exclude
-                for name in names
-            ],
-            dtype=bool,
-        )
+        return np.array([params.allows(name) for name in names], dtype=bool)
 
     def check_invariants(self) -> None:
         """Raise AssertionError unless the tree holds exactly the stored window."""
         self.flush()
         self.tree.check_invariants()
         assert self.tree.n_baskets == len(self.store), "tree and window sizes differ"
+
+
+def _as_basket(items: object) -> list[str]:
+    """A basket given as any iterable (not a string) as a list."""
+    if isinstance(items, str | bytes | bytearray):
+        raise ValueError("a basket is a list of item names, not a string")
+    if not isinstance(items, Iterable):
+        raise ValueError(f"a basket is a list of item names, not {type(items).__name__}")
+    return list(items)
+
+
+def _event_time(ts: object) -> float:
+    """``ts`` as a float, refused unless a finite number (bools are not numbers here)."""
+    if type(ts) is not float and (isinstance(ts, bool) or not isinstance(ts, numbers.Real | Decimal)):
+        raise ValueError(
+            f"an event time (ts) must be a finite number of seconds or None, not {type(ts).__name__}"
+        )
+    seconds = float(ts)
+    if not math.isfinite(seconds):
+        raise ValueError(f"an event time (ts) must be a finite number of seconds or None, got {seconds}")
+    return seconds

@@ -67,20 +67,20 @@ class _Level:
 class BorderTracker:
     """Frequent itemsets and their negative border with exact counts, kept up to date.
 
-    ``max_len`` bounds itemset size. The threshold and the allowed items are given to
+    ``max_size`` bounds itemset size. The threshold and the allowed items are given to
     :meth:`retarget` at every tick. When more than ``max_watched`` items would need pair
     counts, :meth:`retarget` declines (returns False) and the caller mines in full; only item
     counts are kept until the window narrows again.
     """
 
     def __init__(
-        self, max_len: int | None = None, margin: float = 0.25, max_watched: int = MAX_WATCHED
+        self, max_size: int | None = None, margin: float = 0.25, max_watched: int = MAX_WATCHED
     ) -> None:
-        if max_len is not None and max_len < 1:
-            raise ValueError(f"max itemset length must be at least 1, got {max_len}")
+        if max_size is not None and max_size < 1:
+            raise ValueError(f"max_size must be at least 1, got {max_size}")
         if not 0 <= margin < 1:
             raise ValueError(f"margin must lie in [0, 1), got {margin}")
-        self.max_len = max_len
+        self.max_size = max_size
         self.margin = margin
         self.max_watched = max_watched
         self.threshold: int | None = None
@@ -133,7 +133,7 @@ class BorderTracker:
         same_threshold = threshold == self.threshold and self.table is not None
         self.threshold, self.frequent_items = threshold, items
         touched, self._touched = np.concatenate(self._touched), [empty_rows(2)]
-        if self.max_len == 1:
+        if self.max_size == 1:
             return True
         wanted = self._watch_list(allowed, keep_above)
         if wanted is None:
@@ -153,7 +153,7 @@ class BorderTracker:
         pair_counts = self.table.count(candidates[:, 0], candidates[:, 1])
         hot = self._hot(pair_counts, match_rows(self.pairs, candidates) >= 0, keep_above)
         old_pairs, self.pairs = self.pairs, candidates[hot]
-        if self.max_len != 2:
+        if self.max_size != 2:
             self._retarget_levels(old_pairs, keep_above, window)
         return True
 
@@ -173,7 +173,7 @@ class BorderTracker:
         """Bring each level of three items or more in line with the frequent itemsets one
         smaller, level by level upwards."""
         below, levels = self.pairs, []
-        for size in range(3, (self.max_len or 1 << 30) + 1):
+        for size in range(3, (self.max_size or 1 << 30) + 1):
             old = self.levels[size - 3] if size - 3 < len(self.levels) else None
             if old is None and len(below) < 2:
                 break
