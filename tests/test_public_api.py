@@ -32,6 +32,8 @@ PUBLIC = {
     "save_checkpoint",
     "load_checkpoint",
     "CheckpointError",
+    "ResultTooLarge",
+    "MiningInterrupted",
     "__version__",
 }
 
@@ -51,6 +53,7 @@ def test_everything_public_is_exported_and_importable():
     exec("from stream_miner import *", namespace)
     assert set(namespace) >= PUBLIC
     assert all(getattr(stream_miner, name) is namespace[name] for name in PUBLIC)
+    assert issubclass(stream_miner.ResultTooLarge, ValueError)
     assert isinstance(stream_miner.__version__, str) and stream_miner.__version__.count(".") == 2
 
 
@@ -97,7 +100,7 @@ def test_bad_min_count_is_refused(given):
     refused("min_count" if given is not None else "exactly one", build)
 
 
-@pytest.mark.parametrize("name", ["max_size"])
+@pytest.mark.parametrize("name", ["max_size", "max_itemsets"])
 @pytest.mark.parametrize("given", [0, 1.5, True, "2"])
 def test_bad_whole_numbers_are_refused(name, given):
     refused(name, lambda: MiningParams(min_count=1, **{name: given}))
@@ -176,6 +179,7 @@ def test_rule_filter_converts_exactly_and_a_float_confidence_mines():
         ("max_rules", 2.5, "max_rules.*whole number"),
         ("max_antecedent", True, "max_antecedent.*whole number"),
         ("max_consequent", 0, "max_consequent"),
+        ("max_total", 0, "max_total"),
         ("antecedent_items", "oat", "antecedent_items.*not a string"),
         ("consequent_items", [1], "consequent_items.*int"),
         ("rank_by", "fame", "unknown measure"),

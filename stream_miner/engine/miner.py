@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import numbers
+import threading
 from collections import Counter
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
@@ -18,7 +19,7 @@ import numpy as np
 
 from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.delta import ResultDelta, diff_results
-from stream_miner.engine.fpgrowth import Itemset, mine_tree
+from stream_miner.engine.fpgrowth import Itemset, check_size, mine_tree
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.incremental.tracker import BorderTracker
 from stream_miner.engine.params import MiningParams
@@ -235,25 +236,41 @@ class WindowMiner:
         self.flush()
         return len(self.store)
 
-    def mine(self, params: MiningParams) -> MiningResult:
-        """Frequent itemsets (and rules if asked) of the current window: a full FP-growth mine."""
+    def mine(self, params: MiningParams, *, interrupt: threading.Event | None = None) -> MiningResult:
+        """Frequent itemsets (and rules if asked) of the current window: a full FP-growth mine.
+
+        Raises ``ResultTooLarge`` (before listing) past ``params.max_itemsets`` or the rule
+        filter's ``max_total``, and ``MiningInterrupted`` soon after ``interrupt`` is set.
+        """
         self.flush()
         names = self.vocabulary.names()
         min_count = params.threshold(len(self.store))
-        return self._result(self._mine_tree(params, names, min_count), min_count, params, names)
+        found = self._mine_tree(params, names, min_count, interrupt)
+        return self._result(found, min_count, params, names, interrupt)
 
-    def _mine_tree(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int]:
-        allowed = self._allowed_mask(params, names)
-        return mine_tree(self.tree.arrays(), min_count, max_size=params.max_size, allowed=allowed)
+    def _mine_tree(
+        self, params: MiningParams, names: Sequence[str], min_count: int, interrupt: threading.Event | None
+    ) -> dict[Itemset, int]:
+        return mine_tree(
+            self.tree.arrays(),
+            min_count,
+            max_size=params.max_size,
+            allowed=self._allowed_mask(params, names),
+            max_itemsets=params.max_itemsets,
+            interrupt=interrupt,
+        )
 
-    def tick(self, params: MiningParams, *, full_remine: bool = False) -> Tick:
+    def tick(
+        self, params: MiningParams, *, full_remine: bool = False, interrupt: threading.Event | None = None
+    ) -> Tick:
         """The current result and what changed since the previous tick.
 
         Incremental by default: only the baskets that entered or left the window since the
         previous tick are looked at (see :mod:`stream_miner.engine.incremental.tracker`); the
         first tick, and any tick whose item lists or size limit differ from the previous one,
         starts the tracking from the window. ``full_remine`` mines the whole window instead
-        (same result).
+        (same result). Raises like :meth:`mine`; a tick that raised counts for nothing (the
+        next tick has its number and its delta is against the last tick that returned).
         """
         self.flush()
         names = self.vocabulary.names()
@@ -261,16 +278,31 @@ class WindowMiner:
         if full_remine:
             self._tracker, found = None, None
         else:
-            found = self._track(params, names, min_count)  # None: too many items to track pairs of
+            found = self._track(params, names, min_count, interrupt)  # None: too many items to track
         if found is None:
-            found = self._mine_tree(params, names, min_count)
-        result = self._result(found, min_count, params, names)
+            found = self._mine_tree(params, names, min_count, interrupt)
+        result = self._result(found, min_count, params, names, interrupt)
         tick = Tick(self._ticks, result, diff_results(self._last, result))
         self._last = result
         self._ticks += 1
         return tick
 
-    def _track(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int] | None:
+    def _track(
+        self, params: MiningParams, names: Sequence[str], min_count: int, interrupt: threading.Event | None
+    ) -> dict[Itemset, int] | None:
+        try:
+            return self._update_tracker(params, names, min_count, interrupt)
+        except BaseException:
+            self._tracker, self._changes = None, []  # left half updated: start again next time
+            raise
+
+    def _update_tracker(
+        self,
+        params: MiningParams,
+        names: Sequence[str],
+        min_count: int,
+        interrupt: threading.Event | None,
+    ) -> dict[Itemset, int] | None:
         key = (params.max_size, params.include, params.exclude)
         if self._tracker is None or key != self._tracker_key:
             self._tracker = BorderTracker(params.max_size)
@@ -281,16 +313,44 @@ class WindowMiner:
             [np.full(len(baskets), sign, dtype=np.int64) for baskets, sign in self._changes]
             or [np.empty(0, dtype=np.int64)]
         ).astype(np.int64)
-        self._tracker.apply(changed, signs)
+        self._tracker.apply(changed, signs, interrupt)
         self._changes = []
         allowed = self._allowed_mask(params, names)
         allowed = np.ones(len(names), dtype=bool) if allowed is None else allowed
-        if not self._tracker.retarget(min_count, allowed, self.store.baskets_with):
+        if params.max_itemsets is not None:
+            self._check_size(
+                self._tracker.item_counts, min_count, allowed, params.max_size, params.max_itemsets
+            )
+        if not self._tracker.retarget(
+            min_count, allowed, self.store.baskets_with, max_itemsets=params.max_itemsets, interrupt=interrupt
+        ):
             return None
         return self._tracker.itemsets()
 
+    def _check_size(
+        self,
+        item_counts: np.ndarray,
+        min_count: int,
+        allowed: np.ndarray,
+        max_size: int | None,
+        max_itemsets: int,
+    ) -> None:
+        """Refuse (``ResultTooLarge``) a tick whose result surely exceeds ``max_itemsets``,
+        before the tracker builds any level; cheap at usual thresholds (few nodes reach them)."""
+        counts = item_counts[: allowed.size]
+        frequent = allowed.copy()
+        frequent[: counts.size] &= counts >= min_count
+        frequent[counts.size :] = False
+        path_items = self.tree.most_flagged_path(min_count, frequent)
+        check_size(int(frequent.sum()), path_items, max_size, max_itemsets)
+
     def _result(
-        self, found: dict[Itemset, int], min_count: int, params: MiningParams, names: Sequence[str]
+        self,
+        found: dict[Itemset, int],
+        min_count: int,
+        params: MiningParams,
+        names: Sequence[str],
+        interrupt: threading.Event | None,
     ) -> MiningResult:
         n = len(self.store)
         if len(self._named) > 4 * len(found) + 4096:
@@ -299,7 +359,7 @@ class WindowMiner:
         for items in found.keys() - named.keys():
             named[items] = tuple(sorted(names[i] for i in items))
         itemsets = {named[items]: count for items, count in found.items()}
-        rules = [] if params.rules is None else generate_rules(itemsets, n, params.rules)
+        rules = [] if params.rules is None else generate_rules(itemsets, n, params.rules, interrupt=interrupt)
         return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules)
 
     @staticmethod

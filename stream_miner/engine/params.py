@@ -1,4 +1,4 @@
-"""What to mine: support threshold, itemset size, item lists and rule filters."""
+"""What to mine: support threshold, itemset size, item lists, rule filters and the result cap."""
 
 from __future__ import annotations
 
@@ -15,6 +15,7 @@ from stream_miner.engine.arguments import (
     optional_whole_number,
     whole_number,
 )
+from stream_miner.engine.limits import DEFAULT_MAX_ITEMSETS
 from stream_miner.engine.rules import RuleFilter
 
 
@@ -28,7 +29,9 @@ class MiningParams:
     - ``max_size``: the largest itemset size reported (None: any);
     - ``include`` / ``exclude``: item names (any iterable of str) that alone may appear /
       never appear;
-    - ``rules``: a :class:`RuleFilter` to also derive rules.
+    - ``rules``: a :class:`RuleFilter` to also derive rules;
+    - ``max_itemsets``: a mine that would report more itemsets raises
+      :class:`~stream_miner.engine.limits.ResultTooLarge` before listing them (None: no cap).
 
     Stored values are normalised: ``min_support`` is a Fraction, item lists are frozensets.
 
@@ -42,6 +45,7 @@ class MiningParams:
     include: Iterable[str] | None = None
     exclude: Iterable[str] = frozenset()
     rules: RuleFilter | None = None
+    max_itemsets: int | None = DEFAULT_MAX_ITEMSETS
 
     def __post_init__(self) -> None:
         if (self.min_support is None) == (self.min_count is None):
@@ -57,6 +61,7 @@ class MiningParams:
         object.__setattr__(self, "exclude", item_names(self.exclude, "exclude"))
         if self.rules is not None and not isinstance(self.rules, RuleFilter):
             raise ValueError(f"rules must be a RuleFilter or None, got {type(self.rules).__name__}")
+        object.__setattr__(self, "max_itemsets", optional_whole_number(self.max_itemsets, "max_itemsets"))
 
     def threshold(self, n_baskets: int) -> int:
         """Absolute count threshold for a window of ``n_baskets``: ceil(fraction x N), >= 1."""

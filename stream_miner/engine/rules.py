@@ -11,6 +11,7 @@ Thresholds are compared exactly, in integers, never in floats.
 from __future__ import annotations
 
 import math
+import threading
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from fractions import Fraction
@@ -18,9 +19,11 @@ from itertools import combinations
 from typing import cast
 
 from stream_miner.engine.arguments import Exact, bounded_fraction, item_names, optional_whole_number
+from stream_miner.engine.limits import DEFAULT_MAX_RULES_TOTAL, stop_if_set, too_many_rules
 
 Names = tuple[str, ...]
 RANK_MEASURES = ("confidence", "lift", "leverage", "conviction", "support", "count")
+SPLITS_PER_CHECK = 4096  # antecedent/consequent splits looked at between two interrupt checks
 
 
 @dataclass(frozen=True)
@@ -73,7 +76,9 @@ class RuleFilter:
     ``MiningParams.min_support`` and are stored as Fractions; ``antecedent_items`` and
     ``consequent_items`` (any iterable of item names, stored as frozensets) restrict each
     side when given; ``max_rules`` keeps the best rules by ``rank_by`` (ties: higher count,
-    then item names).
+    then item names). When more than ``max_total`` rules pass the filter (before
+    ``max_rules`` picks the best), the mine raises
+    :class:`~stream_miner.engine.limits.ResultTooLarge` (None: no cap).
     """
 
     min_confidence: Exact = Fraction(0)
@@ -84,6 +89,7 @@ class RuleFilter:
     consequent_items: Iterable[str] | None = None
     max_rules: int | None = None
     rank_by: str = "confidence"
+    max_total: int | None = DEFAULT_MAX_RULES_TOTAL
 
     def __post_init__(self) -> None:
         confidence = bounded_fraction(self.min_confidence, "min_confidence", zero=True, up_to_one=True)
@@ -91,7 +97,7 @@ class RuleFilter:
         if self.min_lift is not None:
             lift = bounded_fraction(self.min_lift, "min_lift", zero=True, up_to_one=False)
             object.__setattr__(self, "min_lift", lift)
-        for name in ("max_antecedent", "max_consequent", "max_rules"):
+        for name in ("max_antecedent", "max_consequent", "max_rules", "max_total"):
             object.__setattr__(self, name, optional_whole_number(getattr(self, name), name))
         for name in ("antecedent_items", "consequent_items"):
             if getattr(self, name) is not None:
@@ -104,17 +110,22 @@ def generate_rules(
     itemsets: Mapping[Names, int],
     n_baskets: int,
     rule_filter: RuleFilter = RuleFilter(),
+    *,
+    interrupt: threading.Event | None = None,
 ) -> list[Rule]:
     """Every antecedent/consequent split of every frequent itemset that passes the filter.
 
     ``itemsets`` (sorted tuples of item names) must be downward closed (every subset of a
-    member is a member), as mining output is. Cost: O(sum over itemsets of 2^size).
+    member is a member), as mining output is. Raises ``ResultTooLarge`` past the filter's
+    ``max_total`` and ``MiningInterrupted`` once ``interrupt`` is set.
+    Cost: O(sum over itemsets of 2^size).
     """
     f = rule_filter
     left, right = cast(frozenset | None, f.antecedent_items), cast(frozenset | None, f.consequent_items)
     confidence, lift = cast(Fraction, f.min_confidence), cast(Fraction | None, f.min_lift)
     conf_num, conf_den = confidence.numerator, confidence.denominator
     rules: list[Rule] = []
+    splits = 0
     for itemset, count in itemsets.items():
         size = len(itemset)
         if size < 2:
@@ -124,6 +135,9 @@ def generate_rules(
             if f.max_consequent is not None and size - k > f.max_consequent:
                 continue
             for antecedent in combinations(itemset, k):
+                splits += 1
+                if splits % SPLITS_PER_CHECK == 0:
+                    stop_if_set(interrupt)
                 if left is not None and not left.issuperset(antecedent):
                     continue
                 consequent = tuple(i for i in itemset if i not in antecedent)
@@ -136,6 +150,8 @@ def generate_rules(
                 if lift is not None and count * n_baskets * lift.denominator < lift.numerator * n_a * n_c:
                     continue
                 rules.append(Rule(antecedent, consequent, count, n_a, n_c, n_baskets))
+                if f.max_total is not None and len(rules) > f.max_total:
+                    raise too_many_rules(len(rules), f.max_total)
     if f.max_rules is not None and len(rules) > f.max_rules:
         rules = best_rules(rules, f.max_rules, f.rank_by)
     return rules
