@@ -39,7 +39,8 @@ ORDER_GAIN = 0.02  # rebuild when the current order needs this much more nodes t
 class MinerState:
     """Everything a :class:`WindowMiner` needs to carry on after a restart (for checkpoints):
     the window's baskets and their event times, the not yet applied buffer, the vocabulary,
-    the tree's item order and the counters."""
+    the tree's item order, the counters, the next tick's number and the last tick's result
+    (the next delta is taken against it; None before the first tick)."""
 
     names: list[str]
     baskets: BasketArrays
@@ -51,6 +52,8 @@ class MinerState:
     ranked: bool
     applied_since_order: int
     verdicts: Counter[Verdict]
+    next_tick: int
+    last_result: MiningResult | None
 
 
 @dataclass(frozen=True)
@@ -117,6 +120,8 @@ class WindowMiner:
             ranked=self._ranked,
             applied_since_order=self._applied_since_order,
             verdicts=Counter(self.verdicts),
+            next_tick=self._ticks,
+            last_result=self._last,
         )
 
     @classmethod
@@ -128,7 +133,8 @@ class WindowMiner:
         batch_size: int = DEFAULT_BATCH,
     ) -> WindowMiner:
         """A miner holding ``state``: the window's baskets go straight into the tree and store
-        (hygiene and expiry already ran on them); the buffer is applied by the next flush."""
+        (hygiene and expiry already ran on them); the buffer is applied by the next flush.
+        Ticks carry on from ``state.next_tick``, the first delta against ``state.last_result``."""
         miner = cls(window, policy, batch_size)
         miner.vocabulary = ItemVocabulary(state.names)
         miner.verdicts = Counter(state.verdicts)
@@ -141,6 +147,8 @@ class WindowMiner:
         miner._applied_since_order = state.applied_since_order
         miner._pending = state.pending.to_lists()
         miner._pending_ts = state.pending_ts.tolist()
+        miner._ticks = state.next_tick
+        miner._last = state.last_result
         return miner
 
     # ------------------------------------------------------------------ input
