@@ -6,6 +6,7 @@ The public API for embedding the engine in a Python service; everything not list
 
 from stream_miner.engine.delta import ResultDelta
 from stream_miner.engine.hygiene import BasketPolicy, Oversize, Verdict
+from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
 from stream_miner.engine.miner import MinerState, Tick, WindowMiner
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.result import MiningResult
@@ -20,10 +21,12 @@ __all__ = [
     "CheckpointError",
     "CountWindow",
     "MinerState",
+    "MiningInterrupted",
     "MiningParams",
     "MiningResult",
     "Oversize",
     "ResultDelta",
+    "ResultTooLarge",
     "Rule",
     "RuleFilter",
     "Tick",

@@ -36,7 +36,7 @@ FRESH = "--restart-fresh"
 POLICY = BasketPolicy(max_items=4, oversize=Oversize.TRUNCATE)
 PARAMS = [
     MiningParams(min_count=1),
-    MiningParams(min_count=2, max_len=2),
+    MiningParams(min_count=2, max_size=2),
     MiningParams(min_support=Fraction(1, 5), rules=RuleFilter()),
     MiningParams(min_count=1, rules=RuleFilter(min_confidence=Fraction(1, 2)), exclude=frozenset("b")),
 ]
@@ -67,6 +67,8 @@ def feed(miner: WindowMiner, stream) -> None:
 
 
 def assert_same_miner(a: WindowMiner, b: WindowMiner) -> None:
+    assert a.state().next_tick == b.state().next_tick
+    assert a.state().last_result == b.state().last_result
     for params in PARAMS:
         assert a.mine(params) == b.mine(params)
     assert a.vocabulary.names() == b.vocabulary.names()
@@ -86,6 +88,8 @@ def assert_same_miner(a: WindowMiner, b: WindowMiner) -> None:
 def test_round_trip_restores_window_vocabulary_verdicts_and_metadata(tmp_path, window, with_ts):
     miner = WindowMiner(window, POLICY, batch_size=7)
     feed(miner, random_stream(1, 150, with_ts=with_ts))
+    for params in PARAMS:
+        miner.tick(params)
     miner.add(["zebra", "yak", "x", "w", "v", "u"], ts=1000.0 if with_ts else None)  # truncated
     assert miner.verdicts[Verdict.SKIPPED_EMPTY] and miner.verdicts[Verdict.TRUNCATED]
 
@@ -95,6 +99,9 @@ def test_round_trip_restores_window_vocabulary_verdicts_and_metadata(tmp_path, w
 
     assert metadata == METADATA
     assert json.dumps(metadata, sort_keys=True) == json.dumps(METADATA, sort_keys=True)
+    assert restored.state().next_tick == len(PARAMS)
+    assert restored.state().last_result == miner.state().last_result is not None
+    assert miner.state().last_result.rules
     assert restored.batch_size == 3 and restored.window == window and restored.policy == POLICY
     assert_same_miner(miner, restored)
     assert [restored.vocabulary.lookup(n) for n in miner.vocabulary.names()] == list(
@@ -192,7 +199,7 @@ def canonical(result):
         result.n_baskets,
         result.min_count,
         result.itemsets,
-        {result.rule_names(r): r.count for r in result.rules},
+        {(r.antecedent, r.consequent): r.count for r in result.rules},
     )
 
 
@@ -237,6 +244,58 @@ def test_continuing_after_restore_equals_an_uninterrupted_miner(
     assert whole.vocabulary.names() == resumed.vocabulary.names()
     assert whole.verdicts == resumed.verdicts
     resumed.check_invariants()
+
+
+tick_stream_st = st.lists(
+    st.tuples(st.lists(st.sampled_from("abcdefg"), max_size=6), st.integers(0, 40), st.booleans()),
+    min_size=1,
+    max_size=60,
+)
+TICK_PARAMS = [
+    MiningParams(min_support=Fraction(1, 4), rules=RuleFilter(min_confidence=Fraction(1, 3))),
+    MiningParams(min_count=2, max_size=2, rules=RuleFilter()),
+    MiningParams(min_count=1, exclude=["a"]),
+]
+
+
+def run_ticks(miner: WindowMiner, stream, params, last: bool) -> list:
+    """Feed ``stream``, ticking where it says (and once more at the end when ``last``):
+    each tick's number, result (rules by their sides) and delta."""
+
+    def tick() -> tuple:
+        made = miner.tick(params)
+        result = made.result
+        rules = {(r.antecedent, r.consequent): r for r in result.rules}
+        return made.number, result.n_baskets, result.min_count, result.itemsets, rules, made.delta
+
+    out = []
+    for basket, ts, tick_now in stream:
+        miner.add(basket, ts=ts)
+        if tick_now:
+            out.append(tick())
+    return out + [tick()] if last else out
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    tick_stream_st,
+    st.data(),
+    st.one_of(st.builds(CountWindow, st.integers(1, 15)), st.builds(TimeWindow, st.integers(1, 12))),
+    st.integers(1, 8),
+    st.sampled_from(TICK_PARAMS),
+)
+def test_ticks_carry_on_across_a_checkpoint(stream, data, window, batch, params):
+    """Ticks interrupted by a save and a load at any point: the same tick numbers, results
+    and deltas as without (the first delta after the load is against the last tick before)."""
+    cut = data.draw(st.integers(0, len(stream)), label="cut")
+    expected = run_ticks(WindowMiner(window, batch_size=batch), stream, params, last=True)
+    first = WindowMiner(window, batch_size=batch)
+    got = run_ticks(first, stream[:cut], params, last=False)
+    with tempfile.TemporaryDirectory() as directory:
+        save_checkpoint(directory, first, {})
+        resumed, _ = load_checkpoint(directory, window=window, batch_size=batch)
+    got += run_ticks(resumed, stream[cut:], params, last=True)
+    assert got == expected
 
 
 def test_watermark_advanced_before_the_save_is_kept(tmp_path):
@@ -284,8 +343,14 @@ def test_continuing_across_tree_reorders_keeps_results_identical(tmp_path):
 
 # ------------------------------------------------------------------ atomicity
 def _saved(tmp_path, seed, metadata):
+    """A checkpoint of a miner after two ticks (the last with rules), with a buffer."""
     miner = WindowMiner(CountWindow(30), batch_size=16)
-    feed(miner, random_stream(seed, 80, with_ts=False))
+    stream = random_stream(seed, 80, with_ts=False)
+    feed(miner, stream[:40])
+    miner.tick(PARAMS[0])
+    feed(miner, stream[40:60])
+    assert miner.tick(PARAMS[3]).result.rules
+    feed(miner, stream[60:])
     assert len(miner.store) and miner._pending
     save_checkpoint(tmp_path, miner, metadata)
     return miner
@@ -453,7 +518,61 @@ CORRUPTIONS = {
         "40 baskets in a window of 30",
     ),
     "verdicts": (lambda p: _rewrite(p, _set_header(verdicts={"exploded": 3})), "corrupted"),
+    "missing ticks": (lambda p: _rewrite(p, _drop_header_field("ticks")), "missing ticks"),
+    "missing last rules": (lambda p: _rewrite(p, lambda a: a.pop("last_rules")), "missing last_rules"),
+    "negative tick": (lambda p: _rewrite(p, _set_header(ticks={"next": -1, "last": None})), "bad tick state"),
+    "ticks without a result": (
+        lambda p: _rewrite(p, _set_header(ticks={"next": 2, "last": None})),
+        "bad tick state",
+    ),
+    "last result header": (
+        lambda p: _rewrite(p, _set_header(ticks={"next": 2, "last": {"n_baskets": 30}})),
+        "bad last result header",
+    ),
+    "last count": (
+        lambda p: _rewrite(p, lambda a: a.__setitem__("last_counts", a["last_counts"] + 100)),
+        "outside [min_count, n_baskets]",
+    ),
+    "last counts missing": (
+        lambda p: _rewrite(p, lambda a: a.__setitem__("last_counts", a["last_counts"][1:])),
+        "last_counts does not match",
+    ),
+    "last item outside vocabulary": (
+        lambda p: _rewrite(p, lambda a: a.__setitem__("last_items", a["last_items"] + 1000)),
+        "outside the vocabulary",
+    ),
+    "itemset out of name order": (lambda p: _rewrite(p, _swap_first_pair), "not in name order"),
+    "repeated itemset": (lambda p: _rewrite(p, _repeat_first_itemset), "repeats an itemset"),
+    "rule to nowhere": (
+        lambda p: _rewrite(p, lambda a: a.__setitem__("last_rules", a["last_rules"] + 10**6)),
+        "refers to no itemset",
+    ),
+    "rule of one side": (
+        lambda p: _rewrite(p, lambda a: a.__setitem__("last_rules", a["last_rules"][:, [0, 0]].copy())),
+        "does not split",
+    ),
+    "rules shape": (
+        lambda p: _rewrite(p, lambda a: a.__setitem__("last_rules", a["last_rules"].ravel())),
+        "last_rules has dtype",
+    ),
 }
+
+
+def _swap_first_pair(arrays) -> None:
+    """Swap the two items of the last result's first itemset of two or more items."""
+    start = arrays["last_start"]
+    row = int(np.flatnonzero(np.diff(start) >= 2)[0])
+    items = arrays["last_items"].copy()
+    items[start[row]], items[start[row] + 1] = items[start[row] + 1], items[start[row]]
+    arrays["last_items"] = items
+
+
+def _repeat_first_itemset(arrays) -> None:
+    """Make the last result's second itemset a copy of its first (both of one item)."""
+    items = arrays["last_items"].copy()
+    assert arrays["last_start"][1] == 1 and arrays["last_start"][2] == 2
+    items[1] = items[0]
+    arrays["last_items"] = items
 
 
 def _drop_header_field(name):
@@ -511,9 +630,20 @@ def test_time_window_duration_mismatch_is_refused(tmp_path):
 
 
 def test_default_fresh_option_is_named(tmp_path):
+    assert checkpoint.DEFAULT_FRESH_OPTION == "--start-fresh"  # the `run` option
     (tmp_path / CHECKPOINT_NAME).write_text("garbage")
     with pytest.raises(CheckpointError, match=checkpoint.DEFAULT_FRESH_OPTION):
         load_checkpoint(tmp_path, window=CountWindow(3))
+
+
+def test_a_version_1_checkpoint_is_refused_as_made_by_an_older_release(tmp_path):
+    _saved(tmp_path, 11, {"tick": 2})
+    _rewrite(tmp_path / CHECKPOINT_NAME, _set_header(version=1))
+    with pytest.raises(CheckpointError) as info:
+        load_checkpoint(tmp_path, window=CountWindow(30), fresh_option=FRESH)
+    message = str(info.value)
+    assert "\n" not in message and "older stream-miner" in message and "version 1" in message
+    assert FRESH in message and str(tmp_path / CHECKPOINT_NAME) in message
 
 
 def test_newest_event_time_survives_even_when_infinite(tmp_path):

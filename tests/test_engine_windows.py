@@ -4,7 +4,11 @@ from __future__ import annotations
 
 import math
 import random
+import threading
+import time
+import tracemalloc
 from fractions import Fraction
+from itertools import combinations
 
 import pytest
 from hypothesis import given, settings
@@ -12,8 +16,11 @@ from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
 from stream_miner.engine.hygiene import BasketPolicy, Oversize, Verdict
+from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
+from stream_miner.engine.result import MiningResult
+from stream_miner.engine.rules import RuleFilter, generate_rules
 from stream_miner.engine.window import CountWindow, TimeWindow
 
 names_st = st.lists(st.sampled_from("abcdefgh"), min_size=1, max_size=6)
@@ -92,12 +99,12 @@ def test_threshold_is_compared_in_exact_integers():
     assert MiningParams(min_support=Fraction(1, 100)).threshold(0) == 1
 
 
-def test_max_len_and_include_exclude_lists():
+def test_max_size_and_include_exclude_lists():
     miner = WindowMiner()
     for basket in (["a", "b", "c"], ["a", "b", "c"], ["a", "c"], ["b", "d"]):
         miner.add(basket)
     full = frequent_itemsets([["a", "b", "c"], ["a", "b", "c"], ["a", "c"], ["b", "d"]], 2)
-    assert miner.mine(MiningParams(min_count=2, max_len=2)).itemsets == {
+    assert miner.mine(MiningParams(min_count=2, max_size=2)).itemsets == {
         k: v for k, v in full.items() if len(k) <= 2
     }
     only_ab = miner.mine(MiningParams(min_count=2, include=frozenset("ab"))).itemsets
@@ -170,3 +177,173 @@ def test_a_stable_item_order_is_kept():
         miner.add(basket)
     miner.flush()
     assert miner.tree is tree  # same popularity: never rebuilt
+
+
+# ------------------------------------------------------------ result caps and interrupts
+def long_baskets_window() -> WindowMiner:
+    """Ten copies of one basket of 32 items: at min count 1, 2^32 - 1 frequent itemsets."""
+    miner = WindowMiner(CountWindow(10))
+    for _ in range(10):
+        miner.add([f"item{i:02}" for i in range(32)])
+    return miner
+
+
+@pytest.mark.parametrize("how", ["mine", "tick", "full remine"])
+def test_a_combinatorial_blow_up_is_refused_before_listing(how):
+    miner = long_baskets_window()
+    params = MiningParams(min_count=1)
+    run = {
+        "mine": lambda: miner.mine(params),
+        "tick": lambda: miner.tick(params),
+        "full remine": lambda: miner.tick(params, full_remine=True),
+    }[how]
+    tracemalloc.start()
+    try:
+        with pytest.raises(ResultTooLarge) as info:
+            run()
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    message = str(info.value)
+    assert "\n" not in message and "4,294,967,295 itemsets" in message and "1,000,000" in message
+    assert "--min-support" in message and "--max-size" in message
+    assert info.value.found == 2**32 - 1 and info.value.cap == 1_000_000
+    assert peak < 16 * 2**20  # counted, not listed
+    small = MiningParams(min_count=1, max_size=2)
+    expected = frequent_itemsets([[f"item{i:02}" for i in range(32)]] * 10, 1, 2)
+    assert miner.mine(small).itemsets == expected
+    tick = miner.tick(small)
+    assert tick.number == 0 and tick.result.itemsets == expected  # the refused tick counted for nothing
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    st.lists(names_st, min_size=1, max_size=40),
+    st.integers(1, 30),
+    st.integers(1, 3),
+    st.one_of(st.none(), st.integers(1, 4)),
+    st.integers(1, 80),
+    st.lists(st.integers(1, 40), min_size=1, max_size=4),
+)
+def test_the_itemset_cap_refuses_exactly_the_results_over_it(stream, size, min_count, max_size, cap, checks):
+    """Mines and ticks (incremental and full) succeed exactly when the brute-force result
+    holds at most ``max_itemsets`` itemsets, and then give it."""
+    miner = WindowMiner(CountWindow(size), batch_size=3)
+    params = MiningParams(min_count=min_count, max_size=max_size, max_itemsets=cap)
+    for i, basket in enumerate(stream, start=1):
+        miner.add(basket)
+        if i in checks or i == len(stream):
+            expected = frequent_itemsets(stream[:i][-size:], min_count, max_size)
+            for run in (miner.mine, miner.tick, lambda p: miner.tick(p, full_remine=True)):
+                if len(expected) > cap:
+                    with pytest.raises(ResultTooLarge) as info:
+                        run(params)
+                    assert cap < info.value.found <= len(expected)
+                else:
+                    result = run(params)
+                    assert (
+                        result if isinstance(result, MiningResult) else result.result
+                    ).itemsets == expected
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(names_st, min_size=1, max_size=30), st.integers(1, 2), st.integers(1, 40))
+def test_the_rule_cap_refuses_exactly_the_rule_lists_over_it(stream, min_count, cap):
+    itemsets = frequent_itemsets(stream, min_count)
+    passing = sum(
+        1
+        for itemset, count in itemsets.items()
+        for size in range(1, len(itemset))
+        for left in combinations(itemset, size)
+        if 3 * count >= itemsets[left]  # confidence at least 1/3
+    )
+    miner = WindowMiner()
+    for basket in stream:
+        miner.add(basket)
+    params = MiningParams(min_count=min_count, rules=RuleFilter(min_confidence=Fraction(1, 3), max_total=cap))
+    if passing > cap:
+        with pytest.raises(ResultTooLarge, match="rules"):
+            miner.mine(params)
+    else:
+        assert len(miner.mine(params).rules) == passing
+
+
+class PollWatch(threading.Event):
+    """An interrupt event that also sets ``deep`` once it was polled ``polls`` times, that
+    is once the mine polling it is well under way."""
+
+    def __init__(self, polls: int) -> None:
+        super().__init__()
+        self.remaining = polls
+        self.deep = threading.Event()
+
+    def is_set(self) -> bool:
+        self.remaining -= 1
+        if self.remaining <= 0:
+            self.deep.set()
+        return super().is_set()
+
+
+def interrupted_within(work, interrupt: PollWatch, bound: float = 5.0) -> float:
+    """Run ``work`` on a thread, set ``interrupt`` once the work polled it enough, and return
+    how long the work took to stop (it must raise MiningInterrupted)."""
+    outcome: list[BaseException | None] = []
+
+    def target():
+        try:
+            work()
+            outcome.append(None)
+        except BaseException as error:
+            outcome.append(error)
+
+    thread = threading.Thread(target=target, daemon=True)
+    thread.start()
+    assert interrupt.deep.wait(60), "the work never polled its interrupt"
+    interrupt.set()
+    began = time.monotonic()
+    thread.join(60)
+    stopped = time.monotonic() - began
+    assert not thread.is_alive(), "the work ignored its interrupt"
+    assert len(outcome) == 1 and isinstance(outcome[0], MiningInterrupted), outcome
+    assert stopped < bound
+    return stopped
+
+
+def dense_window() -> tuple[WindowMiner, list[list[str]]]:
+    """40 baskets of 24 of 28 items: far more frequent itemsets at count 2 than any test
+    could list (uninterrupted, mining them takes hours)."""
+    rng = random.Random(5)
+    baskets = [rng.sample([f"i{k}" for k in range(28)], 24) for _ in range(40)]
+    miner = WindowMiner(CountWindow(40))
+    for basket in baskets:
+        miner.add(basket)
+    return miner, baskets
+
+
+HUGE = MiningParams(min_count=2, max_itemsets=None)
+MODEST = MiningParams(min_count=30, max_size=3)
+
+
+def test_an_interrupted_mine_stops_promptly_and_the_miner_stays_usable():
+    miner, baskets = dense_window()
+    interrupt = PollWatch(300)
+    interrupted_within(lambda: miner.mine(HUGE, interrupt=interrupt), interrupt)
+    assert miner.mine(MODEST).itemsets == frequent_itemsets(baskets, 30, 3)
+
+
+def test_an_interrupted_tick_stops_promptly_and_counts_for_nothing():
+    miner, baskets = dense_window()
+    interrupt = PollWatch(4)
+    interrupted_within(lambda: miner.tick(HUGE, interrupt=interrupt), interrupt)
+    tick = miner.tick(MODEST)
+    assert tick.number == 0 and tick.result.itemsets == frequent_itemsets(baskets, 30, 3)
+
+
+def test_interrupted_rule_generation_stops_promptly():
+    names = [f"i{k:02}" for k in range(18)]
+    # every subset of 18 items, the larger the rarer: 3^18 splits to look at, none passing
+    itemsets = {subset: 2 ** (18 - size) for size in range(1, 19) for subset in combinations(names, size)}
+    interrupt = PollWatch(3)
+    interrupted_within(
+        lambda: generate_rules(itemsets, 2**18, RuleFilter(min_confidence=1), interrupt=interrupt), interrupt
+    )

@@ -453,9 +453,9 @@ def step_window(tracker: BorderTracker, window: list, tick) -> list:
     return window
 
 
-def expected_itemsets(window, allowed: np.ndarray, threshold: int, max_len) -> dict:
+def expected_itemsets(window, allowed: np.ndarray, threshold: int, max_size) -> dict:
     kept = [[i for i in b if i < allowed.size and allowed[i]] for b in window]
-    return frequent_itemsets(kept, threshold, max_len)
+    return frequent_itemsets(kept, threshold, max_size)
 
 
 @settings(max_examples=150, deadline=None)
@@ -463,11 +463,11 @@ def expected_itemsets(window, allowed: np.ndarray, threshold: int, max_len) -> d
 def test_border_tracker_equals_brute_force_at_every_tick(plan, always_join, tiny_passes):
     """BorderTracker driven as the engine does (one apply per tick, then retarget with a
     threshold that changes between ticks): itemsets() equals the brute-force miner over the
-    window restricted to the allowed items and max_len, for margins 0, 0.25 and 0.5; also
+    window restricted to the allowed items and max_size, for margins 0, 0.25 and 0.5; also
     when every changed level is rebuilt by the full Apriori join (its fallback path), and
     when the compiled pair loop and the bitmaps work through a batch in tiny passes."""
-    max_len, margin, allowed, ticks = plan
-    tracker, window = BorderTracker(max_len, margin), []
+    max_size, margin, allowed, ticks = plan
+    tracker, window = BorderTracker(max_size, margin), []
     with pytest.MonkeyPatch.context() as patch:
         if always_join:
             patch.setattr(BorderTracker, "_new_candidates", lambda self, below, added: None)
@@ -478,7 +478,7 @@ def test_border_tracker_equals_brute_force_at_every_tick(plan, always_join, tiny
             step_window(tracker, window, tick)
             threshold = tick[3]
             assert tracker.retarget(threshold, allowed, source_of(window))
-            assert tracker.itemsets() == expected_itemsets(window, allowed, threshold, max_len)
+            assert tracker.itemsets() == expected_itemsets(window, allowed, threshold, max_size)
 
 
 def predicted_watch(counts, allowed, keep_above, watched):
@@ -492,9 +492,9 @@ class WatchModel:
     """Drives a tracker with a small ``max_watched`` and keeps the test's own model of its
     watched items (None: no pair table), from the window's item counts."""
 
-    def __init__(self, max_len, margin, max_watched, allowed):
-        self.tracker = BorderTracker(max_len, margin, max_watched)
-        self.max_len, self.margin, self.max_watched, self.allowed = max_len, margin, max_watched, allowed
+    def __init__(self, max_size, margin, max_watched, allowed):
+        self.tracker = BorderTracker(max_size, margin, max_watched)
+        self.max_size, self.margin, self.max_watched, self.allowed = max_size, margin, max_watched, allowed
         self.watched = None
         self.seen = allowed.size  # the tracker keeps counts for every item id it has seen
 
@@ -517,14 +517,16 @@ class WatchModel:
         """Retarget; assert it declines exactly when the watch list is too long, and that
         an accepted retarget watches the predicted items and gives the exact result."""
         wanted = self.wanted(threshold, self.watched)
-        fits = self.max_len == 1 or int(wanted.sum()) <= self.max_watched
+        fits = self.max_size == 1 or int(wanted.sum()) <= self.max_watched
         ok = self.tracker.retarget(threshold, self.allowed, source_of(window))
         assert ok == fits
-        if self.max_len != 1:
+        if self.max_size != 1:
             self.watched = wanted if ok else None
         if ok:
-            assert self.tracker.itemsets() == expected_itemsets(window, self.allowed, threshold, self.max_len)
-            if self.max_len != 1:
+            assert self.tracker.itemsets() == expected_itemsets(
+                window, self.allowed, threshold, self.max_size
+            )
+            if self.max_size != 1:
                 assert np.flatnonzero(self.tracker.table.watched).tolist() == np.flatnonzero(wanted).tolist()
         return ok
 
@@ -542,8 +544,8 @@ def test_border_tracker_declines_exactly_when_too_many_items_need_pairs(plan, ma
     allowed items would be watched (per the _watch_list rule, computed here from the
     window); after a decline, retarget at the smallest threshold that fits returns True and
     the result is exact again; every True retarget is exact."""
-    max_len, margin, allowed, ticks = plan
-    model, window = WatchModel(max_len, margin, max_watched, allowed), []
+    max_size, margin, allowed, ticks = plan
+    model, window = WatchModel(max_size, margin, max_watched, allowed), []
     for tick in ticks:
         model.step(window, tick)
         if not model.retarget(window, tick[3]):

@@ -19,7 +19,7 @@ names_st = st.lists(st.sampled_from("abcdefghijk"), min_size=1, max_size=7)
 params_st = st.builds(
     MiningParams,
     min_support=st.fractions(Fraction(1, 30), Fraction(1, 2)),
-    max_len=st.one_of(st.none(), st.integers(1, 4)),
+    max_size=st.one_of(st.none(), st.integers(1, 4)),
     exclude=st.frozensets(st.sampled_from("abcdefghijk"), max_size=2),
     rules=st.one_of(st.none(), st.just(RuleFilter(min_confidence=Fraction(1, 3)))),
 )
@@ -29,7 +29,7 @@ def restricted(itemsets, params):
     return {
         k: v
         for k, v in itemsets.items()
-        if not set(k) & params.exclude and (params.max_len is None or len(k) <= params.max_len)
+        if not set(k) & params.exclude and (params.max_size is None or len(k) <= params.max_size)
     }
 
 
@@ -37,16 +37,16 @@ def check_tick(tick, full, window, params, previous):
     min_count = max(1, math.ceil(params.min_support * len(window)))
     expected = restricted(frequent_itemsets(window, min_count), params)
     assert tick.result.itemsets == full.itemsets == expected
-    assert {full.rule_names(r): r for r in full.rules} == {
-        tick.result.rule_names(r): r for r in tick.result.rules
+    assert {(r.antecedent, r.consequent): r for r in full.rules} == {
+        (r.antecedent, r.consequent): r for r in tick.result.rules
     }
     old = {} if previous is None else previous.itemsets
     new = tick.result.itemsets
     assert tick.delta.added == {k: v for k, v in new.items() if k not in old}
     assert tick.delta.removed == {k: v for k, v in old.items() if k not in new}
     assert tick.delta.changed == {k: (old[k], v) for k, v in new.items() if k in old and old[k] != v}
-    old_rules = set() if previous is None else {previous.rule_names(r) for r in previous.rules}
-    new_rules = {tick.result.rule_names(r) for r in tick.result.rules}
+    old_rules = set() if previous is None else {(r.antecedent, r.consequent) for r in previous.rules}
+    new_rules = {(r.antecedent, r.consequent) for r in tick.result.rules}
     assert set(tick.delta.rules_added) == new_rules - old_rules
     assert set(tick.delta.rules_removed) == old_rules - new_rules
 

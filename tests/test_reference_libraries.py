@@ -77,7 +77,7 @@ def test_rules_and_measures_equal_mlxtend_association_rules(dataset):
         (tuple(sorted(row.antecedents)), tuple(sorted(row.consequents))): row
         for row in reference.itertuples()
     }
-    ours = {result.rule_names(rule): rule for rule in result.rules}
+    ours = {(rule.antecedent, rule.consequent): rule for rule in result.rules}
     # mlxtend compares confidence as a float; keep only rules clear of the 0.3 boundary
     boundary = {k for k, r in expected.items() if abs(r.confidence - 0.3) < 1e-9}
     assert set(ours) - boundary == set(expected) - boundary

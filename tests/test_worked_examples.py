@@ -22,7 +22,7 @@ def mine(baskets, min_count, window=None, rules=False):
         miner.add(basket)
     params = MiningParams(min_count=min_count, rules=RuleFilter() if rules else None)
     result = miner.mine(params)
-    by_sides = {result.rule_names(rule): rule for rule in result.rules}
+    by_sides = {(rule.antecedent, rule.consequent): rule for rule in result.rules}
     return result, by_sides
 
 

@@ -49,7 +49,7 @@ def diff_results(before: MiningResult | None, after: MiningResult) -> ResultDelt
 
 
 def _rules_by_key(result: MiningResult) -> dict[RuleKey, Rule]:
-    return {result.rule_names(rule): rule for rule in result.rules}
+    return {(rule.antecedent, rule.consequent): rule for rule in result.rules}
 
 
 def _counts(rule: Rule) -> tuple[int, int, int, int]:

@@ -8,15 +8,18 @@ always those of the exact current window.
 from __future__ import annotations
 
 import math
+import numbers
+import threading
 from collections import Counter
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
+from decimal import Decimal
 
 import numpy as np
 
 from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.delta import ResultDelta, diff_results
-from stream_miner.engine.fpgrowth import Itemset, mine_tree
+from stream_miner.engine.fpgrowth import Itemset, check_size, mine_tree
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.incremental.tracker import BorderTracker
 from stream_miner.engine.params import MiningParams
@@ -36,7 +39,8 @@ ORDER_GAIN = 0.02  # rebuild when the current order needs this much more nodes t
 class MinerState:
     """Everything a :class:`WindowMiner` needs to carry on after a restart (for checkpoints):
     the window's baskets and their event times, the not yet applied buffer, the vocabulary,
-    the tree's item order and the counters."""
+    the tree's item order, the counters, the next tick's number and the last tick's result
+    (the next delta is taken against it; None before the first tick)."""
 
     names: list[str]
     baskets: BasketArrays
@@ -48,6 +52,8 @@ class MinerState:
     ranked: bool
     applied_since_order: int
     verdicts: Counter[Verdict]
+    next_tick: int
+    last_result: MiningResult | None
 
 
 @dataclass(frozen=True)
@@ -98,6 +104,11 @@ class WindowMiner:
         self._named: dict[Itemset, tuple[str, ...]] = {}  # item names of recent results' itemsets
 
     # ------------------------------------------------------------------ state
+    @property
+    def next_tick(self) -> int:
+        """The number the next tick will carry (ticks already done, across restarts)."""
+        return self._ticks
+
     def state(self) -> MinerState:
         """The miner's state, read only: the buffer is kept as it is rather than applied, so
         taking the state changes nothing (not even the batch boundaries that decide the
@@ -114,6 +125,8 @@ class WindowMiner:
             ranked=self._ranked,
             applied_since_order=self._applied_since_order,
             verdicts=Counter(self.verdicts),
+            next_tick=self._ticks,
+            last_result=self._last,
         )
 
     @classmethod
@@ -125,7 +138,8 @@ class WindowMiner:
         batch_size: int = DEFAULT_BATCH,
     ) -> WindowMiner:
         """A miner holding ``state``: the window's baskets go straight into the tree and store
-        (hygiene and expiry already ran on them); the buffer is applied by the next flush."""
+        (hygiene and expiry already ran on them); the buffer is applied by the next flush.
+        Ticks carry on from ``state.next_tick``, the first delta against ``state.last_result``."""
         miner = cls(window, policy, batch_size)
         miner.vocabulary = ItemVocabulary(state.names)
         miner.verdicts = Counter(state.verdicts)
@@ -138,21 +152,28 @@ class WindowMiner:
         miner._applied_since_order = state.applied_since_order
         miner._pending = state.pending.to_lists()
         miner._pending_ts = state.pending_ts.tolist()
+        miner._ticks = state.next_tick
+        miner._last = state.last_result
         return miner
 
     # ------------------------------------------------------------------ input
     def add(self, items: Iterable[str], ts: float | None = None) -> Verdict:
-        """Offer one basket of item names (with an optional event time in seconds)."""
-        if isinstance(self.window, TimeWindow) and ts is None:
+        """Offer one basket: item names (str), with an optional event time in seconds (a
+        finite number). A bad basket raises ValueError and changes nothing."""
+        if not isinstance(items, list | tuple):
+            items = _as_basket(items)
+        if ts is not None:
+            ts = _event_time(ts)
+        elif isinstance(self.window, TimeWindow):
             raise ValueError("a time window needs an event time for every basket")
         ids, verdict = self.policy.clean(self.vocabulary.encode(items))
         self.verdicts[verdict] += 1
         if verdict in (Verdict.SKIPPED_EMPTY, Verdict.SKIPPED_OVERSIZE):
             return verdict
         self._pending.append(ids)
-        self._pending_ts.append(math.nan if ts is None else float(ts))
+        self._pending_ts.append(math.nan if ts is None else ts)
         if ts is not None and ts > self._newest_ts:
-            self._newest_ts = float(ts)
+            self._newest_ts = ts
         if len(self._pending) >= self.batch_size:
             self.flush()
         return verdict
@@ -160,7 +181,7 @@ class WindowMiner:
     def advance_time(self, ts: float) -> None:
         """Move an event-time window's end to ``ts`` (if later) even before a basket that new
         arrives: the runtime's watermark. Baskets at or before ``ts - seconds`` expire."""
-        self._newest_ts = max(self._newest_ts, float(ts))
+        self._newest_ts = max(self._newest_ts, _event_time(ts))
 
     def flush(self) -> None:
         """Apply buffered baskets and expiries to the tree. O(batch) vectorised work."""
@@ -228,24 +249,41 @@ class WindowMiner:
         self.flush()
         return len(self.store)
 
-    def mine(self, params: MiningParams) -> MiningResult:
-        """Frequent itemsets (and rules if asked) of the current window: a full FP-growth mine."""
+    def mine(self, params: MiningParams, *, interrupt: threading.Event | None = None) -> MiningResult:
+        """Frequent itemsets (and rules if asked) of the current window: a full FP-growth mine.
+
+        Raises ``ResultTooLarge`` (before listing) past ``params.max_itemsets`` or the rule
+        filter's ``max_total``, and ``MiningInterrupted`` soon after ``interrupt`` is set.
+        """
         self.flush()
         names = self.vocabulary.names()
         min_count = params.threshold(len(self.store))
-        return self._result(self._mine_tree(params, names, min_count), min_count, params, names)
+        found = self._mine_tree(params, names, min_count, interrupt)
+        return self._result(found, min_count, params, names, interrupt)
 
-    def _mine_tree(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int]:
-        allowed = self._allowed_mask(params, names)
-        return mine_tree(self.tree.arrays(), min_count, max_len=params.max_len, allowed=allowed)
+    def _mine_tree(
+        self, params: MiningParams, names: Sequence[str], min_count: int, interrupt: threading.Event | None
+    ) -> dict[Itemset, int]:
+        return mine_tree(
+            self.tree.arrays(),
+            min_count,
+            max_size=params.max_size,
+            allowed=self._allowed_mask(params, names),
+            max_itemsets=params.max_itemsets,
+            interrupt=interrupt,
+        )
 
-    def tick(self, params: MiningParams, *, full_remine: bool = False) -> Tick:
+    def tick(
+        self, params: MiningParams, *, full_remine: bool = False, interrupt: threading.Event | None = None
+    ) -> Tick:
         """The current result and what changed since the previous tick.
 
         Incremental by default: only the baskets that entered or left the window since the
-        previous tick are looked at (see :mod:`stream_miner.engine.incremental.tracker`); the first tick, and
-        any tick whose item lists or length limit differ from the previous one, starts the
-        tracking from the window. ``full_remine`` mines the whole window instead (same result).
+        previous tick are looked at (see :mod:`stream_miner.engine.incremental.tracker`); the
+        first tick, and any tick whose item lists or size limit differ from the previous one,
+        starts the tracking from the window. ``full_remine`` mines the whole window instead
+        (same result). Raises like :meth:`mine`; a tick that raised counts for nothing (the
+        next tick has its number and its delta is against the last tick that returned).
         """
         self.flush()
         names = self.vocabulary.names()
@@ -253,19 +291,34 @@ class WindowMiner:
         if full_remine:
             self._tracker, found = None, None
         else:
-            found = self._track(params, names, min_count)  # None: too many items to track pairs of
+            found = self._track(params, names, min_count, interrupt)  # None: too many items to track
         if found is None:
-            found = self._mine_tree(params, names, min_count)
-        result = self._result(found, min_count, params, names)
+            found = self._mine_tree(params, names, min_count, interrupt)
+        result = self._result(found, min_count, params, names, interrupt)
         tick = Tick(self._ticks, result, diff_results(self._last, result))
         self._last = result
         self._ticks += 1
         return tick
 
-    def _track(self, params: MiningParams, names: Sequence[str], min_count: int) -> dict[Itemset, int] | None:
-        key = (params.max_len, params.include, params.exclude)
+    def _track(
+        self, params: MiningParams, names: Sequence[str], min_count: int, interrupt: threading.Event | None
+    ) -> dict[Itemset, int] | None:
+        try:
+            return self._update_tracker(params, names, min_count, interrupt)
+        except BaseException:
+            self._tracker, self._changes = None, []  # left half updated: start again next time
+            raise
+
+    def _update_tracker(
+        self,
+        params: MiningParams,
+        names: Sequence[str],
+        min_count: int,
+        interrupt: threading.Event | None,
+    ) -> dict[Itemset, int] | None:
+        key = (params.max_size, params.include, params.exclude)
         if self._tracker is None or key != self._tracker_key:
-            self._tracker = BorderTracker(params.max_len)
+            self._tracker = BorderTracker(params.max_size)
             self._tracker_key = key
             self._changes = [(self.store.contents()[0], 1)]
         changed = BasketArrays.concat([baskets for baskets, _ in self._changes])
@@ -273,41 +326,84 @@ class WindowMiner:
             [np.full(len(baskets), sign, dtype=np.int64) for baskets, sign in self._changes]
             or [np.empty(0, dtype=np.int64)]
         ).astype(np.int64)
-        self._tracker.apply(changed, signs)
+        self._tracker.apply(changed, signs, interrupt)
         self._changes = []
         allowed = self._allowed_mask(params, names)
         allowed = np.ones(len(names), dtype=bool) if allowed is None else allowed
-        if not self._tracker.retarget(min_count, allowed, self.store.baskets_with):
+        if params.max_itemsets is not None:
+            self._check_size(
+                self._tracker.item_counts, min_count, allowed, params.max_size, params.max_itemsets
+            )
+        if not self._tracker.retarget(
+            min_count, allowed, self.store.baskets_with, max_itemsets=params.max_itemsets, interrupt=interrupt
+        ):
             return None
         return self._tracker.itemsets()
 
+    def _check_size(
+        self,
+        item_counts: np.ndarray,
+        min_count: int,
+        allowed: np.ndarray,
+        max_size: int | None,
+        max_itemsets: int,
+    ) -> None:
+        """Refuse (``ResultTooLarge``) a tick whose result surely exceeds ``max_itemsets``,
+        before the tracker builds any level; cheap at usual thresholds (few nodes reach them)."""
+        counts = item_counts[: allowed.size]
+        frequent = allowed.copy()
+        frequent[: counts.size] &= counts >= min_count
+        frequent[counts.size :] = False
+        path_items = self.tree.most_flagged_path(min_count, frequent)
+        check_size(int(frequent.sum()), path_items, max_size, max_itemsets)
+
     def _result(
-        self, found: dict[Itemset, int], min_count: int, params: MiningParams, names: Sequence[str]
+        self,
+        found: dict[Itemset, int],
+        min_count: int,
+        params: MiningParams,
+        names: Sequence[str],
+        interrupt: threading.Event | None,
     ) -> MiningResult:
         n = len(self.store)
-        rules = [] if params.rules is None else generate_rules(found, n, params.rules, names)
         if len(self._named) > 4 * len(found) + 4096:
             self._named = {}
         named = self._named
         for items in found.keys() - named.keys():
             named[items] = tuple(sorted(names[i] for i in items))
         itemsets = {named[items]: count for items, count in found.items()}
-        return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules, names=names)
+        rules = [] if params.rules is None else generate_rules(itemsets, n, params.rules, interrupt=interrupt)
+        return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules)
 
     @staticmethod
     def _allowed_mask(params: MiningParams, names: Sequence[str]) -> np.ndarray | None:
         if params.include is None and not params.exclude:
             return None
-        return np.array(
-            [
-                (params.include is None or name in params.include) and name not in params.exclude
-                for name in names
-            ],
-            dtype=bool,
-        )
+        return np.array([params.allows(name) for name in names], dtype=bool)
 
     def check_invariants(self) -> None:
         """Raise AssertionError unless the tree holds exactly the stored window."""
         self.flush()
         self.tree.check_invariants()
         assert self.tree.n_baskets == len(self.store), "tree and window sizes differ"
+
+
+def _as_basket(items: object) -> list[str]:
+    """A basket given as any iterable (not a string) as a list."""
+    if isinstance(items, str | bytes | bytearray):
+        raise ValueError("a basket is a list of item names, not a string")
+    if not isinstance(items, Iterable):
+        raise ValueError(f"a basket is a list of item names, not {type(items).__name__}")
+    return list(items)
+
+
+def _event_time(ts: object) -> float:
+    """``ts`` as a float, refused unless a finite number (bools are not numbers here)."""
+    if type(ts) is not float and (isinstance(ts, bool) or not isinstance(ts, numbers.Real | Decimal)):
+        raise ValueError(
+            f"an event time (ts) must be a finite number of seconds or None, not {type(ts).__name__}"
+        )
+    seconds = float(ts)
+    if not math.isfinite(seconds):
+        raise ValueError(f"an event time (ts) must be a finite number of seconds or None, got {seconds}")
+    return seconds

@@ -2,25 +2,17 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 from stream_miner.engine.rules import Rule
 
 
 @dataclass(frozen=True)
 class MiningResult:
-    """Frequent itemsets (item names, sorted) with counts, and rules, for one window."""
+    """Frequent itemsets (sorted tuples of item names) with counts, and rules (whose sides are
+    sorted tuples of item names too), for a window of ``n_baskets`` at threshold ``min_count``."""
 
     n_baskets: int
     min_count: int
     itemsets: dict[tuple[str, ...], int]
     rules: list[Rule]
-    names: Sequence[str] = field(repr=False)
-
-    def rule_names(self, rule: Rule) -> tuple[tuple[str, ...], tuple[str, ...]]:
-        """Antecedent and consequent of ``rule`` as sorted item names."""
-        return (
-            tuple(sorted(self.names[i] for i in rule.antecedent)),
-            tuple(sorted(self.names[i] for i in rule.consequent)),
-        )

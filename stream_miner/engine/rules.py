@@ -11,21 +11,27 @@ Thresholds are compared exactly, in integers, never in floats.
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable, Mapping, Sequence
+import threading
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from fractions import Fraction
 from itertools import combinations
+from typing import cast
 
-Itemset = tuple[int, ...]
+from stream_miner.engine.arguments import Exact, bounded_fraction, item_names, optional_whole_number
+from stream_miner.engine.limits import DEFAULT_MAX_RULES_TOTAL, stop_if_set, too_many_rules
+
+Names = tuple[str, ...]
 RANK_MEASURES = ("confidence", "lift", "leverage", "conviction", "support", "count")
+SPLITS_PER_CHECK = 4096  # antecedent/consequent splits looked at between two interrupt checks
 
 
 @dataclass(frozen=True)
 class Rule:
-    """One rule ``antecedent -> consequent`` with its counts and measures."""
+    """One rule ``antecedent -> consequent`` (sorted item names) with its counts and measures."""
 
-    antecedent: Itemset
-    consequent: Itemset
+    antecedent: Names
+    consequent: Names
     count: int
     antecedent_count: int
     consequent_count: int
@@ -64,52 +70,62 @@ class Rule:
 
 @dataclass(frozen=True)
 class RuleFilter:
-    """Which rules to keep.
+    """Which rules to keep, checked and normalised at construction.
 
-    ``min_confidence`` and ``min_lift`` are exact fractions; ``antecedent_items`` and
-    ``consequent_items`` (item names) restrict each side when given; ``max_rules`` keeps the
-    best rules by ``rank_by`` (ties: higher count, then smaller item ids).
+    ``min_confidence`` (in [0, 1]) and ``min_lift`` (at least 0) convert exactly like
+    ``MiningParams.min_support`` and are stored as Fractions; ``antecedent_items`` and
+    ``consequent_items`` (any iterable of item names, stored as frozensets) restrict each
+    side when given; ``max_rules`` keeps the best rules by ``rank_by`` (ties: higher count,
+    then item names). When more than ``max_total`` rules pass the filter (before
+    ``max_rules`` picks the best), the mine raises
+    :class:`~stream_miner.engine.limits.ResultTooLarge` (None: no cap).
     """
 
-    min_confidence: Fraction = Fraction(0)
-    min_lift: Fraction | None = None
+    min_confidence: Exact = Fraction(0)
+    min_lift: Exact | None = None
     max_antecedent: int | None = None
     max_consequent: int | None = None
-    antecedent_items: frozenset[str] | None = None
-    consequent_items: frozenset[str] | None = None
+    antecedent_items: Iterable[str] | None = None
+    consequent_items: Iterable[str] | None = None
     max_rules: int | None = None
     rank_by: str = "confidence"
+    max_total: int | None = DEFAULT_MAX_RULES_TOTAL
 
     def __post_init__(self) -> None:
-        if not 0 <= self.min_confidence <= 1:
-            raise ValueError(f"min confidence must lie in [0, 1], got {self.min_confidence}")
-        if self.min_lift is not None and self.min_lift < 0:
-            raise ValueError(f"min lift must be non-negative, got {self.min_lift}")
-        for name in ("max_antecedent", "max_consequent", "max_rules"):
-            value = getattr(self, name)
-            if value is not None and value < 1:
-                raise ValueError(f"{name.replace('_', ' ')} must be at least 1, got {value}")
-        if self.rank_by not in RANK_MEASURES:
+        confidence = bounded_fraction(self.min_confidence, "min_confidence", zero=True, up_to_one=True)
+        object.__setattr__(self, "min_confidence", confidence)
+        if self.min_lift is not None:
+            lift = bounded_fraction(self.min_lift, "min_lift", zero=True, up_to_one=False)
+            object.__setattr__(self, "min_lift", lift)
+        for name in ("max_antecedent", "max_consequent", "max_rules", "max_total"):
+            object.__setattr__(self, name, optional_whole_number(getattr(self, name), name))
+        for name in ("antecedent_items", "consequent_items"):
+            if getattr(self, name) is not None:
+                object.__setattr__(self, name, item_names(getattr(self, name), name))
+        if not isinstance(self.rank_by, str) or self.rank_by not in RANK_MEASURES:
             raise ValueError(f"unknown measure {self.rank_by!r}; choose from {', '.join(RANK_MEASURES)}")
 
 
 def generate_rules(
-    itemsets: Mapping[Itemset, int],
+    itemsets: Mapping[Names, int],
     n_baskets: int,
     rule_filter: RuleFilter = RuleFilter(),
-    names: Sequence[str] = (),
+    *,
+    interrupt: threading.Event | None = None,
 ) -> list[Rule]:
     """Every antecedent/consequent split of every frequent itemset that passes the filter.
 
-    ``itemsets`` (item ids) must be downward closed (every subset of a member is a member),
-    as mining output is; ``names`` maps ids to names for the side restrictions and for
-    breaking ties under ``max_rules``. Cost: O(sum over itemsets of 2^size).
+    ``itemsets`` (sorted tuples of item names) must be downward closed (every subset of a
+    member is a member), as mining output is. Raises ``ResultTooLarge`` past the filter's
+    ``max_total`` and ``MiningInterrupted`` once ``interrupt`` is set.
+    Cost: O(sum over itemsets of 2^size).
     """
     f = rule_filter
-    left = None if f.antecedent_items is None else _ids_named(f.antecedent_items, names)
-    right = None if f.consequent_items is None else _ids_named(f.consequent_items, names)
-    conf_num, conf_den = f.min_confidence.numerator, f.min_confidence.denominator
-    rules = []
+    left, right = cast(frozenset | None, f.antecedent_items), cast(frozenset | None, f.consequent_items)
+    confidence, lift = cast(Fraction, f.min_confidence), cast(Fraction | None, f.min_lift)
+    conf_num, conf_den = confidence.numerator, confidence.denominator
+    rules: list[Rule] = []
+    splits = 0
     for itemset, count in itemsets.items():
         size = len(itemset)
         if size < 2:
@@ -119,6 +135,9 @@ def generate_rules(
             if f.max_consequent is not None and size - k > f.max_consequent:
                 continue
             for antecedent in combinations(itemset, k):
+                splits += 1
+                if splits % SPLITS_PER_CHECK == 0:
+                    stop_if_set(interrupt)
                 if left is not None and not left.issuperset(antecedent):
                     continue
                 consequent = tuple(i for i in itemset if i not in antecedent)
@@ -128,26 +147,16 @@ def generate_rules(
                 if count * conf_den < conf_num * n_a:
                     continue
                 n_c = itemsets[consequent]
-                if f.min_lift is not None and (
-                    count * n_baskets * f.min_lift.denominator < f.min_lift.numerator * n_a * n_c
-                ):
+                if lift is not None and count * n_baskets * lift.denominator < lift.numerator * n_a * n_c:
                     continue
                 rules.append(Rule(antecedent, consequent, count, n_a, n_c, n_baskets))
+                if f.max_total is not None and len(rules) > f.max_total:
+                    raise too_many_rules(len(rules), f.max_total)
     if f.max_rules is not None and len(rules) > f.max_rules:
-        rules = best_rules(rules, f.max_rules, f.rank_by, names)
+        rules = best_rules(rules, f.max_rules, f.rank_by)
     return rules
 
 
-def best_rules(rules: Iterable[Rule], limit: int, rank_by: str, names: Sequence[str]) -> list[Rule]:
+def best_rules(rules: Iterable[Rule], limit: int, rank_by: str) -> list[Rule]:
     """The ``limit`` best rules by ``rank_by``; ties: higher count, then item names."""
-
-    def key(rule: Rule) -> tuple:
-        left = sorted(names[i] for i in rule.antecedent)
-        right = sorted(names[i] for i in rule.consequent)
-        return (-rule.measure(rank_by), -rule.count, left, right)
-
-    return sorted(rules, key=key)[:limit]
-
-
-def _ids_named(wanted: frozenset[str], names: Sequence[str]) -> frozenset[int]:
-    return frozenset(i for i, name in enumerate(names) if name in wanted)
+    return sorted(rules, key=lambda r: (-r.measure(rank_by), -r.count, r.antecedent, r.consequent))[:limit]

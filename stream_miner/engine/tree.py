@@ -22,7 +22,7 @@ The header table (item totals and node links) is built on demand by :func:`heade
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -278,6 +278,13 @@ class PrefixTree:
             n_baskets=self.n_baskets,
         )
 
+    def most_flagged_path(self, min_count: int, flagged: np.ndarray) -> int:
+        """The most items flagged in the boolean ``flagged`` (over item ids) on the path to
+        one node counted at least ``min_count``. O(slots) plus a climb from those nodes."""
+        nodes = np.flatnonzero(self._count[1 : self._used] >= min_count) + 1
+        key = self._key
+        return most_flagged_on_a_path(nodes, lambda n: (key[n] & _ITEM_MASK, key[n] >> _SHIFT), flagged)
+
     def paths(self) -> dict[tuple[int, ...], int]:
         """Every stored path (in tree order) with the number of baskets that end on it."""
         out = {}
@@ -325,6 +332,24 @@ class PrefixTree:
         tree = cls(rank, capacity_hint=4 * len(baskets) + 16)
         tree.update(tree.paths_of(baskets), ())
         return tree
+
+
+def most_flagged_on_a_path(
+    nodes: np.ndarray, step: Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]], flagged: np.ndarray
+) -> int:
+    """The most items flagged in the boolean ``flagged`` (over item ids; items past its end
+    are not flagged) on the path from one of ``nodes`` (not the root) up to the root;
+    ``step(nodes)`` gives the nodes' items and parents. O(nodes x depth), vectorised."""
+    rows = np.arange(nodes.size)
+    found = np.zeros(nodes.size, dtype=np.int64)
+    current = nodes.astype(np.int64)
+    while current.size:
+        items, parents = step(current)
+        inside = items < flagged.size
+        found[rows[inside]] += flagged[items[inside]]
+        keep = parents != ROOT
+        rows, current = rows[keep], parents[keep].astype(np.int64)
+    return int(found.max()) if found.size else 0
 
 
 def header_table(arrays: TreeArrays, n_items: int) -> HeaderTable:

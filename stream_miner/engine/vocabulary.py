@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 
 
 class ItemVocabulary:
@@ -29,7 +29,7 @@ class ItemVocabulary:
     def id_of(self, name: str) -> int:
         """Return the id of ``name``, assigning the next free id if it is new. O(1)."""
         if not isinstance(name, str):
-            raise TypeError(f"item names must be strings, got {type(name).__name__}")
+            raise _not_a_name(name)
         item_id = self._ids.get(name)
         if item_id is None:
             item_id = len(self._names)
@@ -41,12 +41,16 @@ class ItemVocabulary:
         """Return the id of ``name`` or None when it was never seen (assigns nothing)."""
         return self._ids.get(name)
 
-    def encode(self, names: Iterable[str]) -> list[int]:
-        """Map names to ids, assigning ids to new names."""
+    def encode(self, names: Sequence[str]) -> list[int]:
+        """Map names to ids, assigning ids to new names. A name that is not a str raises
+        ValueError, and then no new name got an id."""
         ids = self._ids
         try:
             return [ids[name] for name in names]
         except (KeyError, TypeError):
+            for name in names:
+                if not isinstance(name, str):
+                    raise _not_a_name(name) from None
             return [self.id_of(name) for name in names]
 
     def name(self, item_id: int) -> str:
@@ -56,3 +60,7 @@ class ItemVocabulary:
     def names(self) -> list[str]:
         """All names, indexed by id (a copy)."""
         return list(self._names)
+
+
+def _not_a_name(value: object) -> ValueError:
+    return ValueError(f"an item name must be a str, not {type(value).__name__}")

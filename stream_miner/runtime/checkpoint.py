@@ -7,8 +7,10 @@ loads with ``allow_pickle=False``) in a directory of the caller's choice:
   ``version`` (:data:`VERSION`), ``window`` (``{"kind": "count", "size": N}``,
   ``{"kind": "time", "seconds": S}`` or ``{"kind": "unbounded"}``), ``policy``
   (``max_items``, ``oversize``), ``verdicts`` (verdict value -> count), ``engine`` (tree
-  item order state) and ``metadata`` (the caller's dict, which must round-trip through
-  JSON exactly: offsets, consumed count, dedup state, tick number, ...);
+  item order state), ``ticks`` (``next``: the next tick's number; ``last``: null before
+  the first tick, else the last tick's ``n_baskets`` and ``min_count``) and ``metadata``
+  (the caller's dict, which must round-trip through JSON exactly: offsets, consumed count,
+  dedup state, ...);
 - ``names``: the vocabulary as a JSON list (UTF-8 bytes, uint8 array), index = item id;
 - ``items`` (int32), ``start`` (int64): the window's baskets, oldest first, in CSR form;
 - ``ts`` (float64): their event times, NaN when unknown;
@@ -16,7 +18,12 @@ loads with ``allow_pickle=False``) in a directory of the caller's choice:
 - ``rank`` (int64): the tree's item order, so a restored miner mines in the same order
   (same itemset and rule ordering) and re-orders on the same schedule;
 - ``pending_items`` (int32), ``pending_start`` (int64), ``pending_ts`` (float64): baskets
-  accepted but not yet applied (the engine's buffer), in arrival order, already cleaned.
+  accepted but not yet applied (the engine's buffer), in arrival order, already cleaned;
+- the last tick's result, which the next tick's delta is taken against: ``last_items``
+  (int32), ``last_start`` (int64) its itemsets as item ids in CSR form (items in name
+  order), ``last_counts`` (int64) their counts, ``last_rules`` (int64, one row per rule)
+  the positions of each rule's antecedent and consequent among those itemsets (a rule's
+  counts are those of its antecedent, consequent and their union).
 
 Writes are atomic: a temporary file in the same directory is written, flushed and fsynced,
 then renamed onto ``checkpoint.npz`` with ``os.replace`` and the directory is fsynced. A
@@ -26,8 +33,9 @@ crash are removed by the next save. One writer per directory is assumed.
 
 Loading checks everything it reads and raises :class:`CheckpointError` (one line, naming
 the problem and the caller's start-fresh option) for a file that is not a readable npz,
-a truncated or inconsistent file, a foreign file, a newer format version, or a window /
-basket policy different from the one the caller runs with. It never resets silently.
+a truncated or inconsistent file, a foreign file, another format version (version 1, made
+by an older stream-miner, held no tick state), or a window / basket policy different from
+the one the caller runs with. It never resets silently.
 """
 
 from __future__ import annotations
@@ -45,13 +53,15 @@ import numpy as np
 from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.miner import DEFAULT_BATCH, MinerState, WindowMiner
+from stream_miner.engine.result import MiningResult
+from stream_miner.engine.rules import Rule
 from stream_miner.engine.window import CountWindow, TimeWindow
 from stream_miner.runtime.atomic_file import remove_stale_temporaries, replace_atomically
 
 FORMAT = "stream-miner-checkpoint"
-VERSION = 1
+VERSION = 2
 CHECKPOINT_NAME = "checkpoint.npz"
-DEFAULT_FRESH_OPTION = "--fresh"
+DEFAULT_FRESH_OPTION = "--start-fresh"
 _DEFAULT_POLICY = BasketPolicy()
 _KEYS = (
     "header",
@@ -64,7 +74,12 @@ _KEYS = (
     "pending_items",
     "pending_start",
     "pending_ts",
+    "last_items",
+    "last_start",
+    "last_counts",
+    "last_rules",
 )
+_HEADER_KEYS = ("window", "policy", "verdicts", "engine", "ticks", "metadata")
 
 
 class CheckpointError(Exception):
@@ -99,6 +114,7 @@ def save_checkpoint(directory: str | os.PathLike, miner: WindowMiner, metadata: 
         "policy": _policy_config(miner.policy),
         "verdicts": {str(Verdict(v).value): int(n) for v, n in state.verdicts.items() if n},
         "engine": {"ranked": state.ranked, "applied_since_order": state.applied_since_order},
+        "ticks": {"next": state.next_tick, "last": _last_header(state.last_result)},
         "metadata": json.loads(metadata_json),
     }
     arrays = {
@@ -112,6 +128,7 @@ def save_checkpoint(directory: str | os.PathLike, miner: WindowMiner, metadata: 
         "pending_items": state.pending.items.astype(np.int32),
         "pending_start": state.pending.start.astype(np.int64),
         "pending_ts": state.pending_ts,
+        **_last_arrays(state.last_result, state.names),
     }
 
     directory = pathlib.Path(directory)
@@ -159,8 +176,12 @@ def load_checkpoint(
         raise fail(
             f"incompatible: version {version} is newer than supported ({VERSION}), upgrade stream-miner"
         )
+    if version < VERSION:
+        raise fail(
+            f"incompatible: made by an older stream-miner (version {version}, this one reads {VERSION})"
+        )
     missing = [key for key in _KEYS if key not in data]
-    missing += [key for key in ("window", "policy", "verdicts", "engine", "metadata") if key not in header]
+    missing += [key for key in _HEADER_KEYS if key not in header]
     if missing:
         raise fail(f"corrupted: missing {', '.join(missing)}")
 
@@ -227,6 +248,7 @@ def _validate(data, header, window, policy, fail) -> dict[str, Any]:
     if n and (not ranked or baskets.items.max() >= rank.size):
         raise fail("corrupted: the item order does not cover the window's items")
 
+    next_tick, last_result = _last_result(data, header["ticks"], names, fail)
     verdicts = header["verdicts"]
     if not isinstance(verdicts, dict):
         raise fail("corrupted: bad verdict counters")
@@ -247,32 +269,106 @@ def _validate(data, header, window, policy, fail) -> dict[str, Any]:
         "ranked": ranked,
         "applied_since_order": applied,
         "verdicts": counts,
+        "next_tick": next_tick,
+        "last_result": last_result,
     }
 
 
 def _baskets(data, prefix: str, n_names: int, policy: BasketPolicy, fail) -> tuple[BasketArrays, np.ndarray]:
     """The baskets stored under ``prefix`` (window or buffer), checked: non-empty, distinct
     known items within the policy's size cap, one event time each."""
-    items, start, ts = data[f"{prefix}items"], data[f"{prefix}start"], data[f"{prefix}ts"]
-    for key, array, kind in (("items", items, "iu"), ("start", start, "i"), ("ts", ts, "f")):
-        if array.ndim != 1 or array.dtype.kind not in kind:
-            raise fail(f"corrupted: array {prefix}{key} has dtype {array.dtype} and shape {array.shape}")
-    if start.size < 1 or start[0] != 0 or start[-1] != items.size or (np.diff(start) < 1).any():
-        raise fail(f"corrupted: {prefix}start offsets are inconsistent")
-    if ts.size != start.size - 1:
+    baskets = _rows(data, prefix, n_names, fail)
+    ts = data[f"{prefix}ts"]
+    if ts.ndim != 1 or ts.dtype.kind != "f":
+        raise fail(f"corrupted: array {prefix}ts has dtype {ts.dtype} and shape {ts.shape}")
+    if ts.size != len(baskets):
         raise fail(f"corrupted: {prefix}ts does not match the baskets")
-    if items.size and (items.min() < 0 or items.max() >= n_names):
-        raise fail(f"corrupted: an item id in {prefix}items lies outside the vocabulary")
-    baskets = BasketArrays.from_lengths(items.astype(np.int64), np.diff(start))
-    keys = np.sort((baskets.row_of_items() << 32) | baskets.items)
-    if (keys[1:] == keys[:-1]).any():
-        raise fail(f"corrupted: a basket in {prefix}items repeats an item")
     if len(baskets) and int(baskets.lengths().max()) > policy.max_items:
         raise fail(f"corrupted: a basket in {prefix}items is larger than the policy allows")
     return baskets, ts.astype(np.float64)
 
 
+def _rows(data, prefix: str, n_names: int, fail) -> BasketArrays:
+    """The rows of item ids stored under ``prefix`` in CSR form, checked: non-empty rows of
+    distinct item ids of the vocabulary."""
+    items, start = data[f"{prefix}items"], data[f"{prefix}start"]
+    for key, array, kind in (("items", items, "iu"), ("start", start, "i")):
+        if array.ndim != 1 or array.dtype.kind not in kind:
+            raise fail(f"corrupted: array {prefix}{key} has dtype {array.dtype} and shape {array.shape}")
+    if start.size < 1 or start[0] != 0 or start[-1] != items.size or (np.diff(start) < 1).any():
+        raise fail(f"corrupted: {prefix}start offsets are inconsistent")
+    if items.size and (items.min() < 0 or items.max() >= n_names):
+        raise fail(f"corrupted: an item id in {prefix}items lies outside the vocabulary")
+    rows = BasketArrays.from_lengths(items.astype(np.int64), np.diff(start))
+    keys = np.sort((rows.row_of_items() << 32) | rows.items)
+    if (keys[1:] == keys[:-1]).any():
+        raise fail(f"corrupted: a row of {prefix}items repeats an item")
+    return rows
+
+
+def _last_result(data, ticks: Any, names: list[str], fail) -> tuple[int, MiningResult | None]:
+    """The next tick's number and the last tick's result, checked: itemsets of known items
+    in name order, each once, counted between the threshold and the window size; rules made
+    of two disjoint itemsets whose union is an itemset."""
+    next_tick = ticks.get("next") if isinstance(ticks, dict) else None
+    last = ticks.get("last") if isinstance(ticks, dict) else None
+    if type(next_tick) is not int or next_tick < 0 or (next_tick == 0) != (last is None):
+        raise fail("corrupted: bad tick state")
+    rows, counts, rules = _rows(data, "last_", len(names), fail), data["last_counts"], data["last_rules"]
+    if counts.ndim != 1 or counts.dtype.kind != "i" or counts.size != len(rows):
+        raise fail("corrupted: last_counts does not match the last result's itemsets")
+    if rules.ndim != 2 or rules.shape[1] != 2 or rules.dtype.kind != "i":
+        raise fail(f"corrupted: array last_rules has dtype {rules.dtype} and shape {rules.shape}")
+    if last is None:
+        if len(rows) or len(rules):
+            raise fail("corrupted: a last result without a last tick")
+        return next_tick, None
+    n_baskets = last.get("n_baskets") if isinstance(last, dict) else None
+    min_count = last.get("min_count") if isinstance(last, dict) else None
+    if type(n_baskets) is not int or type(min_count) is not int or n_baskets < 0 or min_count < 1:
+        raise fail("corrupted: bad last result header")
+    if counts.size and (counts.min() < min_count or counts.max() > n_baskets):
+        raise fail("corrupted: a count in the last result lies outside [min_count, n_baskets]")
+    keys = [tuple(names[i] for i in row) for row in rows.to_lists()]
+    if any(list(key) != sorted(set(key)) for key in keys):
+        raise fail("corrupted: an itemset of the last result is not in name order")
+    itemsets = dict(zip(keys, counts.tolist(), strict=True))
+    if len(itemsets) != len(keys):
+        raise fail("corrupted: the last result repeats an itemset")
+    if rules.size and (rules.min() < 0 or rules.max() >= len(keys)):
+        raise fail("corrupted: a rule of the last result refers to no itemset")
+    out = []
+    for left, right in rules.tolist():
+        antecedent, consequent = keys[left], keys[right]
+        union = tuple(sorted(antecedent + consequent))
+        if set(antecedent) & set(consequent) or union not in itemsets:
+            raise fail("corrupted: a rule of the last result does not split an itemset")
+        count = itemsets[union]
+        out.append(Rule(antecedent, consequent, count, itemsets[antecedent], itemsets[consequent], n_baskets))
+    return next_tick, MiningResult(n_baskets, min_count, itemsets, out)
+
+
 # ---------------------------------------------------------------------------- helpers
+def _last_header(last: MiningResult | None) -> dict[str, int] | None:
+    return None if last is None else {"n_baskets": last.n_baskets, "min_count": last.min_count}
+
+
+def _last_arrays(last: MiningResult | None, names: list[str]) -> dict[str, np.ndarray]:
+    """The last tick's itemsets (item ids, CSR) and counts, and its rules as positions of
+    their two sides among those itemsets."""
+    itemsets = {} if last is None else last.itemsets
+    id_of = {name: i for i, name in enumerate(names)} if itemsets else {}
+    position = {items: i for i, items in enumerate(itemsets)}
+    rows = BasketArrays.from_lists([[id_of[name] for name in items] for items in itemsets])
+    rules = [] if last is None else [(position[r.antecedent], position[r.consequent]) for r in last.rules]
+    return {
+        "last_items": rows.items.astype(np.int32),
+        "last_start": rows.start.astype(np.int64),
+        "last_counts": np.array(list(itemsets.values()), dtype=np.int64),
+        "last_rules": np.array(rules, dtype=np.int64).reshape(len(rules), 2),
+    }
+
+
 def _window_config(window: CountWindow | TimeWindow | None) -> dict[str, Any]:
     if isinstance(window, CountWindow):
         return {"kind": "count", "size": int(window.size)}

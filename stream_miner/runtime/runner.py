@@ -288,9 +288,10 @@ class Runner:
         if self.settings.checkpoint_dir is None:
             return {}
         with self._lock:  # a rebalance may ask for a checkpoint while a tick is running
+            offsets = dict(self.offsets)
             metadata = {
                 "source": self.source.name,
-                "offsets": {str(p): o for p, o in self.offsets.items()},
+                "offsets": {str(p): o for p, o in offsets.items()},
                 "consumed": self.consumed,
                 "last_id": self.last_id,
                 "newest": None if self.newest == -math.inf else self.newest,
@@ -301,7 +302,7 @@ class Runner:
                 "counts": dict(self.counts),
             }
             save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
-            return {int(p): o for p, o in metadata["offsets"].items()}
+            return offsets
 
     def _restore(self) -> None:
         directory = self.settings.checkpoint_dir
@@ -324,9 +325,9 @@ class Runner:
         heapq.heapify(self.waiting)
         self.recent = RecentIds.from_state(metadata["recent"])
         self.counts = Counter(metadata["counts"])
-        self.schedule.ticks = self.miner.ticks
+        self.schedule.ticks = self.miner.next_tick
         print(
-            f"stream-miner: resumed from {directory} at tick {self.miner.ticks}, "
+            f"stream-miner: resumed from {directory} at tick {self.miner.next_tick}, "
             f"{self.consumed:,} baskets consumed",
             file=self.log,
         )

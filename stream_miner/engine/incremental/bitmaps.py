@@ -9,12 +9,14 @@ costs ``n * k * b / 64`` word operations in a few numpy passes.
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Callable
 
 import numpy as np
 
 from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.incremental.itemset_rows import numbering
+from stream_miner.engine.limits import stop_if_set
 
 BasketSource = Callable[[np.ndarray], BasketArrays]  # the window's baskets holding any flagged item
 WORDS_IN_FLIGHT = 1 << 21  # bitmap words gathered per numpy pass (16 MiB), bounds memory
@@ -46,15 +48,22 @@ def sign_bitmap(signs: np.ndarray) -> np.ndarray:
     return np.packbits(flags, bitorder="little").view(np.uint64)
 
 
-def count_rows(itemsets: np.ndarray, bits: np.ndarray, plus: np.ndarray | None = None) -> np.ndarray:
+def count_rows(
+    itemsets: np.ndarray,
+    bits: np.ndarray,
+    plus: np.ndarray | None = None,
+    interrupt: threading.Event | None = None,
+) -> np.ndarray:
     """Count of every itemset (rows of slots into ``bits``) in the batch.
 
     With ``plus`` (a bit row), baskets with their bit set count +1 and the others -1.
+    ``interrupt`` is checked between passes (``MiningInterrupted`` once set).
     """
     n, k = itemsets.shape
     out = np.empty(n, dtype=np.int64)
     step = max(1, WORDS_IN_FLIGHT // max(1, bits.shape[1]))
     for lo in range(0, n, step):
+        stop_if_set(interrupt)
         rows = itemsets[lo : lo + step]
         held = bits[rows[:, 0]]
         for column in range(1, k):
@@ -66,7 +75,12 @@ def count_rows(itemsets: np.ndarray, bits: np.ndarray, plus: np.ndarray | None =
     return out
 
 
-def window_counts(itemsets: np.ndarray, window: BasketSource, item_counts: np.ndarray) -> np.ndarray:
+def window_counts(
+    itemsets: np.ndarray,
+    window: BasketSource,
+    item_counts: np.ndarray,
+    interrupt: threading.Event | None = None,
+) -> np.ndarray:
     """Exact count over the window of every itemset (rows of item ids).
 
     Only baskets holding some itemset's rarest item (by ``item_counts``) are read; every
@@ -80,7 +94,7 @@ def window_counts(itemsets: np.ndarray, window: BasketSource, item_counts: np.nd
     flags[anchors] = True
     baskets = window(flags)
     slot_of = numbering(itemsets)
-    return batch_counts(baskets, [slot_of[itemsets]], slot_of, int(slot_of.max()) + 1)[0]
+    return batch_counts(baskets, [slot_of[itemsets]], slot_of, int(slot_of.max()) + 1, interrupt=interrupt)[0]
 
 
 def batch_counts(
@@ -89,13 +103,15 @@ def batch_counts(
     slot_of: np.ndarray,
     n_slots: int,
     signs: np.ndarray | None = None,
+    interrupt: threading.Event | None = None,
 ) -> list[np.ndarray]:
     """Count of every itemset (matrices of slots, see :func:`item_bitmaps`) in the baskets,
-    signed by ``signs`` if given; bitmaps are built for ``BASKETS_PER_PASS`` baskets at once."""
+    signed by ``signs`` if given; bitmaps are built for ``BASKETS_PER_PASS`` baskets at once.
+    ``interrupt`` is checked between passes (``MiningInterrupted`` once set)."""
     counts = [np.zeros(len(rows), dtype=np.int64) for rows in itemsets]
     for first in range(0, len(baskets), BASKETS_PER_PASS):
         bits = item_bitmaps(baskets.part(first, first + BASKETS_PER_PASS), slot_of, n_slots)
         plus = None if signs is None else sign_bitmap(signs[first : first + BASKETS_PER_PASS])
         for total, rows in zip(counts, itemsets, strict=True):
-            total += count_rows(rows, bits, plus)
+            total += count_rows(rows, bits, plus, interrupt)
     return counts

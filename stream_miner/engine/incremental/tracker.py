@@ -28,6 +28,7 @@ not with the window. Itemsets are rows of item ids in increasing order.
 
 from __future__ import annotations
 
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -43,6 +44,7 @@ from stream_miner.engine.incremental.itemset_rows import (
     unique_rows,
 )
 from stream_miner.engine.incremental.pair_table import PairTable
+from stream_miner.engine.limits import stop_if_set, too_many_itemsets
 
 Itemset = tuple[int, ...]
 MAX_WATCHED = 4096  # items in the pair table at most (a 32 MiB triangle); beyond, no tracking
@@ -64,23 +66,37 @@ class _Level:
         return self.itemsets[self.frequent]
 
 
+class _Found:
+    """Frequent itemsets counted so far in a retarget, against the cap."""
+
+    def __init__(self, count: int, cap: int | None) -> None:
+        self.count, self.cap = count, cap
+        self.add(0)
+
+    def add(self, more: int) -> None:
+        """Count ``more``; raise ``ResultTooLarge`` once over the cap."""
+        self.count += more
+        if self.cap is not None and self.count > self.cap:
+            raise too_many_itemsets(self.count, self.cap)
+
+
 class BorderTracker:
     """Frequent itemsets and their negative border with exact counts, kept up to date.
 
-    ``max_len`` bounds itemset size. The threshold and the allowed items are given to
+    ``max_size`` bounds itemset size. The threshold and the allowed items are given to
     :meth:`retarget` at every tick. When more than ``max_watched`` items would need pair
     counts, :meth:`retarget` declines (returns False) and the caller mines in full; only item
     counts are kept until the window narrows again.
     """
 
     def __init__(
-        self, max_len: int | None = None, margin: float = 0.25, max_watched: int = MAX_WATCHED
+        self, max_size: int | None = None, margin: float = 0.25, max_watched: int = MAX_WATCHED
     ) -> None:
-        if max_len is not None and max_len < 1:
-            raise ValueError(f"max itemset length must be at least 1, got {max_len}")
+        if max_size is not None and max_size < 1:
+            raise ValueError(f"max_size must be at least 1, got {max_size}")
         if not 0 <= margin < 1:
             raise ValueError(f"margin must lie in [0, 1), got {margin}")
-        self.max_len = max_len
+        self.max_size = max_size
         self.margin = margin
         self.max_watched = max_watched
         self.threshold: int | None = None
@@ -92,8 +108,11 @@ class BorderTracker:
         self._touched = [empty_rows(2)]  # pairs counted up to the threshold since the last retarget
 
     # ------------------------------------------------------------------- deltas
-    def apply(self, baskets: BasketArrays, signs: np.ndarray) -> None:
-        """Count baskets that entered (sign 1) or left (sign -1) the window, in one batch."""
+    def apply(
+        self, baskets: BasketArrays, signs: np.ndarray, interrupt: threading.Event | None = None
+    ) -> None:
+        """Count baskets that entered (sign 1) or left (sign -1) the window, in one batch.
+        Interrupted (``MiningInterrupted``), the tracker is left half updated: drop it."""
         if len(baskets) == 0:
             return
         self._grow_items(int(baskets.items.max()) + 1)
@@ -111,6 +130,7 @@ class BorderTracker:
                 slot_of,
                 int(slot_of.max()) + 1,
                 signs,
+                interrupt,
             )
             self.levels = [
                 _Level(level.itemsets, level.counts + more, level.candidate, level.frequent)
@@ -118,12 +138,27 @@ class BorderTracker:
             ]
 
     # -------------------------------------------------------------- threshold
-    def retarget(self, threshold: int, allowed: np.ndarray, window: BasketSource) -> bool:
+    def retarget(
+        self,
+        threshold: int,
+        allowed: np.ndarray,
+        window: BasketSource,
+        *,
+        max_itemsets: int | None = None,
+        interrupt: threading.Event | None = None,
+    ) -> bool:
         """Move itemsets between F and the border for a new ``threshold``, counting newly
         tracked itemsets over ``window``. False when too many items would need pair counts
-        (the result is then not tracked; mine in full)."""
+        (the result is then not tracked; mine in full).
+
+        More than ``max_itemsets`` frequent itemsets raise ``ResultTooLarge`` as soon as a
+        level brings the count over it (before the next level is built); a set
+        ``interrupt`` raises ``MiningInterrupted``. Either leaves the tracker half updated:
+        drop it.
+        """
         if threshold < 1:
             raise ValueError(f"threshold must be at least 1, got {threshold}")
+        stop_if_set(interrupt)
         self._grow_items(allowed.size)
         allowed = np.concatenate([allowed, np.zeros(self.item_counts.size - allowed.size, dtype=bool)])
         keep_above = max(1, int(threshold * (1 - self.margin)))
@@ -133,7 +168,8 @@ class BorderTracker:
         same_threshold = threshold == self.threshold and self.table is not None
         self.threshold, self.frequent_items = threshold, items
         touched, self._touched = np.concatenate(self._touched), [empty_rows(2)]
-        if self.max_len == 1:
+        found = _Found(int((items & (counts >= threshold)).sum()), max_itemsets)
+        if self.max_size == 1:
             return True
         wanted = self._watch_list(allowed, keep_above)
         if wanted is None:
@@ -142,6 +178,7 @@ class BorderTracker:
         if self.table is None:
             self.table = PairTable()
         self.table.watch(wanted, window, self.item_counts)
+        stop_if_set(interrupt)
         if same_threshold:
             entering = np.flatnonzero(items & ~was)
             candidates = np.concatenate(
@@ -153,8 +190,9 @@ class BorderTracker:
         pair_counts = self.table.count(candidates[:, 0], candidates[:, 1])
         hot = self._hot(pair_counts, match_rows(self.pairs, candidates) >= 0, keep_above)
         old_pairs, self.pairs = self.pairs, candidates[hot]
-        if self.max_len != 2:
-            self._retarget_levels(old_pairs, keep_above, window)
+        found.add(int((pair_counts[hot] >= threshold).sum()))
+        if self.max_size != 2:
+            self._retarget_levels(old_pairs, keep_above, window, found, interrupt)
         return True
 
     def _watch_list(self, allowed: np.ndarray, keep_above: int) -> np.ndarray | None:
@@ -169,17 +207,26 @@ class BorderTracker:
             wanted = allowed & ((counts >= keep_above) | self.table.watched_among(counts.size) & stay)
         return None if wanted.sum() > self.max_watched else wanted
 
-    def _retarget_levels(self, old_below: np.ndarray, keep_above: int, window: BasketSource) -> None:
+    def _retarget_levels(
+        self,
+        old_below: np.ndarray,
+        keep_above: int,
+        window: BasketSource,
+        found: _Found,
+        interrupt: threading.Event | None,
+    ) -> None:
         """Bring each level of three items or more in line with the frequent itemsets one
         smaller, level by level upwards."""
         below, levels = self.pairs, []
-        for size in range(3, (self.max_len or 1 << 30) + 1):
+        for size in range(3, (self.max_size or 1 << 30) + 1):
+            stop_if_set(interrupt)
             old = self.levels[size - 3] if size - 3 < len(self.levels) else None
             if old is None and len(below) < 2:
                 break
-            level = self._next_level(old, old_below, below, keep_above, window)
+            level = self._next_level(old, old_below, below, keep_above, window, interrupt)
             if len(level.itemsets) == 0:
                 break
+            found.add(int((level.candidate & (level.counts >= self.threshold)).sum()))
             levels.append(level)
             old_below = empty_rows(size) if old is None else old.frequent_rows()
             below = level.frequent_rows()
@@ -192,6 +239,7 @@ class BorderTracker:
         below: np.ndarray,
         keep_above: int,
         window: BasketSource,
+        interrupt: threading.Event | None,
     ) -> _Level:
         """The level one larger than the frequent itemsets ``below`` (formerly ``old_below``).
 
@@ -223,7 +271,7 @@ class BorderTracker:
             candidate[known[known >= 0]] = True
             new = fresh[known < 0]
             rows = np.concatenate([rows, new])
-            counts = np.concatenate([counts, window_counts(new, window, self.item_counts)])
+            counts = np.concatenate([counts, window_counts(new, window, self.item_counts, interrupt)])
             candidate = np.concatenate([candidate, np.ones(len(new), dtype=bool)])
             was = np.concatenate([was, np.zeros(len(new), dtype=bool)])
         hot = candidate & self._hot(counts, was, keep_above)
