@@ -122,7 +122,7 @@ def run_mine(args: argparse.Namespace) -> int:
         source = FileSource(path, file_layout(args, fmt))
         letters = DeadLetterFile(args.dead_letter_out) if args.dead_letter_out else DeadLetterCounter()
         sink = letters if args.bad_records == "skip" else StopAtMalformed(letters, label)
-        runner = Runner(settings, source, sink, listeners, talk_when_clean=False)
+        runner = Runner(settings, source, sink, listeners, talk_when_clean=False, tick_on_stop=False)
         try:
             with stop_on_signals(runner.stop) as received:
                 code = runner.run()

@@ -44,7 +44,7 @@ from stream_miner.runtime.schedule import TickSchedule
 EXIT_OK, EXIT_USAGE = 0, 2
 IDLE_WAIT = 0.05  # seconds to wait after a poll that returned nothing
 BUSY_WAIT = 0.05  # seconds between looks at a running tick
-ABANDON_AFTER = 0.3  # seconds a tick gets to notice a stop before it is abandoned
+ABANDON_AFTER = 0.3  # seconds a running tick gets to finish after a stop before it is abandoned
 
 
 @dataclass(frozen=True)
@@ -83,6 +83,7 @@ class Runner:
         log: TextIO | None = None,
         *,
         talk_when_clean: bool = True,
+        tick_on_stop: bool = True,
     ) -> None:
         self.settings = settings
         self.source = source
@@ -90,9 +91,10 @@ class Runner:
         self.listeners = list(listeners)
         self.log = log or sys.stderr
         self.talk_when_clean = talk_when_clean  # False: say nothing unless something was set aside
+        self.tick_on_stop = tick_on_stop  # False: a stop skips the last tick (mine: no partial result)
         self.progress = ProgressLine(self.log)
         self.stopping = False
-        self.interrupt = threading.Event()  # set on stop: a long mine gives up within a second
+        self.interrupt = threading.Event()  # set to make a mine give up (see ABANDON_AFTER)
         self.counts: Counter[str] = Counter()
         self.miner = WindowMiner(settings.window, settings.policy)
         self.offsets: dict[int, int] = {}
@@ -114,10 +116,10 @@ class Runner:
 
     # ----------------------------------------------------------------- control
     def stop(self) -> None:
-        """Ask the loop to finish: checkpoint, commit, return 0 (signal-safe). A tick in
-        progress is abandoned rather than finished, so stopping never waits for a long mine."""
+        """Ask the loop to finish: a last tick, checkpoint, commit, return 0 (signal-safe).
+        A tick still running ``ABANDON_AFTER`` seconds after the stop is abandoned, so
+        stopping never waits for a long mine."""
         self.stopping = True
-        self.interrupt.set()
 
     def run(self) -> int:
         """Process records until the source is exhausted or stopped; return the exit code."""
@@ -128,7 +130,7 @@ class Runner:
             print(f"stream-miner: reading {self.source.name}", file=self.log, flush=True)
         try:
             self._loop()
-            if not self.stopping and self.schedule.final_due():
+            if self.schedule.final_due() and (self.tick_on_stop or not self.stopping):
                 self._tick()
         except MiningInterrupted:
             print(f"stream-miner: stopped during a tick; {self.schedule.ticks} ticks done", file=self.log)
@@ -229,8 +231,8 @@ class Runner:
     def _refresh_off_the_main_thread(self) -> TickReport:
         """Run :meth:`_refresh` on a worker thread, so that signals are handled at once and a
         Kafka source keeps polling meanwhile. Once a stop is asked for, the tick gets
-        ``ABANDON_AFTER`` seconds to notice the interrupt; then it is abandoned (its result
-        would be thrown away) and :class:`MiningInterrupted` is raised here."""
+        ``ABANDON_AFTER`` seconds to finish; then the interrupt is set, the tick is abandoned
+        and :class:`MiningInterrupted` is raised here."""
         outcome: dict[str, object] = {}
 
         def work() -> None:
@@ -247,7 +249,9 @@ class Runner:
             worker.join(BUSY_WAIT)
             if self.stopping and worker.is_alive():
                 stopped_at[:] = stopped_at or [time.monotonic()]
-                return time.monotonic() - stopped_at[0] < ABANDON_AFTER
+                if time.monotonic() - stopped_at[0] >= ABANDON_AFTER:
+                    self.interrupt.set()  # the worker gives up at its next check
+                    return False
             return worker.is_alive()
 
         self.source.while_busy(busy)
