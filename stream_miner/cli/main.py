@@ -8,11 +8,7 @@ from collections.abc import Sequence
 
 from stream_miner import __version__
 from stream_miner.cli.mine import add_mine_parser
-from stream_miner.cli.options import UsageError
 from stream_miner.cli.run import add_run_parser, apply_config
-from stream_miner.decoding.files import InputError
-from stream_miner.engine.limits import ResultTooLarge
-from stream_miner.runtime.checkpoint import CheckpointError
 
 EXIT_USAGE = 2
 
@@ -26,7 +22,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             apply_config(_subparser(parser, "run"), arguments[1:])
         args = parser.parse_args(arguments)
         return int(args.handler(args))
-    except (UsageError, InputError, CheckpointError, ResultTooLarge, ValueError) as error:
+    except ValueError as error:  # UsageError, InputError, CheckpointError, ResultTooLarge, bad values
         print(f"stream-miner: error: {error}", file=sys.stderr)
         return EXIT_USAGE
     except BrokenPipeError:

@@ -9,7 +9,6 @@ import sys
 from collections import Counter
 from collections.abc import Iterator
 from contextlib import contextmanager
-from importlib import resources
 from pathlib import Path
 
 from stream_miner.cli.options import (
@@ -167,6 +166,8 @@ def _input_path(given: str | None) -> Iterator[tuple[str, str]]:
     if given == "-":
         yield "-", "stdin"
     elif given is None:
+        from importlib import resources  # only for the bundled example: keeps start-up quick
+
         with resources.as_file(resources.files("stream_miner.data").joinpath(DEMO_FILE)) as path:
             yield str(path), DEMO_FILE
     else:

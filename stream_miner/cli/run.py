@@ -5,7 +5,6 @@ from __future__ import annotations
 import argparse
 import sys
 import threading
-import tomllib
 from pathlib import Path
 from typing import Any
 
@@ -88,6 +87,8 @@ def apply_config(parser: argparse.ArgumentParser, argv: list[str]) -> None:
     pre = argparse.ArgumentParser(add_help=False)
     pre.add_argument("--config")
     path = pre.parse_known_args(argv)[0].config
+    import tomllib  # only with --config: keeps start-up quick
+
     try:
         with open(path, "rb") as stream:
             values = tomllib.load(stream)

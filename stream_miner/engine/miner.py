@@ -14,6 +14,7 @@ from collections import Counter
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from decimal import Decimal
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -21,13 +22,15 @@ from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.delta import ResultDelta, diff_results
 from stream_miner.engine.fpgrowth import Itemset, check_size, mine_tree
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
-from stream_miner.engine.incremental.tracker import BorderTracker
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.result import MiningResult
 from stream_miner.engine.rules import generate_rules
 from stream_miner.engine.tree import PrefixTree, frequency_rank
 from stream_miner.engine.vocabulary import ItemVocabulary
 from stream_miner.engine.window import CountWindow, Expired, TimeWindow, WindowStore
+
+if TYPE_CHECKING:
+    from stream_miner.engine.incremental.tracker import BorderTracker
 
 DEFAULT_BATCH = 8192
 ORDER_SAMPLE = 8192  # baskets used to test whether a new item order would pay off
@@ -318,6 +321,8 @@ class WindowMiner:
     ) -> dict[Itemset, int] | None:
         key = (params.max_size, params.include, params.exclude)
         if self._tracker is None or key != self._tracker_key:
+            from stream_miner.engine.incremental.tracker import BorderTracker  # only ticks track
+
             self._tracker = BorderTracker(params.max_size)
             self._tracker_key = key
             self._changes = [(self.store.contents()[0], 1)]

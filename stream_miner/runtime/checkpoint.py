@@ -82,7 +82,7 @@ _KEYS = (
 _HEADER_KEYS = ("window", "policy", "verdicts", "engine", "ticks", "metadata")
 
 
-class CheckpointError(Exception):
+class CheckpointError(ValueError):
     """A checkpoint that cannot be used: corrupted, foreign, too new, or made with another
     window or basket policy. The message is one line and names the start-fresh option."""
 

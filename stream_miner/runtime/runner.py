@@ -34,7 +34,6 @@ from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.window import CountWindow, TimeWindow
-from stream_miner.runtime.checkpoint import load_checkpoint, save_checkpoint
 from stream_miner.runtime.dedup import RecentIds
 from stream_miner.runtime.health import DeadLetterWatch, summary
 from stream_miner.runtime.progress import ProgressLine
@@ -305,6 +304,8 @@ class Runner:
                 "recent": self.recent.state(),
                 "counts": dict(self.counts),
             }
+            from stream_miner.runtime.checkpoint import save_checkpoint  # only with checkpoints
+
             save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
             return offsets
 
@@ -312,6 +313,8 @@ class Runner:
         directory = self.settings.checkpoint_dir
         if directory is None or self.settings.start_fresh:
             return
+        from stream_miner.runtime.checkpoint import load_checkpoint  # only with checkpoints
+
         restored = load_checkpoint(
             directory, window=self.settings.window, policy=self.settings.policy, fresh_option="--start-fresh"
         )
