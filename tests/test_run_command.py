@@ -255,9 +255,12 @@ def test_event_time_window_with_allowed_lateness(tmp_path, capsys):
         )
         == 0
     )
-    # watermark = 150 - 10 = 140; the window is (110, 140]: only d has entered it; f still waits
-    _header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
-    assert itemsets == {("x",): 1}
+    # While reading, the watermark is 150 - 10 = 140 and f waits; at the end of the input no
+    # later basket can come, so the watermark moves to 150 and f enters: the window is
+    # (120, 150], holding d and f (a, b and c expired, e was too late).
+    header, itemsets = read_snapshot(tmp_path / "snap.jsonl")
+    assert itemsets == {("x",): 2, ("y",): 1, ("x", "y"): 1}
+    assert (header["start_time"], header["end_time"], header["consumed"]) == (120, 150, 5)
     assert [json.loads(line)["reason"] for line in letters.read_text().splitlines()] == ["too late"]
     assert (
         main(

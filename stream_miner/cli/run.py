@@ -166,10 +166,10 @@ def _settings(args: argparse.Namespace) -> RunSettings:
 
 def _check_outputs(args: argparse.Namespace) -> None:
     """Every output path can be written, before anything is read."""
+    if args.checkpoint_dir is not None:  # first: it is made if missing, and may hold the others
+        check_directory(args.checkpoint_dir, "--checkpoint-dir")
     if args.snapshot_out is not None:
         check_output_file(args.snapshot_out, "--snapshot-out")
-    if args.checkpoint_dir is not None:
-        check_directory(args.checkpoint_dir, "--checkpoint-dir")
     target = args.dead_letter_out
     if target is not None and not target.startswith("kafka://"):
         check_output_file(Path(target), "--dead-letter-out")

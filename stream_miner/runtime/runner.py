@@ -100,6 +100,7 @@ class Runner:
         self.consumed = 0
         self.last_id: str | None = None
         self.newest = -math.inf
+        self.watermark = -math.inf  # where an event-time window ends: newest - lateness, or newest at the end
         self.waiting: list[tuple[float, int, Basket, int, int]] = []  # heap by event time
         self.schedule = TickSchedule(settings.tick_every, settings.tick_interval)
         self.watch = DeadLetterWatch(settings.window, self.log)
@@ -152,6 +153,7 @@ class Runner:
             if self.schedule.interval_due():
                 self._tick()
             if self.source.exhausted():
+                self._release(math.inf)  # no later basket can come: the waiting ones enter
                 return
             if not records:
                 time.sleep(IDLE_WAIT)
@@ -193,7 +195,9 @@ class Runner:
 
     def _release(self, watermark: float) -> None:
         """Move every waiting basket at or before the watermark into the window."""
-        self.miner.advance_time(watermark)
+        if self.waiting:
+            self.watermark = min(watermark, self.newest)
+            self.miner.advance_time(self.watermark)
         while self.waiting and self.waiting[0][0] <= watermark:
             _, _, basket, partition, offset = heapq.heappop(self.waiting)
             self._enter(basket, partition, offset)
@@ -273,8 +277,8 @@ class Runner:
         done = time.perf_counter()
         window = self.settings.window
         start = end = None
-        if isinstance(window, TimeWindow) and self.newest > -math.inf:
-            end = self.newest - self.settings.allowed_lateness
+        if isinstance(window, TimeWindow) and self.watermark > -math.inf:
+            end = self.watermark
             start = end - window.seconds
         return TickReport(tick, self.consumed, self.last_id, start, end, applied - started, done - applied)
 
@@ -298,6 +302,7 @@ class Runner:
                 "consumed": self.consumed,
                 "last_id": self.last_id,
                 "newest": None if self.newest == -math.inf else self.newest,
+                "watermark": None if self.watermark == -math.inf else self.watermark,
                 "waiting": [
                     [ts, b.items, b.id, p, o] for ts, _, b, p, o in sorted(self.waiting, key=lambda w: w[:2])
                 ],
@@ -325,6 +330,7 @@ class Runner:
         self.consumed = metadata["consumed"]
         self.last_id = metadata["last_id"]
         self.newest = -math.inf if metadata["newest"] is None else metadata["newest"]
+        self.watermark = -math.inf if metadata["watermark"] is None else metadata["watermark"]
         self.waiting = [
             (ts, next(self._arrivals), Basket(items, basket_id, ts), partition, offset)
             for ts, items, basket_id, partition, offset in metadata["waiting"]
