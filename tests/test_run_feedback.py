@@ -91,6 +91,20 @@ def test_a_clean_stream_gets_no_warning(tmp_path, capsys):
     assert code == 0 and "warning" not in err
 
 
+def run_over_a_window_of_ten(data):
+    return [
+        "run",
+        "--source",
+        f"file:{data}",
+        "--format",
+        "fimi",
+        "--window-size",
+        "10",
+        "--tick-every",
+        "10",
+    ]
+
+
 def write_wide_baskets(path, n_baskets, n_items):
     """Identical baskets of ``n_items`` items: every subset is frequent at a count of one."""
     basket = [f"item{i:02d}" for i in range(n_items)]
@@ -105,17 +119,7 @@ def test_a_combinatorial_blow_up_stops_with_a_clear_message(tmp_path, command, s
     if command == "mine":
         args = ["mine", str(data), "--window-size", "10", "--json"]
     else:
-        args = [
-            "run",
-            "--source",
-            f"file:{data}",
-            "--format",
-            "fimi",
-            "--window-size",
-            "10",
-            "--tick-every",
-            "10",
-        ]
+        args = run_over_a_window_of_ten(data)
     code, err = spawn([*stream_miner(), *args, "--min-count", "1"]).finish(timeout=60)
     assert code == 2
     errors = [line for line in err.splitlines() if "error" in line]
@@ -131,17 +135,7 @@ def test_sigterm_stops_a_long_mine_within_a_second(tmp_path, command, exit_code,
     data = write_wide_baskets(tmp_path / "wide.dat", 10, 26)
     limits = ["--min-count", "1", "--max-size", "7"]
     if command == "run":
-        args = [
-            "run",
-            "--source",
-            f"file:{data}",
-            "--format",
-            "fimi",
-            "--window-size",
-            "10",
-            "--tick-every",
-            "10",
-        ]
+        args = run_over_a_window_of_ten(data)
         child = spawn([*stream_miner(), *args, *limits])
         child.wait_ready()
     else:

@@ -3,12 +3,15 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
+import threading
 from collections.abc import Sequence
 
 from stream_miner import __version__
 from stream_miner.cli.mine import add_mine_parser
 from stream_miner.cli.run import add_run_parser, apply_config
+from stream_miner.runtime.runner import TICK_THREAD
 
 EXIT_USAGE = 2
 
@@ -32,6 +35,18 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
 
 
+def entry() -> None:
+    """The console script: :func:`main`, then exit. A tick abandoned on stop may still hold
+    the interpreter in a long numpy call on its worker thread; the process then ends at once
+    (output flushed) instead of waiting for it."""
+    code = main()
+    if any(thread.name == TICK_THREAD and thread.is_alive() for thread in threading.enumerate()):
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(code)
+    sys.exit(code)
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The ``stream-miner`` parser with its commands."""
     parser = argparse.ArgumentParser(
@@ -51,4 +66,4 @@ def _subparser(parser: argparse.ArgumentParser, name: str) -> argparse.ArgumentP
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    entry()

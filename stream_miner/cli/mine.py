@@ -17,11 +17,9 @@ from stream_miner.cli.options import (
     add_input_options,
     add_mining_options,
     add_window_options,
-    basket_policy,
     file_layout,
-    mining_params,
     positive_int,
-    window_of,
+    run_settings,
 )
 from stream_miner.cli.paths import check_output_file
 from stream_miner.cli.reporting import ResultPrinter, TickTimings
@@ -31,7 +29,7 @@ from stream_miner.connectors.file_source import FileSource
 from stream_miner.decoding.files import InputError, detect_format
 from stream_miner.decoding.records import REFUSED_BASKETS, DeadLetter
 from stream_miner.runtime.protocols import TickListener
-from stream_miner.runtime.runner import Runner, RunSettings
+from stream_miner.runtime.runner import Runner
 
 DEMO_FILE = "larkspur_market.jsonl"
 
@@ -99,15 +97,8 @@ def run_mine(args: argparse.Namespace) -> int:
             raise UsageError(f"{flag} needs --tick-every")
     if args.dead_letter_out is not None:
         check_output_file(args.dead_letter_out, "--dead-letter-out")
-    settings = RunSettings(
-        window=window_of(args),
-        params=mining_params(args),
-        policy=basket_policy(args),
-        allowed_lateness=args.allowed_lateness,
-        drop_late=args.late == "drop",
-        tick_every=args.tick_every,
-        full_remine=args.full_remine or args.tick_every is None,  # one result: no tracking
-    )
+    # without --tick-every there is one result: a full mine, no tracking
+    settings = run_settings(args, full_remine=args.full_remine or args.tick_every is None)
     timings = TickTimings()
     listeners: list[TickListener] = [
         ResultPrinter(

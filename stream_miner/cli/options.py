@@ -17,6 +17,7 @@ from stream_miner.engine.limits import DEFAULT_MAX_ITEMSETS
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.rules import RANK_MEASURES, RuleFilter
 from stream_miner.engine.window import CountWindow, TimeWindow
+from stream_miner.runtime.runner import RunSettings
 
 
 class UsageError(ValueError):
@@ -197,6 +198,19 @@ def window_of(args: argparse.Namespace) -> CountWindow | TimeWindow | None:
     if args.window_time is not None:
         return TimeWindow(args.window_time)
     return None
+
+
+def run_settings(args: argparse.Namespace, **more: Any) -> RunSettings:
+    """The loop settings the shared options ask for; ``more`` adds a command's own."""
+    return RunSettings(
+        window=window_of(args),
+        params=mining_params(args),
+        policy=basket_policy(args),
+        allowed_lateness=args.allowed_lateness,
+        drop_late=args.late == "drop",
+        tick_every=args.tick_every,
+        **more,
+    )
 
 
 def mining_params(args: argparse.Namespace) -> MiningParams:

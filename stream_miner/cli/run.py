@@ -13,11 +13,9 @@ from stream_miner.cli.options import (
     add_input_options,
     add_mining_options,
     add_window_options,
-    basket_policy,
     duration,
     file_layout,
-    mining_params,
-    window_of,
+    run_settings,
 )
 from stream_miner.cli.paths import check_directory, check_output_file
 from stream_miner.cli.reporting import SnapshotWriter, TickLine
@@ -150,13 +148,8 @@ def _settings(args: argparse.Namespace) -> RunSettings:
         raise UsageError("give --window-size N or --window-time DURATION")
     if args.tick_every is None and args.tick_interval is None:
         raise UsageError("give --tick-every N or --tick-interval DURATION")
-    return RunSettings(
-        window=window_of(args),
-        params=mining_params(args),
-        policy=basket_policy(args),
-        allowed_lateness=args.allowed_lateness,
-        drop_late=args.late == "drop",
-        tick_every=args.tick_every,
+    return run_settings(
+        args,
         tick_interval=args.tick_interval,
         checkpoint_dir=args.checkpoint_dir,
         checkpoint_interval=args.checkpoint_interval,

@@ -43,7 +43,8 @@ from stream_miner.runtime.schedule import TickSchedule
 EXIT_OK, EXIT_USAGE = 0, 2
 IDLE_WAIT = 0.05  # seconds to wait after a poll that returned nothing
 BUSY_WAIT = 0.05  # seconds between looks at a running tick
-ABANDON_AFTER = 0.3  # seconds a running tick gets to finish after a stop before it is abandoned
+ABANDON_AFTER = 0.2  # seconds a running tick gets to finish after a stop before it is abandoned
+TICK_THREAD = "stream-miner-tick"  # the name of the worker thread a tick runs on
 
 
 @dataclass(frozen=True)
@@ -244,7 +245,7 @@ class Runner:
             except BaseException as error:  # handed back to the loop's thread below
                 outcome["error"] = error
 
-        worker = threading.Thread(target=work, name="stream-miner-tick", daemon=True)
+        worker = threading.Thread(target=work, name=TICK_THREAD, daemon=True)
         worker.start()
         stopped_at: list[float] = []
 
