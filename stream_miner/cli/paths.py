@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import tempfile
 from pathlib import Path
 
 from stream_miner.cli.options import UsageError
@@ -31,6 +30,8 @@ def check_directory(path: Path, option: str) -> None:
 
 
 def _try_writing_in(directory: Path, option: str, shown: Path) -> None:
+    import tempfile  # here, not at the top: `mine` without outputs starts quicker
+
     try:
         with tempfile.TemporaryFile(dir=directory):
             pass

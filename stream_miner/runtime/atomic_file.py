@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import contextlib
 import os
-import tempfile
 from collections.abc import Callable
 from pathlib import Path
 from typing import BinaryIO
@@ -21,6 +20,8 @@ def temp_prefix(target: Path) -> str:
 def replace_atomically(path: str | os.PathLike, write: Callable[[BinaryIO], object]) -> Path:
     """Write a temporary file beside ``path`` with ``write``, fsync it, rename it onto ``path``,
     then fsync the directory so the rename itself is durable."""
+    import tempfile  # here, not at the top: `mine` never writes atomically and starts quicker
+
     target = Path(path)
     fd, temporary = tempfile.mkstemp(prefix=temp_prefix(target), suffix=TEMP_SUFFIX, dir=target.parent)
     try:
