@@ -11,7 +11,7 @@ ratios matter (the machines are noisy). Prints one JSON object; progress on stde
 Scenarios: Quest T10 I4 (1,000 items) at 0.5 % with windows of 100,000 and 1,000,000 and
 slide sizes of 1,000 and 10,000 baskets; the heavy-tailed data set at 0.5 %; and the acceptance
 setting of the command line (window 10,000, a tick every 500 baskets, 1 %) on both data sets.
-The refresh is what ``mine --every --tick-timings`` reports as ``refresh_ms``. The first
+The refresh is what ``mine --tick-every --tick-timings`` reports as ``refresh_ms``. The first
 refresh in a process also pays numba's one-off start (loading the compiled loops).
 """
 

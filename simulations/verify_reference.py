@@ -38,7 +38,7 @@ def main() -> int:
         args.path,
         "--format",
         "jsonl",
-        "--window",
+        "--window-size",
         str(args.window),
         "--min-support",
         args.min_support,
