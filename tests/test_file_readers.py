@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import io
 import math
+import os
 
 import pytest
 
 from stream_miner.decoding.files import FileLayout, InputError, detect_format, read_records
-from stream_miner.decoding.messages import parse_event_time
+from stream_miner.decoding.messages import MessageFormat, parse_event_time
 from stream_miner.decoding.records import Basket, DeadLetter
 
 # 2024-03-01T12:00:00Z by hand: 2024-01-01T00:00:00Z is 1704067200 (19723 days), then
@@ -277,3 +278,41 @@ def test_byte_order_mark_is_not_part_of_the_data():
 def test_csv_blank_lines_are_ignored():
     found = records(b"transaction_id,item\nt1,tea\n\nt1,jam\n\n", "csv")
     assert found == [basket(["tea", "jam"], line=2, id="t1")]
+
+
+@pytest.mark.parametrize("fmt", ["fimi", "jsonl"])
+def test_a_line_over_the_size_limit_is_set_aside_after_reading_only_the_limit(fmt):
+    long_item = b"x" * 5000
+    line = long_item if fmt == "fimi" else b'{"items": ["' + long_item + b'"]}'
+    data = b"tea jam\n" if fmt == "fimi" else b'{"items": ["tea", "jam"]}\n'
+    found = list(
+        read_records(
+            io.BytesIO(data + line + b"\r\n" + data),
+            FileLayout(fmt, MessageFormat(max_message_bytes=100)),
+            "t",
+        )
+    )
+    letter = found[1].payload
+    assert (letter.reason, letter.offset, letter.detail) == (
+        "message too large",
+        2,
+        f"{len(line)} bytes, limit 100",
+    )
+    assert letter.raw == line[:100]
+    assert [r.payload.items for r in (found[0], found[2])] == [["tea", "jam"], ["tea", "jam"]]
+
+
+def test_a_pipe_with_no_data_yet_answers_none_instead_of_waiting():
+    read_end, write_end = os.pipe()
+    with os.fdopen(read_end, "rb") as stream, os.fdopen(write_end, "wb") as writer:
+        records = read_records(stream, FileLayout("fimi"), "pipe")
+        assert next(records) is None  # nothing written yet: no blocking read
+        writer.write(b"tea jam\nscone")
+        writer.flush()
+        found = next(r for r in records if r is not None)
+        assert found.payload.items == ["tea", "jam"]
+        assert next(records) is None  # "scone" has no newline yet
+        writer.close()
+        last = next(r for r in records if r is not None)
+        assert last.payload.items == ["scone"] and last.offset == 2
+        assert next(records, "end") == "end"

@@ -64,6 +64,8 @@ BAD = [
     ("bad item", {"items": [{"qty": 2}]}, DEFAULT),
     ("bad item", {"items": [{"sku": 12, "qty": 2}]}, DEFAULT),
     ("bad item", {"items": [{"sku": "a"}]}, MessageFormat(item_key="product")),
+    ("bad item", {"items": ["ok", "\ud800"]}, DEFAULT),  # a lone surrogate is valid JSON, not text
+    ("bad item", {"items": [{"sku": "\udfff"}]}, DEFAULT),
     ("empty basket", {"items": []}, DEFAULT),
     ("bad id", {"items": ["a"], "id": 1.5}, DEFAULT),
     ("bad id", {"items": ["a"], "id": True}, DEFAULT),
@@ -176,6 +178,10 @@ def test_missing_or_null_optional_fields():
     assert decode({"items": ["a"], "id": None, "ts": None, "store": None}, STORE) == Basket(
         items=["a"], id=None, ts=None, segment=None
     )
+
+
+def test_escaped_characters_and_surrogate_pairs_are_text():
+    assert basket_of(rb'{"items": ["caf\u00e9", "\ud83c\udf75", "\u0074ea"]}').items == ["café", "🍵", "tea"]
 
 
 def test_repeated_items_count_once_in_first_seen_order():

@@ -13,7 +13,7 @@ from stream_miner.cli.mine import add_mine_parser
 from stream_miner.cli.run import add_run_parser, apply_config
 from stream_miner.runtime.runner import TICK_THREAD
 
-EXIT_USAGE = 2
+EXIT_FAILURE, EXIT_USAGE = 1, 2
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -28,6 +28,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except ValueError as error:  # UsageError, InputError, CheckpointError, ResultTooLarge, bad values
         print(f"stream-miner: error: {error}", file=sys.stderr)
         return EXIT_USAGE
+    except OSError as error:  # a write failing during the run (disk full, file size limit)
+        print(f"stream-miner: error: {error}", file=sys.stderr)
+        return EXIT_FAILURE
     except BrokenPipeError:
         sys.stderr.close()  # the reader went away (e.g. `| head`): not an error
         return 0
@@ -51,6 +54,7 @@ def build_parser() -> argparse.ArgumentParser:
     """The ``stream-miner`` parser with its commands."""
     parser = argparse.ArgumentParser(
         prog="stream-miner",
+        allow_abbrev=False,
         description="Exact sliding-window association-rule mining of shopping baskets.",
     )
     parser.add_argument("--version", action="version", version=f"%(prog)s {__version__}")

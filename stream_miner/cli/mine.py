@@ -38,6 +38,7 @@ def add_mine_parser(commands: argparse._SubParsersAction) -> None:
     """Register ``mine`` and its options."""
     mine = commands.add_parser(
         "mine",
+        allow_abbrev=False,
         help="mine a file of baskets (or stdin) through the window",
         description="Mine frequent itemsets and rules from a file of baskets. Without INPUT, "
         "mines a bundled example (an invented neighbourhood grocery).",
@@ -45,12 +46,13 @@ def add_mine_parser(commands: argparse._SubParsersAction) -> None:
     mine.set_defaults(handler=run_mine)
     mine.add_argument("input", nargs="?", metavar="INPUT", help="file to mine, or - for stdin")
     records = mine.add_argument_group("input")
-    add_input_options(records, format_default=None)
+    add_input_options(records, format_help="from the file name")
     records.add_argument(
         "--bad-records",
         choices=("stop", "skip"),
         default="stop",
-        help="stop at the first malformed record (exit 2) or set such records aside and count them",
+        help="stop at the first malformed record (exit 2; the default) or set such records aside "
+        "and count them",
     )
     records.add_argument(
         "--on-bad-input",

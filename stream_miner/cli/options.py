@@ -41,12 +41,15 @@ class DeprecatedAlias(argparse.Action):
         setattr(namespace, self.dest, self.values_map.get(values, values))
 
 
-def add_input_options(group: argparse._ArgumentGroup, *, format_default: str | None) -> None:
+def add_input_options(group: argparse._ArgumentGroup, *, format_help: str) -> None:
     """How records are laid out: file format, CSV columns, JSON message fields, size limits."""
-    default = f"(default: {format_default})" if format_default else "(default: from the file name)"
-    group.add_argument("--format", choices=FORMATS, default=format_default, help=f"record format {default}")
-    group.add_argument("--csv-id-column", default="transaction_id", help="CSV transaction-id column")
-    group.add_argument("--csv-item-column", default="item", help="CSV item column")
+    group.add_argument("--format", choices=FORMATS, help=f"record format (default: {format_help})")
+    group.add_argument(
+        "--csv-id-column",
+        default="transaction_id",
+        help="CSV transaction-id column (default: transaction_id)",
+    )
+    group.add_argument("--csv-item-column", default="item", help="CSV item column (default: item)")
     group.add_argument("--id-field", default="id", help="JSON field holding the basket id (default: id)")
     group.add_argument("--time-field", default="ts", help="JSON field holding the event time (default: ts)")
     group.add_argument("--items-field", default="items", help="JSON field holding the items (default: items)")
@@ -81,7 +84,8 @@ def add_input_options(group: argparse._ArgumentGroup, *, format_default: str | N
         "--oversize",
         choices=[o.value for o in Oversize],
         default=Oversize.SKIP.value,
-        help="set oversized baskets aside (skip) or keep their first items (truncate); both are counted",
+        help="set oversized baskets aside (skip, the default) or keep their first items (truncate); "
+        "both are counted",
     )
 
 
@@ -104,7 +108,7 @@ def add_window_options(parser: argparse.ArgumentParser, *, wall_clock: bool) -> 
         "--late",
         choices=("dead-letter", "drop"),
         default="dead-letter",
-        help="what happens to baskets later than that (always counted)",
+        help="what happens to baskets later than that (default: dead-letter; always counted)",
     )
     tick = window.add_mutually_exclusive_group()
     tick.add_argument("--tick-every", type=positive_int, metavar="N", help="refresh after every N baskets")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 import threading
+from contextlib import ExitStack, closing
 from pathlib import Path
 from typing import Any
 
@@ -22,7 +23,8 @@ from stream_miner.cli.reporting import SnapshotWriter, TickLine
 from stream_miner.cli.signals import stop_on_signals
 from stream_miner.connectors.dead_letters import DeadLetterCounter, DeadLetterFile
 from stream_miner.connectors.file_source import FileSource
-from stream_miner.runtime.protocols import DeadLetterSink, Source, TickListener
+from stream_miner.decoding.files import detect_format
+from stream_miner.runtime.protocols import DeadLetterSink, Source, StoppedWaiting, TickListener
 from stream_miner.runtime.runner import Runner, RunSettings
 
 
@@ -30,6 +32,7 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
     """Register ``run`` and its options."""
     run = commands.add_parser(
         "run",
+        allow_abbrev=False,
         help="run continuously over a stream of checkouts (Kafka topic, file or stdin)",
         description="Keep an exact sliding window over a stream of checkouts, refresh the "
         "frequent itemsets and rules at every tick, write a snapshot, and checkpoint so that "
@@ -53,7 +56,9 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
     source.add_argument(
         "--pace", type=float, metavar="PER_SECOND", help="replay at most this many records a second"
     )
-    add_input_options(run.add_argument_group("records"), format_default="jsonl")
+    add_input_options(
+        run.add_argument_group("records"), format_help="from a file's name; jsonl for stdin and Kafka"
+    )
     add_window_options(run, wall_clock=True)
     add_mining_options(run)
     state = run.add_argument_group("state and output")
@@ -82,7 +87,7 @@ def apply_config(parser: argparse.ArgumentParser, argv: list[str]) -> None:
     """Load ``--config`` (if given) as defaults of the ``run`` parser."""
     if "--config" not in argv and not any(a.startswith("--config=") for a in argv):
         return
-    pre = argparse.ArgumentParser(add_help=False)
+    pre = argparse.ArgumentParser(add_help=False, allow_abbrev=False)
     pre.add_argument("--config")
     path = pre.parse_known_args(argv)[0].config
     import tomllib  # only with --config: keeps start-up quick
@@ -92,7 +97,7 @@ def apply_config(parser: argparse.ArgumentParser, argv: list[str]) -> None:
             values = tomllib.load(stream)
     except OSError as error:
         raise UsageError(f"cannot read config {path!r}: {error.strerror}") from None
-    except tomllib.TOMLDecodeError as error:
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as error:
         raise UsageError(f"config {path!r} is not valid TOML: {error}") from None
     known = {
         option.removeprefix("--"): action for action in parser._actions for option in action.option_strings
@@ -102,13 +107,31 @@ def apply_config(parser: argparse.ArgumentParser, argv: list[str]) -> None:
         action = known.get(key.replace("_", "-"))
         if action is None or action.dest in ("help", "config"):
             raise UsageError(f"config {path!r}: unknown option {key!r}")
-        if isinstance(value, list):
-            defaults[action.dest] = [str(v) for v in value]
-        elif isinstance(value, bool) or action.type is None:
-            defaults[action.dest] = value
-        else:
-            defaults[action.dest] = str(value)  # argparse converts string defaults with the option's type
+        defaults[action.dest] = _config_value(action, value, f"config {path!r}: {key}")
     parser.set_defaults(**defaults)
+
+
+def _config_value(action: argparse.Action, value: object, where: str) -> object:
+    """A TOML value as the option's default, checked against the option's kind: a flag takes
+    true or false, a repeatable option a list, any other a string or a number (converted by
+    the option's own parser), one of its choices if it has them."""
+    if action.nargs == 0:
+        if not isinstance(value, bool):
+            raise UsageError(f"{where} must be true or false")
+        return value
+    if isinstance(action, argparse._AppendAction):
+        if not isinstance(value, list) or not all(_scalar(v) for v in value):
+            raise UsageError(f"{where} must be a list of strings")
+        return [str(v) for v in value]
+    if not _scalar(value):
+        raise UsageError(f"{where} must be a string or a number")
+    if action.choices is not None and str(value) not in action.choices:
+        raise UsageError(f"{where} must be one of {', '.join(map(str, action.choices))}")
+    return str(value)  # argparse converts string defaults with the option's type
+
+
+def _scalar(value: object) -> bool:
+    return isinstance(value, str | int | float) and not isinstance(value, bool)
 
 
 def run_run(args: argparse.Namespace) -> int:
@@ -116,15 +139,12 @@ def run_run(args: argparse.Namespace) -> int:
     settings = _settings(args)
     _check_outputs(args)
     stop = threading.Event()
-    with stop_on_signals(stop.set):
-        source = _source(args, stop)
-        if source is None:
-            return 0  # stopped while waiting for the source
+    with ExitStack() as resources, stop_on_signals(stop.set):
         try:
-            dead_letters = _dead_letters(args)
-        except BaseException:
-            source.close()
-            raise
+            source = resources.enter_context(closing(_source(args, stop)))
+            dead_letters = resources.enter_context(closing(_dead_letters(args, stop)))
+        except StoppedWaiting:
+            return 0  # stopped while waiting for a broker to answer
         listeners: list[TickListener] = []
         if args.snapshot_out is not None:
             listeners.append(SnapshotWriter(args.snapshot_out))
@@ -133,12 +153,8 @@ def run_run(args: argparse.Namespace) -> int:
         runner = Runner(settings, source, dead_letters, listeners)
         if stop.is_set():
             runner.stop()
-        try:
-            with stop_on_signals(runner.stop):
-                return runner.run()
-        finally:
-            source.close()
-            dead_letters.close()
+        with stop_on_signals(runner.stop):
+            return runner.run()
 
 
 def _settings(args: argparse.Namespace) -> RunSettings:
@@ -168,7 +184,7 @@ def _check_outputs(args: argparse.Namespace) -> None:
         check_output_file(Path(target), "--dead-letter-out")
 
 
-def _dead_letters(args: argparse.Namespace) -> DeadLetterSink:
+def _dead_letters(args: argparse.Namespace, stop: threading.Event) -> DeadLetterSink:
     target = args.dead_letter_out
     if target is None:
         return DeadLetterCounter()
@@ -176,27 +192,25 @@ def _dead_letters(args: argparse.Namespace) -> DeadLetterSink:
         from stream_miner.connectors.kafka_source import client_options  # Kafka only when asked for
         from stream_miner.connectors.sinks import KafkaDeadLetters
 
-        return KafkaDeadLetters(target, client_options(args.kafka_option))
+        return KafkaDeadLetters(target, client_options(args.kafka_option), stop=stop)
     try:
         return DeadLetterFile(target)
     except OSError as error:
         raise UsageError(f"--dead-letter-out {target!r}: cannot open it ({error.strerror})") from None
 
 
-def _source(args: argparse.Namespace, stop: threading.Event) -> Source | None:
-    """The source the options name; None when stopped while waiting for it to answer."""
+def _source(args: argparse.Namespace, stop: threading.Event) -> Source:
+    """The source the options name (``stop`` ends a wait for a broker: StoppedWaiting)."""
     spec = args.source
     if spec.startswith("kafka://"):
         if not args.group:
             raise UsageError("a Kafka source needs --group")
-        from stream_miner.connectors.kafka_source import KafkaSource, SourceStopped, client_options
+        from stream_miner.connectors.kafka_source import KafkaSource, client_options
 
         message = file_layout(args, "jsonl").message
-        try:
-            return KafkaSource(spec, args.group, message, client_options(args.kafka_option), stop=stop)
-        except SourceStopped:
-            return None
+        return KafkaSource(spec, args.group, message, client_options(args.kafka_option), stop=stop)
     if spec == "-" or spec.startswith("file:"):
         path = "-" if spec == "-" else spec.removeprefix("file:")
-        return FileSource(path, file_layout(args, args.format), follow=args.follow, pace=args.pace)
+        fmt = args.format or ("jsonl" if path == "-" else detect_format(path))
+        return FileSource(path, file_layout(args, fmt), follow=args.follow, pace=args.pace)
     raise UsageError(f"unsupported --source {spec!r}: use kafka://HOST:PORT/TOPIC, file:PATH or -")

@@ -10,7 +10,7 @@ from __future__ import annotations
 import os
 import sys
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from typing import IO
 
 from stream_miner.decoding.files import FOLLOW_FORMATS, FileLayout, InputError, read_records
@@ -35,10 +35,15 @@ class FileSource:
             self._stream: IO[bytes] = sys.stdin.buffer if path == "-" else open(path, "rb")  # noqa: SIM115
         except OSError as error:
             raise InputError(f"cannot read {path!r}: {error.strerror}") from None
-        self._records = read_records(self._stream, layout, self.name, follow=follow)
+        self._records = self._read(layout, follow)
+        self._held: SourceRecord | None = None  # read but not yet due (pace)
         self._resume_at = 0
         self._done = False
         self._next_due = time.monotonic()
+
+    def _read(self, layout: FileLayout, follow: bool) -> Iterator[SourceRecord | None]:
+        yield from read_records(self._stream, layout, self.name, follow=follow)
+        self._done = True
 
     def seek(self, positions: dict[int, int]) -> None:
         """Skip every record before the checkpointed next offset of partition 0."""
@@ -48,15 +53,16 @@ class FileSource:
         """Up to ``max_records`` records; fewer (maybe none) when the input has no more now."""
         out: list[SourceRecord] = []
         while len(out) < max_records and not self._done:
-            if self._pace is not None and not self._wait_for_pace(self._pace):
-                break
-            record = next(self._records, None)
+            record = self._held or next(self._records, None)
+            self._held = None
             if record is None:
-                if not self._follow:
-                    self._done = True
+                break  # nothing more for now
+            if record.offset < self._resume_at:
+                continue  # a checkpoint covers it: skipped, and not paced
+            if self._pace is not None and not self._due(self._pace):
+                self._held = record
                 break
-            if record.offset >= self._resume_at:
-                out.append(record)
+            out.append(record)
         return out
 
     def exhausted(self) -> bool:
@@ -83,7 +89,8 @@ class FileSource:
         if self._stream is not sys.stdin.buffer:
             self._stream.close()
 
-    def _wait_for_pace(self, pace: float) -> bool:
+    def _due(self, pace: float) -> bool:
+        """True when the next record is due at ``pace`` records a second (else a short wait)."""
         now = time.monotonic()
         if now < self._next_due:
             time.sleep(min(self._next_due - now, 0.05))

@@ -35,9 +35,17 @@ from kafka.errors import KafkaError
 from stream_miner.decoding.files import InputError
 from stream_miner.decoding.messages import MessageFormat, decode_message
 from stream_miner.decoding.records import DeadLetter, SourceRecord
+from stream_miner.runtime.protocols import StoppedWaiting
 
 T = TypeVar("T")
 DEFAULTS = {"enable_auto_commit": False, "auto_offset_reset": "earliest", "max_poll_records": 500}
+SET_BY_US = {
+    "bootstrap_servers": "set by the kafka://HOST:PORT/TOPIC address",
+    "group_id": "set by --group",
+    "enable_auto_commit": "stream-miner commits offsets itself, after each checkpoint",
+    "key_deserializer": "messages are decoded by stream-miner",
+    "value_deserializer": "messages are decoded by stream-miner",
+}
 RETRY_FIRST, RETRY_MAX = 1.0, 30.0  # seconds between attempts to reach the brokers
 CONNECT_TIMEOUT = 3.0  # seconds for one TCP connection attempt
 
@@ -46,8 +54,9 @@ def parse_kafka_url(url: str) -> tuple[str, str]:
     """``kafka://HOST:PORT[,HOST:PORT]/TOPIC`` -> (bootstrap servers, topic)."""
     rest = url.removeprefix("kafka://")
     servers, _, topic = rest.partition("/")
-    if not servers or not topic or "/" in topic:
-        raise InputError(f"a Kafka source looks like kafka://HOST:PORT/TOPIC, got {url!r}")
+    ports = [server.rpartition(":")[2] for server in servers.split(",")]
+    if not servers or not topic or "/" in topic or not all(port.isdigit() for port in ports):
+        raise InputError(f"a Kafka address looks like kafka://HOST:PORT/TOPIC, got {url!r}")
     return servers, topic
 
 
@@ -68,6 +77,8 @@ def client_options(pairs: list[str]) -> dict[str, object]:
                 raise InputError(f"--kafka-option {key}: environment variable {name} is not set")
             value = os.environ[name]
         name = key.replace(".", "_")
+        if name in SET_BY_US:
+            raise InputError(f"--kafka-option {key}: {SET_BY_US[name]}")
         if name not in KafkaConsumer.DEFAULT_CONFIG and name not in KafkaProducer.DEFAULT_CONFIG:
             raise InputError(f"--kafka-option {key}: not a kafka-python client option")
         options[name] = _typed(value)
@@ -77,20 +88,18 @@ def client_options(pairs: list[str]) -> dict[str, object]:
 def _typed(value: str) -> object:
     if value.lower() in ("true", "false"):
         return value.lower() == "true"
-    try:
-        return int(value)
-    except ValueError:
-        return value
+    for number in (int, float):
+        try:
+            return number(value)
+        except ValueError:
+            pass
+    return value
 
 
-class SourceStopped(Exception):
-    """The source was asked to stop before it could be reached."""
-
-
-def _connect(servers: str, make: Callable[[], T], stop: threading.Event, log: TextIO) -> T:
+def connect(servers: str, make: Callable[[], T], stop: threading.Event, log: TextIO) -> T:
     """``make()`` once a bootstrap server answers; until then one line per attempt says why
     not, and the wait before the next attempt doubles up to ``RETRY_MAX`` seconds. Raises
-    :class:`SourceStopped` when ``stop`` is set meanwhile."""
+    :class:`StoppedWaiting` when ``stop`` is set meanwhile."""
     delay = RETRY_FIRST
     while True:
         problem = _unreachable(servers)
@@ -98,11 +107,13 @@ def _connect(servers: str, make: Callable[[], T], stop: threading.Event, log: Te
             try:
                 return make()
             except KafkaError as error:
-                problem = f"{type(error).__name__}: {error}"
+                problem = " ".join(str(error).split()) or type(error).__name__
+            except (TypeError, ValueError) as error:  # a client option kafka-python refuses
+                raise InputError(f"--kafka-option: kafka-python refused the options: {error}") from None
         print(f"stream-miner: cannot reach Kafka at {servers} ({problem}); retrying in {delay:g} s",
               file=log, flush=True)
         if stop.wait(delay):
-            raise SourceStopped
+            raise StoppedWaiting
         delay = min(2 * delay, RETRY_MAX)
 
 
@@ -143,7 +154,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self._next_offsets: dict[int, int] = {}  # per partition, after the last record read
         settings = DEFAULTS | {k: v for k, v in (options or {}).items() if k in KafkaConsumer.DEFAULT_CONFIG}
         self._max_records = int(settings.get("max_poll_records", 500))  # type: ignore[call-overload]
-        self._consumer = _connect(servers, lambda: KafkaConsumer(bootstrap_servers=servers, group_id=group, **settings),
+        self._consumer = connect(servers, lambda: KafkaConsumer(bootstrap_servers=servers, group_id=group, **settings),
                                   stop or threading.Event(), log)
         self._consumer.subscribe([self.topic], listener=self)
 

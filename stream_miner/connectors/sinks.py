@@ -11,22 +11,27 @@ from __future__ import annotations
 import json
 import os
 import sys
+import threading
 from collections import Counter
 from typing import TextIO
 
 from kafka import KafkaProducer
 
-from stream_miner.connectors.kafka_source import parse_kafka_url
+from stream_miner.connectors.kafka_source import connect, parse_kafka_url
 from stream_miner.decoding.records import DeadLetter
 
 SAFE_PRODUCER = {"acks": "all", "enable_idempotence": True}
 
 
-def _producer(url: str, options: dict[str, object] | None) -> tuple[KafkaProducer, str]:
-    """A producer for ``url``; of the shared client options it takes those a producer knows."""
+def _producer(
+    url: str, options: dict[str, object] | None, stop: threading.Event | None = None
+) -> tuple[KafkaProducer, str]:
+    """A producer for ``url``; of the shared client options it takes those a producer knows.
+    Until the brokers answer, a line per attempt says why not (``stop`` ends the wait)."""
     servers, topic = parse_kafka_url(url)
     known = {k: v for k, v in (options or {}).items() if k in KafkaProducer.DEFAULT_CONFIG}
-    return KafkaProducer(bootstrap_servers=servers, **(known | SAFE_PRODUCER)), topic
+    make = lambda: KafkaProducer(bootstrap_servers=servers, **(known | SAFE_PRODUCER))  # noqa: E731
+    return connect(servers, make, stop or threading.Event(), sys.stderr), topic
 
 
 class KafkaSink:
@@ -77,8 +82,10 @@ class KafkaDeadLetters:
     """Dead letters to a Kafka topic: the raw bytes as the value; reason, detail and origin
     as headers; counted by reason like the file sink."""
 
-    def __init__(self, url: str, options: dict[str, object] | None = None) -> None:
-        self._producer, self.topic = _producer(url, options)
+    def __init__(
+        self, url: str, options: dict[str, object] | None = None, *, stop: threading.Event | None = None
+    ) -> None:
+        self._producer, self.topic = _producer(url, options, stop)
         self.counts: Counter[str] = Counter()
 
     def write(self, letter: DeadLetter) -> None:

@@ -17,6 +17,9 @@ from __future__ import annotations
 
 import csv
 import io
+import os
+import select
+import stat
 import time
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -27,7 +30,8 @@ from stream_miner.decoding.records import Basket, DeadLetter, SourceRecord
 
 FORMATS = ("jsonl", "fimi", "csv")
 FOLLOW_FORMATS = ("jsonl", "fimi")
-FOLLOW_WAIT = 0.05  # seconds between looks at a followed file that has no new line
+FOLLOW_WAIT = 0.05  # seconds between looks at a followed file or a pipe that has nothing new
+READ_CHUNK = 1 << 16  # bytes read at a time
 _EXTENSIONS = {
     ".fimi": "fimi",
     ".dat": "fimi",
@@ -72,42 +76,88 @@ def detect_format(path: str) -> str:
 def read_records(
     stream: IO[bytes], layout: FileLayout, source: str, *, follow: bool = False
 ) -> Iterator[SourceRecord | None]:
-    """The records of ``stream`` in input order. With ``follow`` the file is read as it grows:
-    ``None`` means no complete new line yet (ask again later); a line still being written is
-    held back until its newline arrives."""
+    """The records of ``stream`` in input order. ``None`` means nothing more for now (ask
+    again later): a followed file has no complete new line, or a pipe has no data yet. With
+    ``follow`` the file is read as it grows, and a line still being written is held back until
+    its newline arrives. A line longer than the message size limit is set aside as ``message
+    too large`` after reading at most that much of it."""
     if layout.fmt == "csv":
         if follow:
             raise InputError(f"following a file works with {' and '.join(FOLLOW_FORMATS)} input, not csv")
         yield from read_csv(stream, layout, source)
         return
     decode = _jsonl_decoder(layout.message, source) if layout.fmt == "jsonl" else _fimi_decoder(source)
-    for number, line in _lines(stream, follow):
+    limit = layout.message.max_message_bytes
+    for number, line, length in _lines(stream, follow, limit):
         if line is None:
             yield None
+        elif length > limit:
+            letter = DeadLetter(
+                line[:limit], "message too large", f"{length} bytes, limit {limit}", source, 0, number
+            )
+            yield SourceRecord(letter, 0, number)
         elif layout.fmt == "fimi" or line.strip():
             yield SourceRecord(decode(line, number), 0, number)
 
 
-def _lines(stream: IO[bytes], follow: bool) -> Iterator[tuple[int, bytes | None]]:
-    """Numbered lines without their line ending; (number, None) while a followed file has
-    no complete new line."""
-    number, partial = 0, b""
-    while True:
-        chunk = stream.readline()
-        if not chunk:
-            if not follow:
-                if partial:
-                    yield number + 1, partial
-                return
-            yield number, None
-            time.sleep(FOLLOW_WAIT)
+def _lines(stream: IO[bytes], follow: bool, limit: int) -> Iterator[tuple[int, bytes | None, int]]:
+    """(number, line without its ending, its full length); (number, None, 0) when nothing
+    more is there now. Of a line longer than ``limit`` only the first ``limit + 1`` bytes are
+    kept, so a huge line never fills the memory."""
+    number, kept, length = 0, b"", 0
+    for piece in _pieces(stream, follow):
+        if piece is None:
+            yield number, None, 0
             continue
-        partial += chunk
-        if follow and not partial.endswith(b"\n"):
-            continue  # a line still being written
-        number += 1
-        line, partial = partial.rstrip(b"\r\n"), b""
-        yield number, line
+        while piece:
+            cut = piece.find(b"\n") + 1
+            head, piece = (piece[:cut], piece[cut:]) if cut else (piece, b"")
+            if len(kept) <= limit:
+                kept += head[: limit + 1 - len(kept)]
+            length += len(head)
+            if cut:
+                number += 1
+                ending = len(head) - len(head.rstrip(b"\r\n"))
+                yield number, kept.rstrip(b"\r\n"), length - ending
+                kept, length = b"", 0
+    if length and not follow:
+        yield number + 1, kept, length
+
+
+def _pieces(stream: IO[bytes], follow: bool) -> Iterator[bytes | None]:
+    """The bytes of ``stream`` as they come (lines or parts of lines from a regular file,
+    chunks from a pipe or terminal), None when there is nothing now; ends at the end of the
+    input. A pipe is read only once it has data, so a reader is never stuck in a read and can
+    be stopped."""
+    descriptor = _waitable(stream)
+    while True:
+        if descriptor is not None:
+            if not select.select([descriptor], [], [], FOLLOW_WAIT)[0]:
+                yield None
+                continue
+            piece = os.read(descriptor, READ_CHUNK)
+            if not piece:
+                return
+        else:
+            piece = stream.readline(READ_CHUNK)
+            if not piece:
+                if not follow:
+                    return
+                yield None
+                time.sleep(FOLLOW_WAIT)
+                continue
+        yield piece
+
+
+def _waitable(stream: IO[bytes]) -> int | None:
+    """The descriptor of a pipe, socket or terminal (reading it may wait); None for a regular
+    file or a stream without one."""
+    try:
+        descriptor = stream.fileno()
+        mode = os.fstat(descriptor).st_mode
+    except (OSError, ValueError, AttributeError):
+        return None
+    return None if stat.S_ISREG(mode) else descriptor
 
 
 def _jsonl_decoder(message: MessageFormat, source: str) -> Callable[[bytes, int], Basket | DeadLetter]:

@@ -97,8 +97,11 @@ def _json_object(raw: bytes, fmt: MessageFormat) -> dict[str, object]:
 
 def _basket(message: dict[str, object], fmt: MessageFormat, raw: bytes) -> Basket:
     """The basket held by a message object; JSON null counts as a missing field."""
+    items = _items(message.get(fmt.items_field), fmt)
+    if b"\\ud" in raw or b"\\uD" in raw:  # JSON escapes can spell lone surrogates: not text
+        _check_text(items)
     return Basket(
-        items=_items(message.get(fmt.items_field), fmt),
+        items=items,
         id=_basket_id(message.get(fmt.id_field), fmt.id_field),
         ts=_event_time(message.get(fmt.time_field), fmt),
         segment=_segment(message, fmt),
@@ -122,6 +125,15 @@ def _items(value: object, fmt: MessageFormat) -> list[str]:
     if not names or not all(type(name) is str for name in names):
         names = list(dict.fromkeys(_item_name(item, index, fmt.item_key) for index, item in enumerate(value)))
     return names
+
+
+def _check_text(names: list[str]) -> None:
+    """Every name can be written out as UTF-8 (no lone surrogates)."""
+    for index, name in enumerate(names):
+        try:
+            name.encode("utf-8")
+        except UnicodeEncodeError:
+            raise _Refused("bad item", f"item {index} is not valid Unicode text (a lone surrogate)") from None
 
 
 def _item_name(item: object, index: int, item_key: str) -> str:

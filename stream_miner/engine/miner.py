@@ -22,6 +22,7 @@ from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.delta import ResultDelta, diff_results
 from stream_miner.engine.fpgrowth import Itemset, check_size, mine_tree
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
+from stream_miner.engine.limits import stop_if_set
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.result import MiningResult
 from stream_miner.engine.rules import generate_rules
@@ -87,6 +88,8 @@ class WindowMiner:
     ) -> None:
         if batch_size < 1:
             raise ValueError(f"batch size must be at least 1, got {batch_size}")
+        if window is not None and not isinstance(window, CountWindow | TimeWindow):
+            raise ValueError(f"window must be a CountWindow, a TimeWindow or None, got {window!r}")
         self.window = window
         self.policy = policy
         self.batch_size = batch_size
@@ -299,6 +302,7 @@ class WindowMiner:
             found = self._mine_tree(params, names, min_count, interrupt)
         result = self._result(found, min_count, params, names, interrupt)
         tick = Tick(self._ticks, result, diff_results(self._last, result))
+        stop_if_set(interrupt)  # an abandoned tick must not count: its caller has moved on
         self._last = result
         self._ticks += 1
         return tick

@@ -10,11 +10,13 @@ basket (17 with event times).
 
 from __future__ import annotations
 
+import math
 from collections import deque
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from stream_miner.engine.arguments import whole_number
 from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.incremental.kernels import compiled, rows_holding
 
@@ -29,8 +31,7 @@ class CountWindow:
     size: int
 
     def __post_init__(self) -> None:
-        if self.size < 1:
-            raise ValueError(f"window size must be at least 1 basket, got {self.size}")
+        object.__setattr__(self, "size", whole_number(self.size, "window size"))
 
 
 @dataclass(frozen=True)
@@ -40,8 +41,10 @@ class TimeWindow:
     seconds: float
 
     def __post_init__(self) -> None:
-        if not self.seconds > 0:
-            raise ValueError(f"window duration must be positive, got {self.seconds}")
+        seconds = self.seconds
+        if isinstance(seconds, bool) or not isinstance(seconds, int | float) or not 0 < seconds < math.inf:
+            raise ValueError(f"window duration must be a positive number of seconds, got {seconds!r}")
+        object.__setattr__(self, "seconds", float(seconds))
 
 
 @dataclass

@@ -12,6 +12,10 @@ from stream_miner.decoding.records import DeadLetter, SourceRecord
 from stream_miner.engine.miner import Tick
 
 
+class StoppedWaiting(Exception):
+    """A stop was asked for while waiting for an outside system (a broker) to answer."""
+
+
 class Source(Protocol):
     """Records from outside: a file, stdin or a Kafka topic."""
 

@@ -35,7 +35,7 @@ from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.window import CountWindow, TimeWindow
 from stream_miner.runtime.dedup import RecentIds
-from stream_miner.runtime.health import DeadLetterWatch, summary
+from stream_miner.runtime.health import DeadLetterWatch, plural, summary
 from stream_miner.runtime.progress import ProgressLine
 from stream_miner.runtime.protocols import DeadLetterSink, Source, TickListener, TickReport
 from stream_miner.runtime.schedule import TickSchedule
@@ -131,10 +131,13 @@ class Runner:
             print(f"stream-miner: reading {self.source.name}", file=self.log, flush=True)
         try:
             self._loop()
-            if self.schedule.final_due() and (self.tick_on_stop or not self.stopping):
+            if self.schedule.final_due(self.consumed) and (self.tick_on_stop or not self.stopping):
                 self._tick()
         except MiningInterrupted:
-            print(f"stream-miner: stopped during a tick; {self.schedule.ticks} ticks done", file=self.log)
+            print(
+                f"stream-miner: stopped during a tick; {plural(self.schedule.ticks, 'tick')} done",
+                file=self.log,
+            )
         except ResultTooLarge as error:
             self._checkpoint()
             print(f"stream-miner: error: {error}", file=self.log)
@@ -148,7 +151,7 @@ class Runner:
             records = self.source.poll()
             for record in records:
                 self._take(record.payload, record.partition, record.offset)
-                if self.schedule.every is not None and self.schedule.since_tick >= self.schedule.every:
+                if self.schedule.count_due(self.consumed):
                     self._tick()
             self.progress.update(self.source.position, self.consumed)
             if self.schedule.interval_due():
@@ -177,7 +180,7 @@ class Runner:
             )
             return
         if payload.id is not None and self.recent.check_and_add(payload.id, payload.ts):
-            self.counts["duplicate"] += 1
+            self.counts["duplicates skipped"] += 1
             return
         if not isinstance(window, TimeWindow):
             self._enter(payload, partition, offset)
@@ -210,7 +213,6 @@ class Runner:
             self._refuse(basket, "basket too large", detail, partition, offset)
         elif verdict in (Verdict.ACCEPTED, Verdict.TRUNCATED):
             self.consumed += 1
-            self.schedule.since_tick += 1
             self.last_id = basket.id
 
     def _refuse(self, basket: Basket, reason: str, detail: str, partition: int, offset: int) -> None:
@@ -225,7 +227,7 @@ class Runner:
     def _tick(self) -> None:
         self.progress.close()
         report = self._refresh_off_the_main_thread()
-        self.schedule.ticked()
+        self.schedule.ticked(report.consumed)
         for listener in self.listeners:
             listener.on_tick(report)
         self.watch.check()
@@ -327,11 +329,32 @@ class Runner:
         if restored is None:
             return
         self.miner, metadata = restored
-        self.offsets = {int(p): o for p, o in metadata["offsets"].items()}
-        self.consumed = metadata["consumed"]
+        from stream_miner.runtime.checkpoint import CheckpointError
+
+        def refuse(problem: str) -> CheckpointError:
+            return CheckpointError(f"checkpoint in {directory}: {problem}; pass --start-fresh to discard it")
+
+        if not isinstance(metadata, dict) or "source" not in metadata:
+            raise refuse("it holds no run state (not written by `run`)")
+        if metadata["source"] != self.source.name:
+            raise refuse(f"it was made reading {metadata['source']}, but this run reads {self.source.name}")
+        try:
+            self._take_run_state(metadata)
+        except (KeyError, TypeError, ValueError, AttributeError) as error:
+            raise refuse(f"its run state is malformed ({type(error).__name__}: {error})") from None
+        print(
+            f"stream-miner: resumed from {directory} at tick {self.miner.next_tick}, "
+            f"{self.consumed:,} baskets consumed",
+            file=self.log,
+        )
+
+    def _take_run_state(self, metadata: dict) -> None:
+        """The loop's own state from a checkpoint's metadata (see :meth:`_save`)."""
+        self.offsets = {int(p): int(o) for p, o in metadata["offsets"].items()}
+        self.consumed = int(metadata["consumed"])
         self.last_id = metadata["last_id"]
-        self.newest = -math.inf if metadata["newest"] is None else metadata["newest"]
-        self.watermark = -math.inf if metadata["watermark"] is None else metadata["watermark"]
+        self.newest = -math.inf if metadata["newest"] is None else float(metadata["newest"])
+        self.watermark = -math.inf if metadata["watermark"] is None else float(metadata["watermark"])
         self.waiting = [
             (ts, next(self._arrivals), Basket(items, basket_id, ts), partition, offset)
             for ts, items, basket_id, partition, offset in metadata["waiting"]
@@ -339,12 +362,7 @@ class Runner:
         heapq.heapify(self.waiting)
         self.recent = RecentIds.from_state(metadata["recent"])
         self.counts = Counter(metadata["counts"])
-        self.schedule.ticks = self.miner.next_tick
-        print(
-            f"stream-miner: resumed from {directory} at tick {self.miner.next_tick}, "
-            f"{self.consumed:,} baskets consumed",
-            file=self.log,
-        )
+        self.schedule.restored(self.miner.next_tick, self.consumed)
 
     def _summarise(self) -> None:
         self.progress.close()

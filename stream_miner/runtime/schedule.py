@@ -1,8 +1,11 @@
 """When to tick: after every N accepted baskets, or every S seconds, and once at the end.
 
-The same rule serves ``mine`` and ``run``: tick k (0, 1, ...) comes after (k + 1) x N
-accepted baskets, counted from the start of the stream, and a last tick follows at the end
-of a finite input when baskets arrived after the previous tick (or there was none).
+The same rule serves ``mine`` and ``run``: with N, a tick is due as soon as the count of
+accepted baskets since the stream began reaches the next multiple of N (so tick k follows
+the (k + 1) x N-th basket of an uninterrupted stream, and an extra tick, at a stop or when a
+time window lets several waiting baskets in at once, never shifts the later ones); a last
+tick follows at the end of the input when baskets arrived after the previous tick (or there
+was none).
 """
 
 from __future__ import annotations
@@ -13,13 +16,13 @@ from dataclasses import dataclass, field
 
 @dataclass
 class TickSchedule:
-    """Counts accepted baskets and wall-clock time since the last tick."""
+    """Watches the accepted-basket count and the wall clock for due ticks."""
 
     every: int | None = None
     interval: float | None = None
-    since_tick: int = 0
     ticks: int = 0
-    _last_at: float = field(default_factory=time.monotonic)
+    _ticked_at_count: int = 0
+    _ticked_at: float = field(default_factory=time.monotonic)
 
     def __post_init__(self) -> None:
         if self.every is not None and self.interval is not None:
@@ -29,21 +32,25 @@ class TickSchedule:
         if self.interval is not None and not self.interval > 0:
             raise ValueError(f"--tick-interval must be positive, got {self.interval}")
 
-    def accepted(self) -> bool:
-        """Count one accepted basket; True when a tick is due now (count schedule)."""
-        self.since_tick += 1
-        return self.every is not None and self.since_tick >= self.every
+    def count_due(self, consumed: int) -> bool:
+        """True when ``consumed`` accepted baskets reach a multiple of N not ticked at yet."""
+        return self.every is not None and consumed // self.every > self._ticked_at_count // self.every
 
     def interval_due(self) -> bool:
         """True when a wall-clock tick is due now."""
-        return self.interval is not None and time.monotonic() - self._last_at >= self.interval
+        return self.interval is not None and time.monotonic() - self._ticked_at >= self.interval
 
-    def final_due(self) -> bool:
+    def final_due(self, consumed: int) -> bool:
         """True when the end of the input owes a last tick."""
-        return self.since_tick > 0 or self.ticks == 0
+        return consumed > self._ticked_at_count or self.ticks == 0
 
-    def ticked(self) -> None:
-        """Note that a tick just happened."""
-        self.since_tick = 0
+    def ticked(self, consumed: int) -> None:
+        """Note that a tick just happened, after ``consumed`` accepted baskets."""
         self.ticks += 1
-        self._last_at = time.monotonic()
+        self._ticked_at_count = consumed
+        self._ticked_at = time.monotonic()
+
+    def restored(self, ticks: int, consumed: int) -> None:
+        """Carry on after a restart: ``ticks`` done, the last after ``consumed`` baskets."""
+        self.ticks = ticks
+        self._ticked_at_count = consumed
