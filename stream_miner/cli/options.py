@@ -36,8 +36,6 @@ class DeprecatedAlias(argparse.Action):
 
     def __call__(self, parser, namespace, values, option_string=None) -> None:
         print(f"stream-miner: note: {option_string} is deprecated, use {self.new}", file=sys.stderr)
-        if self.nargs == 0:
-            values = self.const
         setattr(namespace, self.dest, self.values_map.get(values, values))
 
 

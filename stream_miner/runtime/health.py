@@ -6,7 +6,6 @@ from collections import Counter
 from typing import TextIO
 
 from stream_miner.engine.hygiene import Verdict
-from stream_miner.engine.window import CountWindow, TimeWindow
 
 WATCH_AFTER = 100  # records seen before the share of dead letters is judged
 MOSTLY = 0.5  # a reason holding more than this share of all records earns a warning
@@ -26,8 +25,7 @@ _HINTS = {
 class DeadLetterWatch:
     """Warns once when most records are set aside for one reason (with a hint)."""
 
-    def __init__(self, window: CountWindow | TimeWindow | None, log: TextIO) -> None:
-        self.window = window
+    def __init__(self, log: TextIO) -> None:
         self.log = log
         self.records = 0
         self.reasons: Counter[str] = Counter()

@@ -104,7 +104,7 @@ class Runner:
         self.watermark = -math.inf  # where an event-time window ends: newest - lateness, or newest at the end
         self.waiting: list[tuple[float, int, Basket, int, int]] = []  # heap by event time
         self.schedule = TickSchedule(settings.tick_every, settings.tick_interval)
-        self.watch = DeadLetterWatch(settings.window, self.log)
+        self.watch = DeadLetterWatch(self.log)
         window = settings.window
         self.recent = (
             RecentIds(horizon=window.seconds + settings.allowed_lateness)
