@@ -126,7 +126,7 @@ class Runner:
         """Process records until the source is exhausted or stopped; return the exit code."""
         self._restore()
         self.source.seek(self.offsets)
-        self.source.revoke_handler = self._save  # checkpoint before partitions move away
+        self.source.revoke_handler = self._hand_over  # checkpoint before partitions move away
         if self.talk_when_clean:
             print(f"stream-miner: reading {self.source.name}", file=self.log, flush=True)
         try:
@@ -150,14 +150,16 @@ class Runner:
         while not self.stopping:
             records = self.source.poll()
             for record in records:
-                self._take(record.payload, record.partition, record.offset)
+                with self._lock:  # a rebalance on the client's thread may checkpoint at any time
+                    self._take(record.payload, record.partition, record.offset)
                 if self.schedule.count_due(self.consumed):
                     self._tick()
             self.progress.update(self.source.position, self.consumed)
             if self.schedule.interval_due():
                 self._tick()
             if self.source.exhausted():
-                self._release(math.inf)  # no later basket can come: the waiting ones enter
+                with self._lock:
+                    self._release(math.inf)  # no later basket can come: the waiting ones enter
                 return
             if not records:
                 time.sleep(IDLE_WAIT)
@@ -291,6 +293,14 @@ class Runner:
         if self._save():
             self.dead_letters.flush()
             self.source.commit(self.offsets)
+
+    def _hand_over(self) -> dict[int, int]:
+        """Before partitions move to another member: a checkpoint, and the dead letters sent,
+        so the offsets committed next cover all of it."""
+        offsets = self._save()
+        if offsets:
+            self.dead_letters.flush()
+        return offsets
 
     def _save(self) -> dict[int, int]:
         """Save a checkpoint (durable on return); the offsets it covers, none without one."""
