@@ -233,20 +233,12 @@ def test_event_time_window_with_allowed_lateness(tmp_path, capsys):
         ("f", 150, ["x", "y"]),
     ]
     data.write_text("\n".join(json.dumps({"id": i, "ts": t, "items": s}) for i, t, s in rows) + "\n")
+    common = ["run", "--source", f"file:{data}", "--window-time", "30s", "--allowed-lateness", "10s"]
+    common += ["--tick-every", "100", "--min-count", "1"]
     assert (
         main(
             [
-                "run",
-                "--source",
-                f"file:{data}",
-                "--window-time",
-                "30s",
-                "--allowed-lateness",
-                "10s",
-                "--tick-every",
-                "100",
-                "--min-count",
-                "1",
+                *common,
                 "--dead-letter-out",
                 str(letters),
                 "--snapshot-out",
@@ -265,17 +257,7 @@ def test_event_time_window_with_allowed_lateness(tmp_path, capsys):
     assert (
         main(
             [
-                "run",
-                "--source",
-                f"file:{data}",
-                "--window-time",
-                "30s",
-                "--allowed-lateness",
-                "10s",
-                "--tick-every",
-                "100",
-                "--min-count",
-                "1",
+                *common,
                 "--late",
                 "drop",
             ]

@@ -60,9 +60,10 @@ class DeadLetter:
 
     def message(self) -> str:
         """One line for a person: where, what, why."""
-        where = f"offset {self.offset}" if self.partition not in (None, 0) else f"line {self.offset}"
-        if self.partition not in (None, 0):
-            where = f"partition {self.partition} {where}"
+        if self.partition in (None, 0):
+            where = f"line {self.offset}"
+        else:
+            where = f"partition {self.partition} offset {self.offset}"
         return f"{where}: {self.reason}: {self.detail}"
 
 

@@ -23,21 +23,18 @@ _HINTS = {
 
 
 class DeadLetterWatch:
-    """Warns once when most records are set aside for one reason (with a hint)."""
+    """Warns once when most records are set aside for one reason (with a hint); ``reasons``
+    are the dead-letter sink's counts by reason."""
 
-    def __init__(self, log: TextIO) -> None:
+    def __init__(self, reasons: Counter[str], log: TextIO) -> None:
+        self.reasons = reasons
         self.log = log
         self.records = 0
-        self.reasons: Counter[str] = Counter()
         self.warned = False
 
     def record(self) -> None:
         """Count one record read from the source."""
         self.records += 1
-
-    def dead_letter(self, reason: str) -> None:
-        """Count one record set aside."""
-        self.reasons[reason] += 1
 
     def check(self, *, at_end: bool = False) -> None:
         """Warn (once) when one reason holds most records: after ``WATCH_AFTER`` records, or

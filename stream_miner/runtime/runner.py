@@ -104,7 +104,7 @@ class Runner:
         self.watermark = -math.inf  # where an event-time window ends: newest - lateness, or newest at the end
         self.waiting: list[tuple[float, int, Basket, int, int]] = []  # heap by event time
         self.schedule = TickSchedule(settings.tick_every, settings.tick_interval)
-        self.watch = DeadLetterWatch(self.log)
+        self.watch = DeadLetterWatch(dead_letters.counts, self.log)
         window = settings.window
         self.recent = (
             RecentIds(horizon=window.seconds + settings.allowed_lateness)
@@ -169,7 +169,7 @@ class Runner:
         self.offsets[partition] = offset + 1
         self.watch.record()
         if isinstance(payload, DeadLetter):
-            self._set_aside(payload)
+            self.dead_letters.write(payload)
             return
         window = self.settings.window
         if isinstance(window, TimeWindow) and payload.ts is None:
@@ -219,11 +219,7 @@ class Runner:
 
     def _refuse(self, basket: Basket, reason: str, detail: str, partition: int, offset: int) -> None:
         raw = basket.raw or json.dumps({"id": basket.id, "ts": basket.ts, "items": basket.items}).encode()
-        self._set_aside(DeadLetter(raw, reason, detail, self.source.name, partition, offset))
-
-    def _set_aside(self, letter: DeadLetter) -> None:
-        self.dead_letters.write(letter)
-        self.watch.dead_letter(letter.reason)
+        self.dead_letters.write(DeadLetter(raw, reason, detail, self.source.name, partition, offset))
 
     # ------------------------------------------------------------------- ticks
     def _tick(self) -> None:
@@ -290,9 +286,9 @@ class Runner:
     # -------------------------------------------------------------- checkpoints
     def _checkpoint(self) -> None:
         """Save a checkpoint, then commit the offsets it covers (dead letters sent first)."""
-        if self._save():
-            self.dead_letters.flush()
-            self.source.commit(self.offsets)
+        offsets = self._hand_over()
+        if offsets:
+            self.source.commit(offsets)
 
     def _hand_over(self) -> dict[int, int]:
         """Before partitions move to another member: a checkpoint, and the dead letters sent,
