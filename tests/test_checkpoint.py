@@ -107,10 +107,11 @@ def test_round_trip_restores_window_vocabulary_verdicts_and_metadata(tmp_path, w
     assert [restored.vocabulary.lookup(n) for n in miner.vocabulary.names()] == list(
         range(len(miner.vocabulary))
     )
-    baskets, ts = miner.store.contents()
-    baskets2, ts2 = restored.store.contents()
+    baskets, ts, tags = miner.store.contents()
+    baskets2, ts2, tags2 = restored.store.contents()
     assert baskets.to_lists() == baskets2.to_lists()
     assert np.array_equal(ts, ts2, equal_nan=True)
+    assert np.array_equal(tags, tags2)
 
 
 @pytest.mark.parametrize("window", [CountWindow(1000), TimeWindow(20)])
@@ -513,6 +514,7 @@ CORRUPTIONS = {
                 a.__setitem__("items", np.zeros(40, np.int32)),
                 a.__setitem__("start", np.arange(41, dtype=np.int64)),
                 a.__setitem__("ts", np.full(40, np.nan)),
+                a.__setitem__("tags", np.full(40, -1, np.int64)),
             ),
         ),
         "40 baskets in a window of 30",

@@ -347,3 +347,62 @@ def test_interrupted_rule_generation_stops_promptly():
     interrupted_within(
         lambda: generate_rules(itemsets, 2**18, RuleFilter(min_confidence=1), interrupt=interrupt), interrupt
     )
+
+
+# Withdrawal: a window after ``withdraw(low, high)`` must mine exactly like batch mining of
+# what is left. For a count window, "what is left" is the last ``size`` baskets added minus
+# the withdrawn ones (the places they held are refilled by later baskets only).
+@settings(max_examples=80, deadline=None)
+@given(
+    st.lists(st.tuples(names_st, st.integers(0, 30)), min_size=1, max_size=60),
+    st.integers(1, 25),
+    st.integers(1, 9),
+    st.lists(st.tuples(st.integers(1, 60), st.integers(0, 30), st.integers(0, 10)), max_size=4),
+    st.booleans(),
+)
+def test_count_window_withdrawal_equals_brute_force(stream, size, batch, withdrawals, tick):
+    miner = WindowMiner(CountWindow(size), batch_size=batch)
+    window: list[tuple[list[str], int]] = []  # (basket, tag), oldest first
+    at = {when: (low, low + span) for when, low, span in withdrawals}
+    for i, (basket, tag) in enumerate(stream, start=1):
+        miner.add(basket, tag=tag)
+        window = (window + [(basket, tag)])[-size:]
+        if i in at:
+            low, high = at[i]
+            assert miner.withdraw(low, high) == sum(low <= t < high for _, t in window)
+            window = [(b, t) for b, t in window if not low <= t < high]
+        expected = frequent_itemsets([b for b, _ in window], 1)
+        if tick or i == len(stream):
+            assert miner.tick(MiningParams(min_count=1)).result.itemsets == expected
+        miner.check_invariants()
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    st.lists(st.tuples(names_st, st.integers(0, 40), st.integers(0, 20)), min_size=1, max_size=50),
+    st.integers(1, 15),
+    st.integers(1, 7),
+    st.lists(st.tuples(st.integers(1, 50), st.integers(0, 20), st.integers(0, 8)), max_size=4),
+)
+def test_time_window_withdrawal_equals_brute_force(stream, seconds, batch, withdrawals):
+    miner = WindowMiner(TimeWindow(seconds), batch_size=batch)
+    arrived: list[tuple[list[str], int, int]] = []
+    at = {when: (low, low + span) for when, low, span in withdrawals}
+    for i, (basket, ts, tag) in enumerate(stream, start=1):
+        miner.add(basket, ts=ts, tag=tag)
+        arrived.append((basket, ts, tag))
+        if i in at:
+            low, high = at[i]
+            miner.withdraw(low, high)
+            arrived = [(b, t, g) for b, t, g in arrived if not low <= g < high]
+        newest = max(t for _, t, _ in stream[:i])
+        window = [b for b, t, _ in arrived if t > newest - seconds]
+        assert miner.tick(MiningParams(min_count=1)).result.itemsets == frequent_itemsets(window, 1)
+
+
+def test_origin_tags_are_checked():
+    miner = WindowMiner(CountWindow(5))
+    for bad in (-1, True, 1.5, "3"):
+        with pytest.raises(ValueError, match="origin tag"):
+            miner.add(["a"], tag=bad)
+    assert len(miner) == 0

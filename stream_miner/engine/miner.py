@@ -28,7 +28,7 @@ from stream_miner.engine.result import MiningResult
 from stream_miner.engine.rules import generate_rules
 from stream_miner.engine.tree import PrefixTree, frequency_rank
 from stream_miner.engine.vocabulary import ItemVocabulary
-from stream_miner.engine.window import CountWindow, Expired, TimeWindow, WindowStore
+from stream_miner.engine.window import NO_TAG, CountWindow, Expired, TimeWindow, WindowStore
 
 if TYPE_CHECKING:
     from stream_miner.engine.incremental.tracker import BorderTracker
@@ -42,15 +42,18 @@ ORDER_GAIN = 0.02  # rebuild when the current order needs this much more nodes t
 @dataclass(frozen=True)
 class MinerState:
     """Everything a :class:`WindowMiner` needs to carry on after a restart (for checkpoints):
-    the window's baskets and their event times, the not yet applied buffer, the vocabulary,
+    the window's baskets with their event times and origin tags, the not yet applied buffer
+    (the same three), the vocabulary,
     the tree's item order, the counters, the next tick's number and the last tick's result
     (the next delta is taken against it; None before the first tick)."""
 
     names: list[str]
     baskets: BasketArrays
     ts: np.ndarray
+    tags: np.ndarray
     pending: BasketArrays
     pending_ts: np.ndarray
+    pending_tags: np.ndarray
     newest_ts: float
     rank: np.ndarray
     ranked: bool
@@ -99,6 +102,7 @@ class WindowMiner:
         self.verdicts: Counter[Verdict] = Counter()
         self._pending: list[list[int]] = []
         self._pending_ts: list[float] = []
+        self._pending_tags: list[int] = []
         self._newest_ts = -math.inf
         self._ranked = False
         self._applied_since_order = 0
@@ -119,13 +123,15 @@ class WindowMiner:
         """The miner's state, read only: the buffer is kept as it is rather than applied, so
         taking the state changes nothing (not even the batch boundaries that decide the
         tree's item order)."""
-        baskets, ts = self.store.contents()
+        baskets, ts, tags = self.store.contents()
         return MinerState(
             names=self.vocabulary.names(),
             baskets=baskets,
             ts=ts,
+            tags=tags,
             pending=BasketArrays.from_lists(self._pending),
             pending_ts=np.array(self._pending_ts, dtype=np.float64),
+            pending_tags=np.array(self._pending_tags, dtype=np.int64),
             newest_ts=self._newest_ts,
             rank=self.tree.rank,
             ranked=self._ranked,
@@ -154,18 +160,22 @@ class WindowMiner:
         if state.ranked:
             miner.tree = PrefixTree(state.rank, capacity_hint=state.baskets.items.size + 16)
             paths = miner.tree.order_paths(state.baskets)
-            miner.store.append(paths, state.ts, miner.tree.update(paths, ()))
+            miner.store.append(paths, state.ts, miner.tree.update(paths, ()), state.tags)
         miner._applied_since_order = state.applied_since_order
         miner._pending = state.pending.to_lists()
         miner._pending_ts = state.pending_ts.tolist()
+        miner._pending_tags = state.pending_tags.tolist()
         miner._ticks = state.next_tick
         miner._last = state.last_result
         return miner
 
     # ------------------------------------------------------------------ input
-    def add(self, items: Iterable[str], ts: float | None = None) -> Verdict:
+    def add(self, items: Iterable[str], ts: float | None = None, tag: int | None = None) -> Verdict:
         """Offer one basket: item names (str), with an optional event time in seconds (a
-        finite number). A bad basket raises ValueError and changes nothing."""
+        finite number) and an optional origin tag (a non-negative int, e.g. where the basket
+        was read; see :meth:`withdraw`). A bad basket raises ValueError and changes nothing."""
+        if tag is not None and (isinstance(tag, bool) or not isinstance(tag, int) or tag < 0):
+            raise ValueError(f"an origin tag must be a non-negative int, got {tag!r}")
         if not isinstance(items, list | tuple):
             items = _as_basket(items)
         if ts is not None:
@@ -178,6 +188,7 @@ class WindowMiner:
             return verdict
         self._pending.append(ids)
         self._pending_ts.append(math.nan if ts is None else ts)
+        self._pending_tags.append(NO_TAG if tag is None else tag)
         if ts is not None and ts > self._newest_ts:
             self._newest_ts = ts
         if len(self._pending) >= self.batch_size:
@@ -192,44 +203,66 @@ class WindowMiner:
     def flush(self) -> None:
         """Apply buffered baskets and expiries to the tree. O(batch) vectorised work."""
         pending, pending_ts = self._pending, np.array(self._pending_ts, dtype=np.float64)
-        self._pending, self._pending_ts = [], []
+        pending_tags = np.array(self._pending_tags, dtype=np.int64)
+        self._pending, self._pending_ts, self._pending_tags = [], [], []
         if isinstance(self.window, CountWindow):
             overflow = len(self.store) + len(pending) - self.window.size
             expired = self.store.expire_oldest(max(0, overflow))
             dropped = max(0, overflow - len(expired.handles))
-            pending, pending_ts = pending[dropped:], pending_ts[dropped:]
+            pending, pending_ts, pending_tags = pending[dropped:], pending_ts[dropped:], pending_tags[dropped:]
         elif isinstance(self.window, TimeWindow):
             cutoff = self._newest_ts - self.window.seconds
             expired = self.store.expire_until(cutoff)
             keep = pending_ts > cutoff
             pending = [b for b, k in zip(pending, keep.tolist(), strict=True) if k]
-            pending_ts = pending_ts[keep]
+            pending_ts, pending_tags = pending_ts[keep], pending_tags[keep]
         else:
             expired = Expired.concat([])
         if not self._ranked and pending:
             self._rank_from(pending)
         paths = self.tree.paths_of(pending)
         handles = self.tree.update(paths, expired.handles)
-        self.store.append(paths, pending_ts, handles)
-        if self._tracker is not None:
-            self._changes += [(expired.baskets, -1), (paths, 1)]
-            if sum(len(baskets) for baskets, _ in self._changes) > 2 * max(len(self.store), 1):
-                self._tracker, self._changes = None, []  # restarting from the window is cheaper
+        self.store.append(paths, pending_ts, handles, pending_tags)
+        self._note_changes((expired.baskets, -1), (paths, 1))
         self._applied_since_order += len(paths)
         if self._applied_since_order >= max(len(self.store), ORDER_CHECK_MIN):
             self._reorder_if_stale()
+
+    def withdraw(self, low: int, high: int) -> int:
+        """Take back every basket whose origin tag lies in [``low``, ``high``), in the window or
+        still buffered, as if it had never been added (the next tick counts without them);
+        return how many. For a count window the freed places are filled by the next baskets
+        added, not by baskets that expired earlier."""
+        keep = [not low <= tag < high for tag in self._pending_tags]
+        taken = keep.count(False)
+        if taken:
+            self._pending = [b for b, k in zip(self._pending, keep, strict=True) if k]
+            self._pending_ts = [t for t, k in zip(self._pending_ts, keep, strict=True) if k]
+            self._pending_tags = [t for t, k in zip(self._pending_tags, keep, strict=True) if k]
+        withdrawn = self.store.withdraw(low, high)
+        if len(withdrawn.handles):
+            self.tree.update(BasketArrays.empty(), withdrawn.handles)
+            self._note_changes((withdrawn.baskets, -1))
+        return taken + len(withdrawn.handles)
+
+    def _note_changes(self, *changes: tuple[BasketArrays, int]) -> None:
+        """Tell the tracker (if one runs) which baskets left (-1) or entered (+1) the window."""
+        if self._tracker is not None:
+            self._changes += changes
+            if sum(len(baskets) for baskets, _ in self._changes) > 2 * max(len(self.store), 1):
+                self._tracker, self._changes = None, []  # restarting from the window is cheaper
 
     def _reorder_if_stale(self) -> None:
         """Once per window turnover: rebuild the tree in the current frequency order when a
         sample says that order would need at least ``ORDER_GAIN`` fewer nodes."""
         self._applied_since_order = 0
-        baskets, ts = self.store.contents()
+        baskets, ts, tags = self.store.contents()
         fresh = frequency_rank(np.bincount(baskets.items, minlength=len(self.vocabulary)))
         sample = baskets.select(np.arange(max(0, len(baskets) - ORDER_SAMPLE), len(baskets)))
         sample_lists = sample.to_lists()
         stale_nodes = PrefixTree.build(sample_lists, self.tree.rank).node_count()
         if stale_nodes > (1 + ORDER_GAIN) * PrefixTree.build(sample_lists, fresh).node_count():
-            self._rebuild(baskets, ts, fresh)
+            self._rebuild(baskets, ts, tags, fresh)
 
     def _rank_from(self, baskets: list[list[int]]) -> None:
         """Fix the tree's item order from the first batch's item frequencies."""
@@ -240,13 +273,14 @@ class WindowMiner:
     def restructure(self) -> None:
         """Rebuild the tree in the window's current item-frequency order (results unchanged)."""
         self.flush()
-        baskets, ts = self.store.contents()
-        self._rebuild(baskets, ts, frequency_rank(np.bincount(baskets.items, minlength=len(self.vocabulary))))
+        baskets, ts, tags = self.store.contents()
+        rank = frequency_rank(np.bincount(baskets.items, minlength=len(self.vocabulary)))
+        self._rebuild(baskets, ts, tags, rank)
 
-    def _rebuild(self, baskets: BasketArrays, ts: np.ndarray, rank: np.ndarray) -> None:
+    def _rebuild(self, baskets: BasketArrays, ts: np.ndarray, tags: np.ndarray, rank: np.ndarray) -> None:
         self.tree = PrefixTree(rank, capacity_hint=self.tree.node_count() + 16)
         paths = self.tree.order_paths(baskets)
-        self.store.replace(paths, ts, self.tree.update(paths, ()))
+        self.store.replace(paths, ts, self.tree.update(paths, ()), tags)
         self._applied_since_order = 0
 
     # ------------------------------------------------------------------ reads

@@ -2,10 +2,12 @@
 
 Baskets are stored in arrival order in numpy chunks (one chunk per applied batch): item ids
 (in the tree's path order; 2 bytes each while ids fit, else 4), row offsets, tree handles
-and event times (only when the baskets carry them). Expiry is exact and never needs the
-tree: a count window drops the oldest baskets, a time window drops every basket whose event
-time has fallen out, in or out of arrival order. About 2 bytes per item plus 9 bytes per
-basket (17 with event times).
+event times and origin tags (each only when the baskets carry them). Expiry is exact and
+never needs the tree: a count window drops the oldest baskets, a time window drops every
+basket whose event time has fallen out, in or out of arrival order; baskets can also be
+withdrawn by their origin tags (a range of tags, e.g. one partition's offsets from some
+point on). About 2 bytes per item plus 9 bytes per basket (17 with event times, 8 more with
+tags).
 """
 
 from __future__ import annotations
@@ -22,6 +24,7 @@ from stream_miner.engine.incremental.kernels import compiled, rows_holding
 
 MIN_CHUNK = 4096  # a newest chunk smaller than this (in baskets) takes the next batch in
 CHUNKS = 8  # ... and so does one smaller than this fraction of the window
+NO_TAG = -1  # the origin tag of a basket that has none
 
 
 @dataclass(frozen=True)
@@ -53,6 +56,7 @@ class _Chunk:
     start: np.ndarray  # int32, len = baskets + 1
     handle: np.ndarray  # int32 tree handles
     event_ts: np.ndarray | None  # float64 event times, None when no basket has one
+    origin: np.ndarray | None  # int64 origin tags (-1: none), None when no basket has one
     alive: np.ndarray = field(init=False)
     n_alive: int = field(init=False)
 
@@ -65,7 +69,11 @@ class _Chunk:
         items = self.items
         item_type = np.uint16 if items.size == 0 or items.max() < 1 << 16 else np.int32
         chunk = _Chunk(
-            items.astype(item_type), self.start.astype(np.int32), self.handle.astype(np.int32), self.event_ts
+            items.astype(item_type),
+            self.start.astype(np.int32),
+            self.handle.astype(np.int32),
+            self.event_ts,
+            self.origin,
         )
         chunk.alive, chunk.n_alive = self.alive, self.n_alive
         return chunk
@@ -74,11 +82,13 @@ class _Chunk:
         """This chunk with ``newer``'s baskets after its own (expired rows stay expired); both
         compact, so the join copies no wider arrays than it keeps."""
         ts = None if self.event_ts is None and newer.event_ts is None else np.concatenate([self.ts, newer.ts])
+        origin = None if self.origin is None and newer.origin is None else np.concatenate([self.tags, newer.tags])
         chunk = _Chunk(
             np.concatenate([self.items, newer.items]),
             np.concatenate([self.start[:-1], newer.start + self.start[-1]]),
             np.concatenate([self.handle, newer.handle]),
             ts,
+            origin,
         )
         chunk.alive = np.concatenate([self.alive, newer.alive])
         chunk.n_alive = self.n_alive + newer.n_alive
@@ -90,6 +100,13 @@ class _Chunk:
         if self.event_ts is None:
             return np.full(self.handle.size, np.nan)
         return self.event_ts
+
+    @property
+    def tags(self) -> np.ndarray:
+        """Origin tags (-1 where none)."""
+        if self.origin is None:
+            return np.full(self.handle.size, NO_TAG, dtype=np.int64)
+        return self.origin
 
     def baskets(self, rows: np.ndarray) -> BasketArrays:
         """The baskets at ``rows`` (increasing indices)."""
@@ -104,8 +121,8 @@ class _Chunk:
 
     @property
     def nbytes(self) -> int:
-        ts_bytes = 0 if self.event_ts is None else self.event_ts.nbytes
-        return self.items.nbytes + self.start.nbytes + self.handle.nbytes + ts_bytes + (self.alive.nbytes)
+        extra = sum(a.nbytes for a in (self.event_ts, self.origin) if a is not None)
+        return self.items.nbytes + self.start.nbytes + self.handle.nbytes + extra + self.alive.nbytes
 
 
 @dataclass(frozen=True)
@@ -136,9 +153,10 @@ class WindowStore:
     def __len__(self) -> int:
         return self._size
 
-    def append(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray) -> None:
-        """Add a batch of baskets (items in path order), newest last. A small newest chunk
-        takes the batch in, so the window stays in a few chunks however small the batches."""
+    def append(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray, tags: np.ndarray) -> None:
+        """Add a batch of baskets (items in path order), newest last, with their event times
+        (NaN: none) and origin tags (``NO_TAG``: none). A small newest chunk takes the batch
+        in, so the window stays in a few chunks however small the batches."""
         if ts.size == 0:
             return
         chunk = _Chunk(
@@ -146,6 +164,7 @@ class WindowStore:
             start=paths.start - paths.start[0],
             handle=handles,
             event_ts=None if np.isnan(ts).all() else ts.astype(np.float64),
+            origin=None if (tags == NO_TAG).all() else tags.astype(np.int64),
         ).compact()
         if self._chunks and self._chunks[-1].handle.size < max(MIN_CHUNK, self._size // CHUNKS):
             chunk = self._chunks.pop().joined(chunk)
@@ -181,6 +200,22 @@ class WindowStore:
             self._head = 0
         return Expired.concat(out)
 
+    def withdraw(self, low: int, high: int) -> Expired:
+        """Remove every basket whose origin tag lies in [``low``, ``high``)."""
+        out = []
+        for chunk in self._chunks:
+            if chunk.origin is None:
+                continue
+            due = chunk.alive & (chunk.origin >= low) & (chunk.origin < high)
+            if due.any():
+                rows = np.flatnonzero(due)
+                out.append(chunk.kill(rows))
+                self._size -= rows.size
+        while self._chunks and self._chunks[0].n_alive == 0:
+            self._chunks.popleft()
+            self._head = 0
+        return Expired.concat(out)
+
     def baskets_with(self, wanted: np.ndarray) -> BasketArrays:
         """Live baskets holding at least one item whose entry in the boolean ``wanted`` is set.
 
@@ -193,21 +228,24 @@ class WindowStore:
                 parts.append(chunk.baskets(rows))
         return BasketArrays.concat(parts)
 
-    def contents(self) -> tuple[BasketArrays, np.ndarray]:
-        """All live baskets and their event times, oldest first."""
-        parts, ts = [], []
+    def contents(self) -> tuple[BasketArrays, np.ndarray, np.ndarray]:
+        """All live baskets, their event times and their origin tags, oldest first."""
+        parts, ts, tags = [], [], []
         for chunk in self._chunks:
             rows = np.flatnonzero(chunk.alive)
             parts.append(chunk.baskets(rows))
             ts.append(chunk.ts[rows])
-        return BasketArrays.concat(parts), np.concatenate(ts) if ts else np.empty(0)
+            tags.append(chunk.tags[rows])
+        if not parts:
+            return BasketArrays.empty(), np.empty(0), np.empty(0, dtype=np.int64)
+        return BasketArrays.concat(parts), np.concatenate(ts), np.concatenate(tags)
 
-    def replace(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray) -> None:
+    def replace(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray, tags: np.ndarray) -> None:
         """Replace the whole content (after the tree was rebuilt in a new item order)."""
         self._chunks.clear()
         self._head = 0
         self._size = 0
-        self.append(paths, ts, handles)
+        self.append(paths, ts, handles, tags)
 
     @property
     def nbytes(self) -> int:

@@ -14,11 +14,14 @@ loads with ``allow_pickle=False``) in a directory of the caller's choice:
 - ``names``: the vocabulary as a JSON list (UTF-8 bytes, uint8 array), index = item id;
 - ``items`` (int32), ``start`` (int64): the window's baskets, oldest first, in CSR form;
 - ``ts`` (float64): their event times, NaN when unknown;
+- ``tags`` (int64): their origin tags, -1 when none (the runtime tags each basket with the
+  partition and offset it was read from, so a handover can withdraw exactly those);
 - ``newest_ts`` (float64, one value): the engine's newest event time (-inf when none);
 - ``rank`` (int64): the tree's item order, so a restored miner mines in the same order
   (same itemset and rule ordering) and re-orders on the same schedule;
-- ``pending_items`` (int32), ``pending_start`` (int64), ``pending_ts`` (float64): baskets
-  accepted but not yet applied (the engine's buffer), in arrival order, already cleaned;
+- ``pending_items`` (int32), ``pending_start`` (int64), ``pending_ts`` (float64),
+  ``pending_tags`` (int64): baskets accepted but not yet applied (the engine's buffer), in
+  arrival order, already cleaned;
 - the last tick's result, which the next tick's delta is taken against: ``last_items``
   (int32), ``last_start`` (int64) its itemsets as item ids in CSR form (items in name
   order), ``last_counts`` (int64) their counts, ``last_rules`` (int64, one row per rule)
@@ -34,7 +37,8 @@ crash are removed by the next save. One writer per directory is assumed.
 Loading checks everything it reads and raises :class:`CheckpointError` (one line, naming
 the problem and the caller's start-fresh option) for a file that is not a readable npz,
 a truncated or inconsistent file, a foreign file, another format version (version 1, made
-by an older stream-miner, held no tick state), or a window / basket policy different from
+by an older stream-miner, held no tick state; version 2 files, which held no origin tags,
+are read with none), or a window / basket policy different from
 the one the caller runs with. It never resets silently.
 """
 
@@ -59,7 +63,8 @@ from stream_miner.engine.window import CountWindow, TimeWindow
 from stream_miner.runtime.atomic_file import remove_stale_temporaries, replace_atomically
 
 FORMAT = "stream-miner-checkpoint"
-VERSION = 2
+VERSION = 3
+TAGS_SINCE = 3  # the first version with origin tags
 CHECKPOINT_NAME = "checkpoint.npz"
 DEFAULT_FRESH_OPTION = "--start-fresh"
 _DEFAULT_POLICY = BasketPolicy()
@@ -69,11 +74,13 @@ _KEYS = (
     "items",
     "start",
     "ts",
+    "tags",
     "newest_ts",
     "rank",
     "pending_items",
     "pending_start",
     "pending_ts",
+    "pending_tags",
     "last_items",
     "last_start",
     "last_counts",
@@ -123,11 +130,13 @@ def save_checkpoint(directory: str | os.PathLike, miner: WindowMiner, metadata: 
         "items": state.baskets.items.astype(np.int32),
         "start": state.baskets.start.astype(np.int64),
         "ts": np.asarray(state.ts, dtype=np.float64),
+        "tags": np.asarray(state.tags, dtype=np.int64),
         "newest_ts": np.array([state.newest_ts], dtype=np.float64),
         "rank": state.rank.astype(np.int64),
         "pending_items": state.pending.items.astype(np.int32),
         "pending_start": state.pending.start.astype(np.int64),
         "pending_ts": state.pending_ts,
+        "pending_tags": state.pending_tags,
         **_last_arrays(state.last_result, state.names),
     }
 
@@ -176,10 +185,13 @@ def load_checkpoint(
         raise fail(
             f"incompatible: version {version} is newer than supported ({VERSION}), upgrade stream-miner"
         )
-    if version < VERSION:
+    if version < TAGS_SINCE - 1:
         raise fail(
             f"incompatible: made by an older stream-miner (version {version}, this one reads {VERSION})"
         )
+    if version < TAGS_SINCE:
+        data |= {f"{prefix}tags": np.full(data[f"{prefix}ts"].shape, -1, dtype=np.int64)
+                 for prefix in ("", "pending_") if f"{prefix}ts" in data}
     missing = [key for key in _KEYS if key not in data]
     missing += [key for key in _HEADER_KEYS if key not in header]
     if missing:
@@ -230,8 +242,8 @@ def _validate(data, header, window, policy, fail) -> dict[str, Any]:
     if newest.size != 1 or math.isnan(float(newest[0])) or float(newest[0]) == math.inf:
         raise fail("corrupted: bad newest event time")
     newest_ts = float(newest[0])
-    baskets, ts = _baskets(data, "", len(names), policy, fail)
-    pending, pending_ts = _baskets(data, "pending_", len(names), policy, fail)
+    baskets, ts, tags = _baskets(data, "", len(names), policy, fail)
+    pending, pending_ts, pending_tags = _baskets(data, "pending_", len(names), policy, fail)
     n = len(baskets)
     if isinstance(window, CountWindow) and n > window.size:
         raise fail(f"corrupted: {n} baskets in a window of {window.size}")
@@ -262,8 +274,10 @@ def _validate(data, header, window, policy, fail) -> dict[str, Any]:
         "names": names,
         "baskets": baskets,
         "ts": ts,
+        "tags": tags,
         "pending": pending,
         "pending_ts": pending_ts,
+        "pending_tags": pending_tags,
         "newest_ts": newest_ts,
         "rank": rank.astype(np.int64),
         "ranked": ranked,
@@ -274,18 +288,23 @@ def _validate(data, header, window, policy, fail) -> dict[str, Any]:
     }
 
 
-def _baskets(data, prefix: str, n_names: int, policy: BasketPolicy, fail) -> tuple[BasketArrays, np.ndarray]:
+def _baskets(
+    data, prefix: str, n_names: int, policy: BasketPolicy, fail
+) -> tuple[BasketArrays, np.ndarray, np.ndarray]:
     """The baskets stored under ``prefix`` (window or buffer), checked: non-empty, distinct
-    known items within the policy's size cap, one event time each."""
+    known items within the policy's size cap, one event time and one origin tag each."""
     baskets = _rows(data, prefix, n_names, fail)
-    ts = data[f"{prefix}ts"]
-    if ts.ndim != 1 or ts.dtype.kind != "f":
-        raise fail(f"corrupted: array {prefix}ts has dtype {ts.dtype} and shape {ts.shape}")
-    if ts.size != len(baskets):
-        raise fail(f"corrupted: {prefix}ts does not match the baskets")
+    ts, tags = data[f"{prefix}ts"], data[f"{prefix}tags"]
+    for key, array, kind in (("ts", ts, "f"), ("tags", tags, "i")):
+        if array.ndim != 1 or array.dtype.kind != kind:
+            raise fail(f"corrupted: array {prefix}{key} has dtype {array.dtype} and shape {array.shape}")
+        if array.size != len(baskets):
+            raise fail(f"corrupted: {prefix}{key} does not match the baskets")
+    if tags.size and tags.min() < -1:
+        raise fail(f"corrupted: a negative origin tag in {prefix}tags")
     if len(baskets) and int(baskets.lengths().max()) > policy.max_items:
         raise fail(f"corrupted: a basket in {prefix}items is larger than the policy allows")
-    return baskets, ts.astype(np.float64)
+    return baskets, ts.astype(np.float64), tags.astype(np.int64)
 
 
 def _rows(data, prefix: str, n_names: int, fail) -> BasketArrays:
