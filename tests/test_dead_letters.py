@@ -28,6 +28,7 @@ def test_file_record_round_trip(tmp_path):
     [record] = lines(path)
     assert base64.b64decode(record.pop("raw_base64")) == raw
     assert record == {
+        "key": "orders/3/17",
         "reason": "bad event time",
         "detail": "why",
         "source": "orders",
@@ -101,3 +102,17 @@ def test_counter_counts_without_writing(tmp_path, monkeypatch):
         sink.write(letter(reason="no items"))
     assert sink.counts == Counter({"bad id": 2, "no items": 1})
     assert list(tmp_path.iterdir()) == []
+
+
+def test_file_cut_back_to_a_position_and_never_lengthened(tmp_path, capsys):
+    path = tmp_path / "dead.jsonl"
+    with DeadLetterFile(path) as sink:
+        sink.write(letter(offset=1))
+        mark = sink.position()
+        sink.write(letter(offset=2))
+        sink.truncate(mark)
+        sink.write(letter(offset=3))
+        assert [r["offset"] for r in lines(path)] == [1, 3]
+        sink.truncate(10 * path.stat().st_size)
+    assert [r["offset"] for r in lines(path)] == [1, 3]
+    assert "shorter than the checkpoint says" in capsys.readouterr().err

@@ -148,6 +148,12 @@ class StopAtMalformed:
     def flush(self) -> None:
         self.inner.flush()
 
+    def position(self) -> int | None:
+        return self.inner.position()
+
+    def truncate(self, position: int | None) -> None:
+        self.inner.truncate(position)
+
     def close(self) -> None:
         self.inner.close()
 

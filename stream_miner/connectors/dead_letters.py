@@ -2,9 +2,10 @@
 
 :class:`DeadLetterFile` appends one JSON object per dead letter to a JSON Lines file::
 
-    {"reason", "detail", "source", "partition", "offset", "raw_base64", "raw_text"}
+    {"key", "reason", "detail", "source", "partition", "offset", "raw_base64", "raw_text"}
 
-``raw_base64`` holds the full raw bytes; ``raw_text`` is a readable preview (UTF-8 with
+``key`` is the record's deterministic id (``SOURCE/PARTITION/OFFSET``); ``raw_base64`` holds
+the full raw bytes; ``raw_text`` is a readable preview (UTF-8 with
 replacement characters, at most 1000 characters). :class:`DeadLetterCounter` only counts.
 """
 
@@ -13,6 +14,7 @@ from __future__ import annotations
 import base64
 import json
 import os
+import sys
 from collections import Counter
 from typing import Self
 
@@ -34,6 +36,13 @@ class DeadLetterCounter:
     def flush(self) -> None:
         """Make what was written durable (each write already is, here)."""
 
+    def position(self) -> int | None:
+        """Nothing is written, so there is nothing to cut back."""
+        return None
+
+    def truncate(self, position: int | None) -> None:
+        """Nothing is written, so there is nothing to cut back."""
+
     def close(self) -> None:
         """Release what the sink holds (nothing here)."""
 
@@ -49,6 +58,7 @@ class DeadLetterFile(DeadLetterCounter):
 
     def __init__(self, path: str | os.PathLike[str]) -> None:
         super().__init__()
+        self.path = path
         self._file = open(path, "a", encoding="utf-8")  # noqa: SIM115 - closed by close()
 
     def write(self, letter: DeadLetter) -> None:
@@ -56,6 +66,32 @@ class DeadLetterFile(DeadLetterCounter):
         self._file.write(json.dumps(_as_json(letter)) + "\n")
         self._file.flush()
         super().write(letter)
+
+    def flush(self) -> None:
+        """Make what was written durable (fsync)."""
+        self._file.flush()
+        os.fsync(self._file.fileno())
+
+    def position(self) -> int | None:
+        """The file's length in bytes."""
+        self._file.flush()
+        return os.fstat(self._file.fileno()).st_size
+
+    def truncate(self, position: int | None) -> None:
+        """Cut the file back to ``position`` bytes (never lengthen it: a file shorter than a
+        checkpoint says was replaced or cut outside stream-miner, and is left alone)."""
+        if position is None:
+            return
+        size = self.position() or 0
+        if size > position:
+            self._file.truncate(position)
+            self.flush()
+        elif size < position:
+            print(
+                f"stream-miner: warning: {self.path} is shorter than the checkpoint says "
+                f"({size:,} < {position:,} bytes); left as it is",
+                file=sys.stderr,
+            )
 
     def close(self) -> None:
         """Close the file."""
@@ -65,6 +101,7 @@ class DeadLetterFile(DeadLetterCounter):
 def _as_json(letter: DeadLetter) -> dict[str, object]:
     """The JSON Lines record of one dead letter."""
     return {
+        "key": letter.key,
         "reason": letter.reason,
         "detail": letter.detail,
         "source": letter.source,

@@ -15,6 +15,8 @@ from typing import IO
 
 from stream_miner.decoding.files import FOLLOW_FORMATS, FileLayout, InputError, read_records
 from stream_miner.decoding.records import SourceRecord
+from stream_miner.runtime.ledger import CommitOutcome
+from stream_miner.runtime.protocols import Handover
 
 
 class FileSource:
@@ -28,7 +30,8 @@ class FileSource:
         if pace is not None and not pace > 0:
             raise InputError(f"pace must be positive, got {pace}")
         self.name = "stdin" if path == "-" else f"file:{path}"
-        self.revoke_handler: Callable[[], dict[int, int]] | None = None  # files are never revoked
+        self.shares_partitions = False  # one reader: the checkpoint alone records progress
+        self.handover: Handover | None = None  # files are never handed over
         self._follow = follow
         self._pace = pace
         try:
@@ -82,8 +85,13 @@ class FileSource:
         while busy():
             pass
 
-    def commit(self, positions: dict[int, int]) -> None:
+    def commit(self, positions: dict[int, int]) -> CommitOutcome:
         """Files keep no consumer positions: the checkpoint is the only record of progress."""
+        return CommitOutcome.ACKED
+
+    def has_progress(self) -> bool:
+        """A file keeps no record of who read it."""
+        return False
 
     def close(self) -> None:
         if self._stream is not sys.stdin.buffer:

@@ -1,15 +1,18 @@
 """Baskets from a Kafka topic with kafka-python: consumer group, manual commits, rebalances.
 
 - Offsets are committed only by :meth:`KafkaSource.commit`, which the runtime calls after the
-  checkpoint covering them is durable (``enable_auto_commit`` is off).
-- On assignment each partition is positioned at the later of the checkpointed next offset
-  and the group's committed offset: after a restart the checkpoint decides; after a partition
-  comes back from another member, what that member committed decides (it counted those
-  baskets in its own window).
-- On revocation the runtime's handler checkpoints first, then the offsets it covers are
-  committed. The listener is kafka-python's asynchronous one: it runs on the client's IO
-  loop, so it uses the coordinator's awaitable fetch and commit calls (kafka-python 3.x
-  internals, pinned in pyproject) instead of the blocking consumer methods.
+  checkpoint covering them is durable (``enable_auto_commit`` is off); each commit's outcome
+  (acknowledged, refused, unknown) goes back to the runtime.
+- The group's committed offset decides who counts what. On revocation the runtime
+  checkpoints, the offsets are committed and the outcome reported. On assignment the
+  committed offsets of the assigned partitions, and of every partition the member has read
+  before, are fetched and handed to the runtime, which gives back what another member now
+  counts (:mod:`stream_miner.runtime.ledger`); each assigned partition is read from its
+  committed offset (from the reset policy's end when nothing is committed). Records read
+  ahead for a partition that is then revoked are dropped. The listener is kafka-python's
+  asynchronous one: it runs on the client's IO loop, so it uses the coordinator's awaitable
+  fetch and commit calls (kafka-python 3.x internals, pinned in pyproject) instead of the
+  blocking consumer methods.
 - Mining is kept off the poll path: while a tick runs on the loop's worker thread,
   :meth:`KafkaSource.while_busy` keeps polling with every partition paused, so a slow tick
   never exceeds ``max_poll_interval_ms``; records of partitions assigned meanwhile are kept
@@ -30,12 +33,20 @@ from typing import TextIO, TypeVar
 
 from kafka import KafkaConsumer, KafkaProducer, OffsetAndMetadata, TopicPartition
 from kafka.consumer.subscription_state import AsyncConsumerRebalanceListener
-from kafka.errors import KafkaError
+from kafka.errors import (
+    CommitFailedError,
+    FencedInstanceIdError,
+    IllegalGenerationError,
+    KafkaError,
+    RebalanceInProgressError,
+    UnknownMemberIdError,
+)
 
 from stream_miner.decoding.files import InputError
 from stream_miner.decoding.messages import MessageFormat, decode_message
 from stream_miner.decoding.records import DeadLetter, SourceRecord
-from stream_miner.runtime.protocols import StoppedWaiting
+from stream_miner.runtime.ledger import CommitOutcome
+from stream_miner.runtime.protocols import Handover, StoppedWaiting
 
 T = TypeVar("T")
 DEFAULTS = {"enable_auto_commit": False, "auto_offset_reset": "earliest", "max_poll_records": 500}
@@ -48,6 +59,15 @@ SET_BY_US = {
 }
 RETRY_FIRST, RETRY_MAX = 1.0, 30.0  # seconds between attempts to reach the brokers
 CONNECT_TIMEOUT = 3.0  # seconds for one TCP connection attempt
+COMMIT_TIMEOUT_MS = 10_000  # an offset commit without an answer by then has an unknown outcome
+# answers that mean the broker did not record a commit
+REFUSALS = (
+    CommitFailedError,
+    RebalanceInProgressError,
+    IllegalGenerationError,
+    UnknownMemberIdError,
+    FencedInstanceIdError,
+)
 
 
 def parse_kafka_url(url: str) -> tuple[str, str]:
@@ -148,51 +168,72 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         servers, self.topic = parse_kafka_url(url)
         self.name = f"kafka:{self.topic}"
         self._format = message_format
-        self._checkpointed: dict[int, int] = {}
-        self.revoke_handler: Callable[[], dict[int, int]] | None = None
+        self.shares_partitions = True
+        self.handover: Handover | None = None
         self._backlog: list[SourceRecord] = []
         self._next_offsets: dict[int, int] = {}  # per partition, after the last record read
         settings = DEFAULTS | {k: v for k, v in (options or {}).items() if k in KafkaConsumer.DEFAULT_CONFIG}
         self._max_records = int(settings.get("max_poll_records", 500))  # type: ignore[call-overload]
+        self._from_latest = settings.get("auto_offset_reset") == "latest"
         self._consumer = connect(servers, lambda: KafkaConsumer(bootstrap_servers=servers, group_id=group, **settings),
                                   stop or threading.Event(), log)
         self._consumer.subscribe([self.topic], listener=self)
 
     # ------------------------------------------------------------- rebalances
     async def on_partitions_revoked(self, revoked: set[TopicPartition]) -> None:
-        if not revoked or self.revoke_handler is None:
+        self._drop_backlog(revoked)
+        if not revoked or self.handover is None:
             return
-        positions = self.revoke_handler()  # checkpoint written and durable
-        self._checkpointed.update(positions)
-        offsets = self._offsets({tp.partition for tp in revoked}, positions)
-        if not offsets:
-            return
-        try:
-            await self._consumer._coordinator._commit_offsets_sync_async(offsets)
-        except KafkaError as error:  # the group already moved on: the last periodic commit stands
-            print(
-                f"stream-miner: warning: offsets not committed before the rebalance "
-                f"({type(error).__name__}); the next owner of those partitions starts at the "
-                "last periodic commit",
-                file=sys.stderr,
-            )
+        positions = self.handover.before_revoke()  # checkpoint written and durable
+        leaving = {tp.partition for tp in revoked}
+        ours = {p: o for p, o in positions.items() if p in leaving}
+        if ours:
+            self.handover.after_commit(ours, await self._commit_async(ours))
+
+    async def on_partitions_lost(self, lost: set[TopicPartition]) -> None:
+        """The group dropped this member (no commit is possible any more): the next
+        assignment's committed offsets settle what it gives back."""
+        self._drop_backlog(lost)
 
     async def on_partitions_assigned(self, assigned: set[TopicPartition]) -> None:
-        committed = await self._consumer._coordinator.fetch_committed_offsets_async(set(assigned))
+        mine = {tp.partition for tp in assigned}
+        read_before = self.handover.held_partitions() if self.handover else set()
+        asked = {TopicPartition(self.topic, p) for p in mine | read_before}
+        found = await self._consumer._coordinator.fetch_committed_offsets_async(asked)
+        committed = {tp.partition: _offset(found.get(tp)) for tp in asked}
+        starts = self.handover.on_assigned(committed, mine) if self.handover else committed
         for tp in assigned:
-            theirs = committed.get(tp)
-            candidates = [
-                o
-                for o in (theirs.offset if theirs else None, self._checkpointed.get(tp.partition))
-                if o is not None and o >= 0
-            ]
-            if candidates:
-                self._consumer.seek(tp, max(candidates))
+            start = starts.get(tp.partition)
+            if start is not None:
+                self._consumer.seek(tp, start)
+            elif self._from_latest:
+                self._consumer.seek_to_end(tp)
+            else:
+                self._consumer.seek_to_beginning(tp)
+
+    async def _commit_async(self, positions: dict[int, int]) -> CommitOutcome:
+        try:
+            await self._consumer._coordinator._commit_offsets_sync_async(
+                self._offsets(positions), timeout_ms=COMMIT_TIMEOUT_MS
+            )
+        except REFUSALS as error:
+            _warn_uncommitted(error, "refused")
+            return CommitOutcome.REFUSED
+        except KafkaError as error:
+            _warn_uncommitted(error, "unanswered")
+            return CommitOutcome.UNKNOWN
+        return CommitOutcome.ACKED
+
+    def _drop_backlog(self, partitions: set[TopicPartition]) -> None:
+        """Forget records read ahead (during a tick) for ``partitions``: their next owner
+        reads them from the committed offset."""
+        gone = {tp.partition for tp in partitions}
+        self._backlog = [record for record in self._backlog if record.partition not in gone]
 
     # ----------------------------------------------------------------- source
     def seek(self, positions: dict[int, int]) -> None:
-        """Remember the checkpointed next offsets; applied when partitions are assigned."""
-        self._checkpointed = dict(positions)
+        """Nothing to do here: where each partition is read from is settled on assignment,
+        from the group's committed offsets and the runtime's ledger."""
 
     def poll(self, max_records: int = 500) -> list[SourceRecord]:
         if self._backlog:
@@ -240,23 +281,32 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             lag += max(0, newest - self._next_offsets.get(tp.partition, newest))
         return f"{lag:,} messages behind"
 
-    def commit(self, positions: dict[int, int]) -> None:
-        """Commit next offsets of the partitions this member still owns."""
-        self._checkpointed.update(positions)
-        offsets = self._offsets({tp.partition for tp in self._consumer.assignment()}, positions)
-        if not offsets:
-            return
+    def commit(self, positions: dict[int, int]) -> CommitOutcome:
+        """Commit next offsets of the partitions this member owns; what became of it (for
+        partitions it no longer owns, nothing is sent: the outcome is a refusal)."""
+        owned = {tp.partition for tp in self._consumer.assignment()}
+        if not set(positions) <= owned:
+            return CommitOutcome.REFUSED
         try:
-            self._consumer.commit(offsets)
-        except KafkaError as error:  # e.g. a rebalance in progress: the next checkpoint retries
-            print(f"stream-miner: warning: offset commit deferred ({type(error).__name__})", file=sys.stderr)
+            self._consumer.commit(self._offsets(positions), timeout_ms=COMMIT_TIMEOUT_MS)
+        except REFUSALS as error:  # e.g. a rebalance in progress: the next checkpoint retries
+            _warn_uncommitted(error, "refused")
+            return CommitOutcome.REFUSED
+        except KafkaError as error:
+            _warn_uncommitted(error, "unanswered")
+            return CommitOutcome.UNKNOWN
+        return CommitOutcome.ACKED
 
-    def _offsets(self, partitions: set[int], positions: dict[int, int]) -> dict:
-        return {
-            TopicPartition(self.topic, p): OffsetAndMetadata(o, "", -1)
-            for p, o in positions.items()
-            if p in partitions
-        }
+    def has_progress(self) -> bool:
+        """True when the group has committed offsets on this topic."""
+        partitions = self._consumer.partitions_for_topic(self.topic) or set()
+        return any(
+            _offset(self._consumer.committed(TopicPartition(self.topic, p), metadata=True)) is not None
+            for p in partitions
+        )
+
+    def _offsets(self, positions: dict[int, int]) -> dict:
+        return {TopicPartition(self.topic, p): OffsetAndMetadata(o, "", -1) for p, o in positions.items()}
 
     def close(self) -> None:
         try:
@@ -268,3 +318,18 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         if value is None:
             return DeadLetter(b"", "empty message", "a message without a value", self.name, partition, offset)
         return decode_message(value, self._format, source=self.name, partition=partition, offset=offset)
+
+
+def _offset(committed: OffsetAndMetadata | int | None) -> int | None:
+    """A committed offset as an int; None when nothing is committed."""
+    offset = committed.offset if isinstance(committed, OffsetAndMetadata) else committed
+    return offset if offset is not None and offset >= 0 else None
+
+
+def _warn_uncommitted(error: KafkaError, how: str) -> None:
+    print(
+        f"stream-miner: warning: offset commit {how} ({type(error).__name__}); "
+        "the next checkpoint commits again",
+        file=sys.stderr,
+        flush=True,
+    )

@@ -3,7 +3,8 @@
 Every sink takes JSON-ready dicts (``write``), flushes what it buffers (``flush``) and closes.
 The Kafka sink produces with ``acks="all"`` and ``enable_idempotence=True`` set explicitly, so
 a retried send is not written twice. :class:`KafkaDeadLetters` puts a bad record's raw bytes
-on a dead-letter topic unchanged, with the reason and origin in message headers.
+on a dead-letter topic unchanged, keyed by the record's deterministic id
+(``SOURCE/PARTITION/OFFSET``), with the reason and origin in message headers.
 """
 
 from __future__ import annotations
@@ -96,11 +97,18 @@ class KafkaDeadLetters:
             ("partition", str(letter.partition).encode()),
             ("offset", str(letter.offset).encode()),
         ]
-        self._producer.send(self.topic, value=letter.raw, headers=headers)
+        self._producer.send(self.topic, key=letter.key.encode(), value=letter.raw, headers=headers)
         self.counts[letter.reason] += 1
 
     def flush(self) -> None:
         self._producer.flush()
+
+    def position(self) -> int | None:
+        """A topic cannot be cut back."""
+        return None
+
+    def truncate(self, position: int | None) -> None:
+        """A topic cannot be cut back: nothing to do."""
 
     def close(self) -> None:
         self._producer.flush()

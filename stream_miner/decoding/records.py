@@ -58,6 +58,12 @@ class DeadLetter:
     partition: int | None
     offset: int | None
 
+    @property
+    def key(self) -> str:
+        """A deterministic id: where the record was read (``SOURCE/PARTITION/OFFSET``); the
+        same bad record always gets the same key, so readers can tell repeats apart."""
+        return f"{self.source}/{self.partition or 0}/{self.offset}"
+
     def message(self) -> str:
         """One line for a person: where, what, why."""
         if self.partition in (None, 0):

@@ -209,7 +209,11 @@ class WindowMiner:
             overflow = len(self.store) + len(pending) - self.window.size
             expired = self.store.expire_oldest(max(0, overflow))
             dropped = max(0, overflow - len(expired.handles))
-            pending, pending_ts, pending_tags = pending[dropped:], pending_ts[dropped:], pending_tags[dropped:]
+            pending, pending_ts, pending_tags = (
+                pending[dropped:],
+                pending_ts[dropped:],
+                pending_tags[dropped:],
+            )
         elif isinstance(self.window, TimeWindow):
             cutoff = self._newest_ts - self.window.seconds
             expired = self.store.expire_until(cutoff)

@@ -82,7 +82,9 @@ class _Chunk:
         """This chunk with ``newer``'s baskets after its own (expired rows stay expired); both
         compact, so the join copies no wider arrays than it keeps."""
         ts = None if self.event_ts is None and newer.event_ts is None else np.concatenate([self.ts, newer.ts])
-        origin = None if self.origin is None and newer.origin is None else np.concatenate([self.tags, newer.tags])
+        origin = (
+            None if self.origin is None and newer.origin is None else np.concatenate([self.tags, newer.tags])
+        )
         chunk = _Chunk(
             np.concatenate([self.items, newer.items]),
             np.concatenate([self.start[:-1], newer.start + self.start[-1]]),

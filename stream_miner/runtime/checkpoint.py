@@ -190,8 +190,11 @@ def load_checkpoint(
             f"incompatible: made by an older stream-miner (version {version}, this one reads {VERSION})"
         )
     if version < TAGS_SINCE:
-        data |= {f"{prefix}tags": np.full(data[f"{prefix}ts"].shape, -1, dtype=np.int64)
-                 for prefix in ("", "pending_") if f"{prefix}ts" in data}
+        data |= {
+            f"{prefix}tags": np.full(data[f"{prefix}ts"].shape, -1, dtype=np.int64)
+            for prefix in ("", "pending_")
+            if f"{prefix}ts" in data
+        }
     missing = [key for key in _KEYS if key not in data]
     missing += [key for key in _HEADER_KEYS if key not in header]
     if missing:

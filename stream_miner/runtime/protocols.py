@@ -10,19 +10,43 @@ from typing import Protocol
 
 from stream_miner.decoding.records import DeadLetter, SourceRecord
 from stream_miner.engine.miner import Tick
+from stream_miner.runtime.ledger import CommitOutcome
 
 
 class StoppedWaiting(Exception):
     """A stop was asked for while waiting for an outside system (a broker) to answer."""
 
 
+class Handover(Protocol):
+    """The loop's side of a consumer group's rebalances (set as ``Source.handover``)."""
+
+    def before_revoke(self) -> dict[int, int]:
+        """Partitions are about to move: save a checkpoint; return the next offsets it covers."""
+        ...
+
+    def after_commit(self, positions: dict[int, int], outcome: CommitOutcome) -> None:
+        """What became of the commit of ``positions``."""
+
+    def held_partitions(self) -> set[int]:
+        """Partitions this member counted baskets of (the group's offsets are fetched for them)."""
+        ...
+
+    def on_assigned(self, committed: dict[int, int | None], assigned: set[int]) -> dict[int, int | None]:
+        """After a rebalance: give back what the group's ``committed`` offsets show another
+        member counts; return where to read each of the ``assigned`` partitions (None: where
+        the consumer's reset policy says)."""
+        ...
+
+
 class Source(Protocol):
     """Records from outside: a file, stdin or a Kafka topic."""
 
     name: str
-    revoke_handler: Callable[[], dict[int, int]] | None
-    """Set by the loop: called before partitions move to another group member; it saves a
-    checkpoint and returns the offsets it covers."""
+    shares_partitions: bool
+    """True when other readers may take partitions over (a consumer group): offsets commits
+    then decide who counts what, and outputs wait until a commit covers them."""
+    handover: Handover | None
+    """Set by the loop before the first poll."""
 
     def seek(self, positions: dict[int, int]) -> None:
         """Resume at these next offsets per partition (from a checkpoint)."""
@@ -43,8 +67,13 @@ class Source(Protocol):
         """Where reading stands, for a person (share of a file read, lag behind a topic)."""
         ...
 
-    def commit(self, positions: dict[int, int]) -> None:
+    def commit(self, positions: dict[int, int]) -> CommitOutcome:
         """Record progress outside (a Kafka group's offsets) once a checkpoint covers it."""
+        ...
+
+    def has_progress(self) -> bool:
+        """True when progress is on record outside any checkpoint (a group's committed offsets)."""
+        ...
 
     def close(self) -> None:
         """Release the source."""
@@ -60,6 +89,14 @@ class DeadLetterSink(Protocol):
 
     def flush(self) -> None:
         """Make what was written durable."""
+
+    def position(self) -> int | None:
+        """Where the sink stands (a file's length), None for a sink that cannot be cut back."""
+        ...
+
+    def truncate(self, position: int | None) -> None:
+        """Cut the sink back to ``position`` (from :meth:`position`), dropping what was written
+        after it; nothing for a sink that cannot be cut back."""
 
     def close(self) -> None:
         """Release the sink."""

@@ -8,9 +8,17 @@ as ``too late`` (or dropped by option, always counted), a basket newer than the 
 rest enter the window, where they land in the right place; a basket over the size cap is
 set aside as ``basket too large``. Ticks follow :class:`~stream_miner.runtime.schedule.TickSchedule`
 and are handed to every :class:`~stream_miner.runtime.protocols.TickListener`.
-Checkpoints (periodic, at the end and on stop) hold the window, the tick history, the next
-offset per partition, the duplicate memory and the watermark buffer; offsets are committed
-to the source only after the checkpoint covering them is durable.
+Checkpoints (every ``checkpoint_interval`` seconds, before partitions move, at the end and
+on stop) hold the window, the tick history, the per-partition ledger, the duplicate memory,
+the watermark buffer and the held-back dead letters; offsets are committed to the source only
+after the checkpoint covering them is durable, and a note beside it records what became of
+the commit.
+
+Consumer groups: every basket carries its partition and offset as an origin tag. When a
+rebalance shows (through the group's committed offsets) that another member reads from some
+offset on what this member counted, those baskets are given back: withdrawn from the window
+and the buffer, uncounted, their ids forgotten and their dead letters dropped (see
+:mod:`stream_miner.runtime.ledger`). So each basket is counted by exactly one member.
 """
 
 from __future__ import annotations
@@ -36,6 +44,8 @@ from stream_miner.engine.params import MiningParams
 from stream_miner.engine.window import CountWindow, TimeWindow
 from stream_miner.runtime.dedup import RecentIds
 from stream_miner.runtime.health import DeadLetterWatch, plural, summary
+from stream_miner.runtime.ledger import CommitOutcome, PartitionLedger
+from stream_miner.runtime.outbox import DeadLetterOutbox
 from stream_miner.runtime.progress import ProgressLine
 from stream_miner.runtime.protocols import DeadLetterSink, Source, TickListener, TickReport
 from stream_miner.runtime.schedule import TickSchedule
@@ -45,6 +55,12 @@ IDLE_WAIT = 0.05  # seconds to wait after a poll that returned nothing
 BUSY_WAIT = 0.05  # seconds between looks at a running tick
 ABANDON_AFTER = 0.2  # seconds a running tick gets to finish after a stop before it is abandoned
 TICK_THREAD = "stream-miner-tick"  # the name of the worker thread a tick runs on
+OFFSET_BITS = 40  # an origin tag is partition << OFFSET_BITS | offset
+
+
+def origin_tag(partition: int, offset: int) -> int:
+    """The origin tag of the record at ``offset`` of ``partition``."""
+    return (partition << OFFSET_BITS) | offset
 
 
 @dataclass(frozen=True)
@@ -87,7 +103,7 @@ class Runner:
     ) -> None:
         self.settings = settings
         self.source = source
-        self.dead_letters = dead_letters
+        self.dead_letters = DeadLetterOutbox(dead_letters, hold=settings.checkpoint_dir is not None)
         self.listeners = list(listeners)
         self.log = log or sys.stderr
         self.talk_when_clean = talk_when_clean  # False: say nothing unless something was set aside
@@ -97,14 +113,18 @@ class Runner:
         self.interrupt = threading.Event()  # set to make a mine give up (see ABANDON_AFTER)
         self.counts: Counter[str] = Counter()
         self.miner = WindowMiner(settings.window, settings.policy)
-        self.offsets: dict[int, int] = {}
+        self.ledger = PartitionLedger()
+        self.sequence = 0  # checkpoints saved, across restarts
+        self._withdrawals: list[
+            tuple[int, int]
+        ] = []  # (partition, offset): given back, not yet out of the miner
         self.consumed = 0
         self.last_id: str | None = None
         self.newest = -math.inf
         self.watermark = -math.inf  # where an event-time window ends: newest - lateness, or newest at the end
         self.waiting: list[tuple[float, int, Basket, int, int]] = []  # heap by event time
         self.schedule = TickSchedule(settings.tick_every, settings.tick_interval)
-        self.watch = DeadLetterWatch(dead_letters.counts, self.log)
+        self.watch = DeadLetterWatch(self.dead_letters.counts, self.log)
         window = settings.window
         self.recent = (
             RecentIds(horizon=window.seconds + settings.allowed_lateness)
@@ -125,8 +145,8 @@ class Runner:
     def run(self) -> int:
         """Process records until the source is exhausted or stopped; return the exit code."""
         self._restore()
-        self.source.seek(self.offsets)
-        self.source.revoke_handler = self._hand_over  # checkpoint before partitions move away
+        self.source.seek(dict(self.ledger.held))
+        self.source.handover = self
         if self.talk_when_clean:
             print(f"stream-miner: reading {self.source.name}", file=self.log, flush=True)
         try:
@@ -149,6 +169,7 @@ class Runner:
     def _loop(self) -> None:
         while not self.stopping:
             records = self.source.poll()
+            self._withdraw()
             for record in records:
                 with self._lock:  # a rebalance on the client's thread may checkpoint at any time
                     self._take(record.payload, record.partition, record.offset)
@@ -157,6 +178,8 @@ class Runner:
             self.progress.update(self.source.position, self.consumed)
             if self.schedule.interval_due():
                 self._tick()
+            if time.monotonic() - self._last_checkpoint_at >= self.settings.checkpoint_interval:
+                self._checkpoint()
             if self.source.exhausted():
                 with self._lock:
                     self._release(math.inf)  # no later basket can come: the waiting ones enter
@@ -166,7 +189,7 @@ class Runner:
 
     # ----------------------------------------------------------------- records
     def _take(self, payload: Basket | DeadLetter, partition: int, offset: int) -> None:
-        self.offsets[partition] = offset + 1
+        self.ledger.took(partition, offset)
         self.watch.record()
         if isinstance(payload, DeadLetter):
             self.dead_letters.write(payload)
@@ -181,7 +204,9 @@ class Runner:
                 offset,
             )
             return
-        if payload.id is not None and self.recent.check_and_add(payload.id, payload.ts):
+        if payload.id is not None and self.recent.check_and_add(
+            payload.id, payload.ts, origin_tag(partition, offset)
+        ):
             self.counts["duplicates skipped"] += 1
             return
         if not isinstance(window, TimeWindow):
@@ -209,13 +234,14 @@ class Runner:
             self._enter(basket, partition, offset)
 
     def _enter(self, basket: Basket, partition: int, offset: int) -> None:
-        verdict = self.miner.add(basket.items, basket.ts)
+        verdict = self.miner.add(basket.items, basket.ts, origin_tag(partition, offset))
         if verdict is Verdict.SKIPPED_OVERSIZE:
             detail = f"{len(basket.items)} distinct items, limit {self.settings.policy.max_items}"
             self._refuse(basket, "basket too large", detail, partition, offset)
         elif verdict in (Verdict.ACCEPTED, Verdict.TRUNCATED):
             self.consumed += 1
             self.last_id = basket.id
+            self.ledger.counted(partition, offset)
 
     def _refuse(self, basket: Basket, reason: str, detail: str, partition: int, offset: int) -> None:
         raw = basket.raw or json.dumps({"id": basket.id, "ts": basket.ts, "items": basket.items}).encode()
@@ -229,8 +255,6 @@ class Runner:
         for listener in self.listeners:
             listener.on_tick(report)
         self.watch.check()
-        if time.monotonic() - self._last_checkpoint_at >= self.settings.checkpoint_interval:
-            self._checkpoint()
 
     def _refresh_off_the_main_thread(self) -> TickReport:
         """Run :meth:`_refresh` on a worker thread, so that signals are handled at once and a
@@ -283,20 +307,79 @@ class Runner:
             start = end - window.seconds
         return TickReport(tick, self.consumed, self.last_id, start, end, applied - started, done - applied)
 
+    # -------------------------------------------------------------- handovers
+    def before_revoke(self) -> dict[int, int]:
+        """Partitions are about to move to another member: a checkpoint first."""
+        return self._save()
+
+    def after_commit(self, positions: dict[int, int], outcome: CommitOutcome) -> None:
+        """Record what became of a commit; an acknowledged one lets the dead letters below it
+        out. The note beside the checkpoint says so at once, so a crash right after cannot
+        write them twice or forget that the commit landed."""
+        with self._lock:
+            self.ledger.outcome(positions, outcome)
+            self.dead_letters.release(self.ledger.landed)
+            if self.settings.checkpoint_dir is not None and self.sequence:
+                from stream_miner.runtime.commit_note import write_note  # only with checkpoints
+
+                write_note(
+                    self.settings.checkpoint_dir, self.sequence, outcome, self.dead_letters.sink.position()
+                )
+
+    def held_partitions(self) -> set[int]:
+        """Partitions this member has read."""
+        return set(self.ledger.held)
+
+    def on_assigned(self, committed: dict[int, int | None], assigned: set[int]) -> dict[int, int | None]:
+        """After a rebalance: give back, partition by partition, what the group's committed
+        offsets show another member counts (or this member reads again); return where each
+        assigned partition is read from."""
+        starts: dict[int, int | None] = {}
+        with self._lock:
+            for partition, offset in sorted(committed.items()):
+                reading_again = partition in assigned
+                boundary = self.ledger.boundary(partition, offset, reading_again)
+                if boundary < self.ledger.held.get(partition, 0):
+                    self._give_back(partition, boundary)
+                if reading_again:
+                    starts[partition] = offset
+                    if offset is not None:
+                        self.ledger.starts_at(partition, offset)
+        return starts
+
+    def _give_back(self, partition: int, boundary: int) -> None:
+        """Everything of ``partition`` read at or beyond ``boundary`` is another member's (or
+        is read again): uncount it, forget its ids, drop its waiting baskets and dead letters;
+        the window lets go of it before the next record is taken (:meth:`_withdraw`)."""
+        returned = self.ledger.give_back(partition, boundary)
+        self.consumed -= returned
+        low, high = origin_tag(partition, boundary), origin_tag(partition + 1, 0)
+        self.recent.forget(low, high)
+        self.waiting = [w for w in self.waiting if not (w[3] == partition and w[4] >= boundary)]
+        heapq.heapify(self.waiting)
+        self.dead_letters.give_back(partition, boundary)
+        self._withdrawals.append((partition, boundary))
+        print(
+            f"stream-miner: partition {partition}: from offset {boundary:,} on, another member "
+            f"counts (or this one reads again); {plural(returned, 'basket')} given back",
+            file=self.log,
+            flush=True,
+        )
+
+    def _withdraw(self) -> None:
+        """Take baskets given back out of the window (on the loop's thread: never while a tick
+        runs)."""
+        with self._lock:
+            for partition, boundary in self._withdrawals:
+                self.miner.withdraw(origin_tag(partition, boundary), origin_tag(partition + 1, 0))
+            self._withdrawals.clear()
+
     # -------------------------------------------------------------- checkpoints
     def _checkpoint(self) -> None:
-        """Save a checkpoint, then commit the offsets it covers (dead letters sent first)."""
-        offsets = self._hand_over()
-        if offsets:
-            self.source.commit(offsets)
-
-    def _hand_over(self) -> dict[int, int]:
-        """Before partitions move to another member: a checkpoint, and the dead letters sent,
-        so the offsets committed next cover all of it."""
-        offsets = self._save()
-        if offsets:
-            self.dead_letters.flush()
-        return offsets
+        """Save a checkpoint, then commit the offsets it covers and record what became of it."""
+        positions = self._save()
+        if positions:
+            self.after_commit(positions, self.source.commit(positions))
 
     def _save(self) -> dict[int, int]:
         """Save a checkpoint (durable on return); the offsets it covers, none without one."""
@@ -304,10 +387,16 @@ class Runner:
         if self.settings.checkpoint_dir is None:
             return {}
         with self._lock:  # a rebalance may ask for a checkpoint while a tick is running
-            offsets = dict(self.offsets)
+            positions = dict(self.ledger.held)
+            self.ledger.sent(positions)
+            self.sequence += 1
             metadata = {
                 "source": self.source.name,
-                "offsets": {str(p): o for p, o in offsets.items()},
+                "sequence": self.sequence,
+                "attempt": {str(p): o for p, o in positions.items()},
+                "ledger": self.ledger.state(),
+                "withdrawals": [list(w) for w in self._withdrawals],
+                "dead_letters": self.dead_letters.state(),
                 "consumed": self.consumed,
                 "last_id": self.last_id,
                 "newest": None if self.newest == -math.inf else self.newest,
@@ -321,21 +410,26 @@ class Runner:
             from stream_miner.runtime.checkpoint import save_checkpoint  # only with checkpoints
 
             save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
-            return offsets
+            return positions
 
     def _restore(self) -> None:
         directory = self.settings.checkpoint_dir
         if directory is None or self.settings.start_fresh:
             return
-        from stream_miner.runtime.checkpoint import load_checkpoint  # only with checkpoints
+        from stream_miner.runtime.checkpoint import CheckpointError, load_checkpoint  # only with checkpoints
 
         restored = load_checkpoint(
             directory, window=self.settings.window, policy=self.settings.policy, fresh_option="--start-fresh"
         )
         if restored is None:
+            if self.source.has_progress():
+                raise CheckpointError(
+                    f"no checkpoint in {directory}, but {self.source.name} has offsets committed by "
+                    "this consumer group: this member's window was lost, or the member is new; "
+                    "pass --start-fresh to start with an empty window"
+                )
             return
         self.miner, metadata = restored
-        from stream_miner.runtime.checkpoint import CheckpointError
 
         def refuse(problem: str) -> CheckpointError:
             return CheckpointError(f"checkpoint in {directory}: {problem}; pass --start-fresh to discard it")
@@ -355,8 +449,17 @@ class Runner:
         )
 
     def _take_run_state(self, metadata: dict) -> None:
-        """The loop's own state from a checkpoint's metadata (see :meth:`_save`)."""
-        self.offsets = {int(p): int(o) for p, o in metadata["offsets"].items()}
+        """The loop's own state from a checkpoint's metadata (see :meth:`_save`), with what
+        the note beside it says became of the commit that followed it."""
+        if "ledger" in metadata:
+            self.sequence = int(metadata["sequence"])
+            self.ledger = PartitionLedger.from_state(metadata["ledger"])
+            for partition, boundary in metadata["withdrawals"]:
+                self.miner.withdraw(origin_tag(partition, boundary), origin_tag(partition + 1, 0))
+            self._take_commit_outcome(metadata)
+        else:  # made by stream-miner 0.2: offsets only, taken as committed
+            offsets = {int(p): int(o) for p, o in metadata["offsets"].items()}
+            self.ledger.held, self.ledger.landed = dict(offsets), dict(offsets)
         self.consumed = int(metadata["consumed"])
         self.last_id = metadata["last_id"]
         self.newest = -math.inf if metadata["newest"] is None else float(metadata["newest"])
@@ -369,6 +472,27 @@ class Runner:
         self.recent = RecentIds.from_state(metadata["recent"])
         self.counts = Counter(metadata["counts"])
         self.schedule.restored(self.miner.next_tick, self.consumed)
+
+    def _take_commit_outcome(self, metadata: dict) -> None:
+        """Apply the note on the commit after the checkpoint: its outcome, and the dead letters
+        it already let out. Without a note the outcome is unknown, except for a source nobody
+        else reads, where the checkpoint alone is the record."""
+        from stream_miner.runtime.commit_note import read_note
+
+        assert self.settings.checkpoint_dir is not None
+        attempt = {int(p): int(o) for p, o in metadata["attempt"].items()}
+        noted = read_note(self.settings.checkpoint_dir, self.sequence)
+        letters = metadata["dead_letters"]
+        if noted is None:
+            self.dead_letters.restore(letters)
+            outcome = CommitOutcome.ACKED if not self.source.shares_partitions else CommitOutcome.UNKNOWN
+            self.ledger.outcome(attempt, outcome)
+            self.dead_letters.release(self.ledger.landed)
+            return
+        outcome, written = noted
+        self.dead_letters.restore(letters, written)
+        self.ledger.outcome(attempt, outcome)
+        self.dead_letters.release(self.ledger.landed, write=False)  # written before the crash
 
     def _summarise(self) -> None:
         self.progress.close()
