@@ -85,9 +85,9 @@ class FileSource:
         while busy():
             pass
 
-    def commit(self, positions: dict[int, int]) -> CommitOutcome:
+    def commit(self, positions: dict[int, int]) -> tuple[dict[int, int], CommitOutcome]:
         """Files keep no consumer positions: the checkpoint is the only record of progress."""
-        return CommitOutcome.ACKED
+        return positions, CommitOutcome.ACKED
 
     def has_progress(self) -> bool:
         """A file keeps no record of who read it."""

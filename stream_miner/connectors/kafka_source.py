@@ -281,21 +281,22 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             lag += max(0, newest - self._next_offsets.get(tp.partition, newest))
         return f"{lag:,} messages behind"
 
-    def commit(self, positions: dict[int, int]) -> CommitOutcome:
-        """Commit next offsets of the partitions this member owns; what became of it (for
-        partitions it no longer owns, nothing is sent: the outcome is a refusal)."""
+    def commit(self, positions: dict[int, int]) -> tuple[dict[int, int], CommitOutcome]:
+        """Commit the next offsets of the partitions this member owns (others are not its to
+        commit); return those and what became of the commit."""
         owned = {tp.partition for tp in self._consumer.assignment()}
-        if not set(positions) <= owned:
-            return CommitOutcome.REFUSED
+        ours = {p: o for p, o in positions.items() if p in owned}
+        if not ours:
+            return ours, CommitOutcome.ACKED
         try:
-            self._consumer.commit(self._offsets(positions), timeout_ms=COMMIT_TIMEOUT_MS)
+            self._consumer.commit(self._offsets(ours), timeout_ms=COMMIT_TIMEOUT_MS)
         except REFUSALS as error:  # e.g. a rebalance in progress: the next checkpoint retries
             _warn_uncommitted(error, "refused")
-            return CommitOutcome.REFUSED
+            return ours, CommitOutcome.REFUSED
         except KafkaError as error:
             _warn_uncommitted(error, "unanswered")
-            return CommitOutcome.UNKNOWN
-        return CommitOutcome.ACKED
+            return ours, CommitOutcome.UNKNOWN
+        return ours, CommitOutcome.ACKED
 
     def has_progress(self) -> bool:
         """True when the group has committed offsets on this topic."""

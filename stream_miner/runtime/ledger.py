@@ -14,9 +14,8 @@ the member must give it back (withdraw it from its window). The ledger keeps, pe
   number given back at any commit boundary is exact.
 
 :meth:`PartitionLedger.boundary` says where a partition's contribution must end once the
-group's committed offset is known again (on every assignment): at ``landed``; at the unsure
-commit when the group's offset shows it landed; never beyond the group's offset for a
-partition the member reads again.
+group's committed offset is known again (on every assignment): at ``landed``, or at the unsure
+commit when the group's offset shows it landed.
 """
 
 from __future__ import annotations
@@ -89,16 +88,15 @@ class PartitionLedger:
             segments[0][0] = offset
 
     # ---------------------------------------------------------- reconciling
-    def boundary(self, partition: int, committed: int | None, reading_again: bool) -> int:
+    def boundary(self, partition: int, committed: int | None) -> int:
         """Where this member's contribution of ``partition`` must end, given the group's
-        committed offset now (None: nothing committed). ``reading_again``: the partition is
-        assigned to this member, which starts reading it at ``committed``."""
+        committed offset now (None: nothing committed): at the last acknowledged commit, or
+        at the unsure one when the group's offset shows it landed. Never below the last
+        acknowledged commit: what lies below it is this member's for good."""
         end = self.landed.get(partition, 0)
         unsure = self.unsure.get(partition)
         if unsure is not None and committed is not None and committed >= unsure:
             end = unsure  # the unsure commit is on record (or was overtaken after it landed)
-        if reading_again and committed is not None:
-            end = min(end, committed)  # never hold what this member is about to read again
         return end
 
     def give_back(self, partition: int, boundary: int) -> int:

@@ -67,8 +67,10 @@ class Source(Protocol):
         """Where reading stands, for a person (share of a file read, lag behind a topic)."""
         ...
 
-    def commit(self, positions: dict[int, int]) -> CommitOutcome:
-        """Record progress outside (a Kafka group's offsets) once a checkpoint covers it."""
+    def commit(self, positions: dict[int, int]) -> tuple[dict[int, int], CommitOutcome]:
+        """Record progress outside (a Kafka group's offsets) once a checkpoint covers it: the
+        positions this reader may record (a group member: of the partitions it owns) and
+        what became of that."""
         ...
 
     def has_progress(self) -> bool:

@@ -322,9 +322,8 @@ class Runner:
             if self.settings.checkpoint_dir is not None and self.sequence:
                 from stream_miner.runtime.commit_note import write_note  # only with checkpoints
 
-                write_note(
-                    self.settings.checkpoint_dir, self.sequence, outcome, self.dead_letters.sink.position()
-                )
+                sink = self.dead_letters.sink
+                write_note(self.settings.checkpoint_dir, self.sequence, positions, outcome, sink.position())
 
     def held_partitions(self) -> set[int]:
         """Partitions this member has read."""
@@ -337,15 +336,30 @@ class Runner:
         starts: dict[int, int | None] = {}
         with self._lock:
             for partition, offset in sorted(committed.items()):
-                reading_again = partition in assigned
-                boundary = self.ledger.boundary(partition, offset, reading_again)
+                boundary = self.ledger.boundary(partition, offset)
                 if boundary < self.ledger.held.get(partition, 0):
                     self._give_back(partition, boundary)
-                if reading_again:
-                    starts[partition] = offset
-                    if offset is not None:
-                        self.ledger.starts_at(partition, offset)
+                if partition in assigned:
+                    starts[partition] = self._start_of(partition, offset, boundary)
         return starts
+
+    def _start_of(self, partition: int, committed: int | None, boundary: int) -> int | None:
+        """Where to read an assigned partition: the group's offset, unless it lies below what
+        this member counted for good (offsets moved back outside stream-miner: reading again
+        would count twice); None when neither has a position (the reset policy decides)."""
+        if committed is None and partition not in self.ledger.landed:
+            return None
+        start = max(committed or 0, boundary)
+        if committed is not None and committed < boundary:
+            print(
+                f"stream-miner: warning: partition {partition}: the group's offset {committed:,} "
+                f"lies below what this member counted ({boundary:,}); reading on from {boundary:,} "
+                "(--start-fresh reads from the group's offset with an empty window)",
+                file=self.log,
+                flush=True,
+            )
+        self.ledger.starts_at(partition, start)
+        return start
 
     def _give_back(self, partition: int, boundary: int) -> None:
         """Everything of ``partition`` read at or beyond ``boundary`` is another member's (or
@@ -379,7 +393,7 @@ class Runner:
         """Save a checkpoint, then commit the offsets it covers and record what became of it."""
         positions = self._save()
         if positions:
-            self.after_commit(positions, self.source.commit(positions))
+            self.after_commit(*self.source.commit(positions))
 
     def _save(self) -> dict[int, int]:
         """Save a checkpoint (durable on return); the offsets it covers, none without one."""
@@ -489,9 +503,9 @@ class Runner:
             self.ledger.outcome(attempt, outcome)
             self.dead_letters.release(self.ledger.landed)
             return
-        outcome, written = noted
+        positions, outcome, written = noted
         self.dead_letters.restore(letters, written)
-        self.ledger.outcome(attempt, outcome)
+        self.ledger.outcome(positions, outcome)
         self.dead_letters.release(self.ledger.landed, write=False)  # written before the crash
 
     def _summarise(self) -> None:
