@@ -112,6 +112,7 @@ class Runner:
             else RecentIds(keep_last=window.size if window else sys.maxsize)
         )
         self._last_checkpoint_at = time.monotonic()
+        self._unwritten = (0, "")  # checkpoints not written since the last one that was, and why
         self._lock = threading.Lock()
         self._arrivals = itertools.count()  # breaks ties between waiting baskets of equal time
 
@@ -139,10 +140,10 @@ class Runner:
                 file=self.log,
             )
         except ResultTooLarge as error:
-            self._checkpoint()
             print(f"stream-miner: error: {error}", file=self.log)
+            self._checkpoint(final=True)
             return EXIT_USAGE
-        self._checkpoint()
+        self._checkpoint(final=True)
         self._summarise()
         return EXIT_OK
 
@@ -284,25 +285,31 @@ class Runner:
         return TickReport(tick, self.consumed, self.last_id, start, end, applied - started, done - applied)
 
     # -------------------------------------------------------------- checkpoints
-    def _checkpoint(self) -> None:
+    def _checkpoint(self, *, final: bool = False) -> None:
         """Save a checkpoint, then commit the offsets it covers (dead letters sent first)."""
-        offsets = self._hand_over()
+        offsets = self._hand_over(final=final)
         if offsets:
             self.source.commit(offsets)
 
-    def _hand_over(self) -> dict[int, int]:
+    def _hand_over(self, *, final: bool = False) -> dict[int, int]:
         """Before partitions move to another member: a checkpoint, and the dead letters sent,
         so the offsets committed next cover all of it."""
-        offsets = self._save()
+        offsets = self._save(final=final)
         if offsets:
             self.dead_letters.flush()
         return offsets
 
-    def _save(self) -> dict[int, int]:
-        """Save a checkpoint (durable on return); the offsets it covers, none without one."""
+    def _save(self, *, final: bool = False) -> dict[int, int]:
+        """Save a checkpoint (durable on return); the offsets it covers, none without one.
+        A checkpoint that cannot be written covers none, so nothing is committed: a warning
+        (once until one is written again, or when the cause changes) and the next one retries;
+        the final one raises :class:`CheckpointWriteError` (an OSError) instead."""
         self._last_checkpoint_at = time.monotonic()
         if self.settings.checkpoint_dir is None:
             return {}
+        # imported only with checkpoints: `mine` never loads the module
+        from stream_miner.runtime.checkpoint import CheckpointWriteError, save_checkpoint
+
         with self._lock:  # a rebalance may ask for a checkpoint while a tick is running
             offsets = dict(self.offsets)
             metadata = {
@@ -318,10 +325,37 @@ class Runner:
                 "recent": self.recent.state(),
                 "counts": dict(self.counts),
             }
-            from stream_miner.runtime.checkpoint import save_checkpoint  # only with checkpoints
-
-            save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
+            try:
+                path = save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
+            except CheckpointWriteError as error:
+                if final:
+                    raise
+                self._tell_unwritten(str(error))
+                return {}
+            self._tell_written(path)
             return offsets
+
+    def _tell_unwritten(self, cause: str) -> None:
+        """Warn about a checkpoint that was not written: at the first failure, and again only
+        when the cause changes."""
+        failed, last = self._unwritten
+        if cause != last:
+            print(
+                f"stream-miner: warning: {cause}; nothing is committed until a checkpoint is written, "
+                "the next one retries",
+                file=self.log,
+            )
+        self._unwritten = (failed + 1, cause)
+
+    def _tell_written(self, path: Path) -> None:
+        """Say when a checkpoint is written again after failures."""
+        failed, _ = self._unwritten
+        if failed:
+            print(
+                f"stream-miner: checkpoint {path} written again after {plural(failed, 'failed attempt')}",
+                file=self.log,
+            )
+            self._unwritten = (0, "")
 
     def _restore(self) -> None:
         directory = self.settings.checkpoint_dir
@@ -333,6 +367,7 @@ class Runner:
             directory, window=self.settings.window, policy=self.settings.policy, fresh_option="--start-fresh"
         )
         if restored is None:
+            print(f"stream-miner: no checkpoint in {directory}: starting with an empty window", file=self.log)
             return
         self.miner, metadata = restored
         from stream_miner.runtime.checkpoint import CheckpointError
