@@ -32,14 +32,18 @@ Writes are atomic: a temporary file in the same directory is written, flushed an
 then renamed onto ``checkpoint.npz`` with ``os.replace`` and the directory is fsynced. A
 crash at any point leaves either the previous checkpoint or the new one, never a partial
 file. Temporary files (``.checkpoint.npz.*.tmp``) are never read; stale ones left by a
-crash are removed by the next save. One writer per directory is assumed.
+crash are removed by the next save, and a save that fails removes its own. One writer per
+directory is assumed. A save the system refuses (disk full, no permission, the directory or
+the file's path taken by something else) raises :class:`CheckpointWriteError`, an OSError
+whose one-line message names the file and the cause.
 
 Loading checks everything it reads and raises :class:`CheckpointError` (one line, naming
 the problem and the caller's start-fresh option) for a file that is not a readable npz,
 a truncated or inconsistent file, a foreign file, another format version (version 1, made
 by an older stream-miner, held no tick state; version 2 files, which held no origin tags,
-are read with none), or a window / basket policy different from
-the one the caller runs with. It never resets silently.
+are read with none), or a window / basket policy different from the one the caller runs
+with; a file the system will not let it read (a directory in its place, no permission) is a
+:class:`CheckpointError` naming the path and the cause. It never resets silently.
 """
 
 from __future__ import annotations
@@ -50,7 +54,7 @@ import os
 import pathlib
 import zipfile
 from collections import Counter
-from typing import Any
+from typing import Any, BinaryIO
 
 import numpy as np
 
@@ -90,8 +94,14 @@ _HEADER_KEYS = ("window", "policy", "verdicts", "engine", "ticks", "metadata")
 
 
 class CheckpointError(ValueError):
-    """A checkpoint that cannot be used: corrupted, foreign, too new, or made with another
-    window or basket policy. The message is one line and names the start-fresh option."""
+    """A checkpoint that cannot be used: unreadable, corrupted, foreign, too new, or made with
+    another window or basket policy. The message is one line; it names the start-fresh
+    option unless the file could not be read at all."""
+
+
+class CheckpointWriteError(OSError):
+    """A checkpoint the system would not let us write; the message is one line naming the
+    file and the cause. No temporary file is left behind."""
 
 
 # ---------------------------------------------------------------------------- save
@@ -101,7 +111,8 @@ def save_checkpoint(directory: str | os.PathLike, miner: WindowMiner, metadata: 
     Read-only: the miner's buffered (not yet applied) baskets are saved as a buffer.
     ``metadata`` must survive a JSON round trip unchanged (str keys; dict, list, str, int,
     float, bool, None values; no NaN), else ValueError and nothing is written.
-    Returns the checkpoint's path.
+    Returns the checkpoint's path; raises :class:`CheckpointWriteError` when it cannot be
+    written.
     """
     if not isinstance(metadata, dict):
         raise TypeError(f"metadata must be a dict, got {type(metadata).__name__}")
@@ -141,10 +152,24 @@ def save_checkpoint(directory: str | os.PathLike, miner: WindowMiner, metadata: 
     }
 
     directory = pathlib.Path(directory)
-    directory.mkdir(parents=True, exist_ok=True)
     final = directory / CHECKPOINT_NAME
-    remove_stale_temporaries(final)
-    return replace_atomically(final, lambda handle: np.savez(handle, **arrays))  # type: ignore[arg-type]
+    try:
+        directory.mkdir(parents=True, exist_ok=True)
+    except FileExistsError:  # exist_ok covers directories only: a file holds the path
+        raise CheckpointWriteError(
+            f"cannot write checkpoint {final}: {directory} is not a directory"
+        ) from None
+    except OSError as error:
+        raise _write_error(final, error) from None
+    try:
+        remove_stale_temporaries(final)
+        return replace_atomically(final, lambda handle: np.savez(handle, **arrays))  # type: ignore[arg-type]
+    except OSError as error:
+        raise _write_error(final, error) from None
+
+
+def _write_error(path: pathlib.Path, error: OSError) -> CheckpointWriteError:
+    return CheckpointWriteError(f"cannot write checkpoint {path}: {error.strerror or _one_line(error)}")
 
 
 # ---------------------------------------------------------------------------- load
@@ -163,15 +188,21 @@ def load_checkpoint(
     Raises :class:`CheckpointError` for anything unusable.
     """
     path = pathlib.Path(directory) / CHECKPOINT_NAME
-    if not path.exists():
-        return None
 
     def fail(problem: str) -> CheckpointError:
         return CheckpointError(
             f"checkpoint {path}: {problem}; pass {fresh_option} to discard it and start from an empty window"
         )
 
-    data = _read_arrays(path, fail)
+    try:
+        with open(path, "rb") as stream:
+            data = _read_arrays(stream, fail)
+    except (FileNotFoundError, NotADirectoryError):
+        return None
+    except OSError as error:  # opening it: a directory in its place, no permission
+        raise CheckpointError(
+            f"cannot read checkpoint {path}: {error.strerror or _one_line(error)}"
+        ) from None
     if "header" not in data:
         raise fail(f"foreign file, not a {FORMAT} (no header)")
     header = _decode_json(data["header"], "header", fail)
@@ -213,9 +244,9 @@ def load_checkpoint(
     return miner, header["metadata"]
 
 
-def _read_arrays(path: pathlib.Path, fail) -> dict[str, np.ndarray]:
+def _read_arrays(stream: BinaryIO, fail) -> dict[str, np.ndarray]:
     try:
-        loaded = np.load(path, allow_pickle=False)
+        loaded = np.load(stream, allow_pickle=False)
         if not isinstance(loaded, np.lib.npyio.NpzFile):
             raise fail("foreign file, a single .npy array rather than a checkpoint")
         with loaded as npz:

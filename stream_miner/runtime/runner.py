@@ -132,6 +132,7 @@ class Runner:
             else RecentIds(keep_last=window.size if window else sys.maxsize)
         )
         self._last_checkpoint_at = time.monotonic()
+        self._unwritten = (0, "")  # checkpoints not written since the last one that was, and why
         self._lock = threading.Lock()
         self._arrivals = itertools.count()  # breaks ties between waiting baskets of equal time
 
@@ -159,10 +160,10 @@ class Runner:
                 file=self.log,
             )
         except ResultTooLarge as error:
-            self._checkpoint()
             print(f"stream-miner: error: {error}", file=self.log)
+            self._checkpoint(final=True)
             return EXIT_USAGE
-        self._checkpoint()
+        self._checkpoint(final=True)
         self._summarise()
         return EXIT_OK
 
@@ -178,8 +179,8 @@ class Runner:
             self.progress.update(self.source.position, self.consumed)
             if self.schedule.interval_due():
                 self._tick()
-            if time.monotonic() - self._last_checkpoint_at >= self.settings.checkpoint_interval:
-                self._checkpoint()
+            if records:
+                self._checkpoint_if_due()  # also between ticks: no basket waits long for one
             if self.source.exhausted():
                 with self._lock:
                     self._release(math.inf)  # no later basket can come: the waiting ones enter
@@ -255,6 +256,11 @@ class Runner:
         for listener in self.listeners:
             listener.on_tick(report)
         self.watch.check()
+        self._checkpoint_if_due()
+
+    def _checkpoint_if_due(self) -> None:
+        if time.monotonic() - self._last_checkpoint_at >= self.settings.checkpoint_interval:
+            self._checkpoint()
 
     def _refresh_off_the_main_thread(self) -> TickReport:
         """Run :meth:`_refresh` on a worker thread, so that signals are handled at once and a
@@ -389,17 +395,23 @@ class Runner:
             self._withdrawals.clear()
 
     # -------------------------------------------------------------- checkpoints
-    def _checkpoint(self) -> None:
+    def _checkpoint(self, *, final: bool = False) -> None:
         """Save a checkpoint, then commit the offsets it covers and record what became of it."""
-        positions = self._save()
+        positions = self._save(final=final)
         if positions:
             self.after_commit(*self.source.commit(positions))
 
-    def _save(self) -> dict[int, int]:
-        """Save a checkpoint (durable on return); the offsets it covers, none without one."""
+    def _save(self, *, final: bool = False) -> dict[int, int]:
+        """Save a checkpoint (durable on return); the offsets it covers, none without one.
+        A checkpoint that cannot be written covers none, so nothing is committed: a warning
+        (once until one is written again, or when the cause changes) and the next one retries;
+        the final one raises :class:`CheckpointWriteError` (an OSError) instead."""
         self._last_checkpoint_at = time.monotonic()
         if self.settings.checkpoint_dir is None:
             return {}
+        # imported only with checkpoints: `mine` never loads the module
+        from stream_miner.runtime.checkpoint import CheckpointWriteError, save_checkpoint
+
         with self._lock:  # a rebalance may ask for a checkpoint while a tick is running
             positions = dict(self.ledger.held)
             self.ledger.sent(positions)
@@ -421,10 +433,37 @@ class Runner:
                 "recent": self.recent.state(),
                 "counts": dict(self.counts),
             }
-            from stream_miner.runtime.checkpoint import save_checkpoint  # only with checkpoints
-
-            save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
+            try:
+                path = save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
+            except CheckpointWriteError as error:
+                if final:
+                    raise
+                self._tell_unwritten(str(error))
+                return {}
+            self._tell_written(path)
             return positions
+
+    def _tell_unwritten(self, cause: str) -> None:
+        """Warn about a checkpoint that was not written: at the first failure, and again only
+        when the cause changes."""
+        failed, last = self._unwritten
+        if cause != last:
+            print(
+                f"stream-miner: warning: {cause}; nothing is committed until a checkpoint is written, "
+                "the next one retries",
+                file=self.log,
+            )
+        self._unwritten = (failed + 1, cause)
+
+    def _tell_written(self, path: Path) -> None:
+        """Say when a checkpoint is written again after failures."""
+        failed, _ = self._unwritten
+        if failed:
+            print(
+                f"stream-miner: checkpoint {path} written again after {plural(failed, 'failed attempt')}",
+                file=self.log,
+            )
+            self._unwritten = (0, "")
 
     def _restore(self) -> None:
         directory = self.settings.checkpoint_dir
@@ -442,6 +481,7 @@ class Runner:
                     "this consumer group: this member's window was lost, or the member is new; "
                     "pass --start-fresh to start with an empty window"
                 )
+            print(f"stream-miner: no checkpoint in {directory}: starting with an empty window", file=self.log)
             return
         self.miner, metadata = restored
 
