@@ -52,6 +52,15 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
         help="any kafka-python client option (repeatable); VALUE env:NAME reads it from the "
         "environment variable NAME",
     )
+    source.add_argument(
+        "--dedup-lookback",
+        type=int,
+        default=1000,
+        metavar="N",
+        help="on taking a partition over from another group member, read its last N messages "
+        "before the handover again to learn their basket ids, so a repeat arriving after the "
+        "handover is still recognised (default 1000; 0: off)",
+    )
     source.add_argument("--follow", action="store_true", help="keep reading as the file grows")
     source.add_argument(
         "--pace", type=float, metavar="PER_SECOND", help="replay at most this many records a second"
@@ -208,7 +217,10 @@ def _source(args: argparse.Namespace, stop: threading.Event) -> Source:
         from stream_miner.connectors.kafka_source import KafkaSource, client_options
 
         message = file_layout(args, "jsonl").message
-        return KafkaSource(spec, args.group, message, client_options(args.kafka_option), stop=stop)
+        if args.dedup_lookback < 0:
+            raise UsageError(f"--dedup-lookback must not be negative, got {args.dedup_lookback}")
+        options = client_options(args.kafka_option)
+        return KafkaSource(spec, args.group, message, options, stop=stop, lookback=args.dedup_lookback)
     if spec == "-" or spec.startswith("file:"):
         path = "-" if spec == "-" else spec.removeprefix("file:")
         fmt = args.format or ("jsonl" if path == "-" else detect_format(path))

@@ -9,7 +9,9 @@
   before, are fetched and handed to the runtime, which gives back what another member now
   counts (:mod:`stream_miner.runtime.ledger`); each assigned partition is read from its
   committed offset (from the reset policy's end when nothing is committed). Records read
-  ahead for a partition that is then revoked are dropped. The listener is kafka-python's
+  ahead for a partition that is then revoked are dropped. The ``lookback`` messages before
+  that offset are read first, marked ``learn_only``: the runtime learns their basket ids, so
+  a repeat of a basket the previous owner counted is still recognised. The listener is kafka-python's
   asynchronous one: it runs on the client's IO loop, so it uses the coordinator's awaitable
   fetch and commit calls (kafka-python 3.x internals, pinned in pyproject) instead of the
   blocking consumer methods.
@@ -32,6 +34,7 @@ from collections.abc import Callable
 from typing import TextIO, TypeVar
 
 from kafka import KafkaConsumer, KafkaProducer, OffsetAndMetadata, TopicPartition
+from kafka.consumer.fetcher import OffsetSpec
 from kafka.consumer.subscription_state import AsyncConsumerRebalanceListener
 from kafka.errors import (
     CommitFailedError,
@@ -164,8 +167,11 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         *,
         stop: threading.Event | None = None,
         log: TextIO = sys.stderr,
+        lookback: int = 0,
     ) -> None:
         servers, self.topic = parse_kafka_url(url)
+        self._lookback = lookback
+        self._learn_until: dict[int, int] = {}  # partition -> first offset counted; before: ids only
         self.name = f"kafka:{self.topic}"
         self._format = message_format
         self.shares_partitions = True
@@ -202,14 +208,28 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         found = await self._consumer._coordinator.fetch_committed_offsets_async(asked)
         committed = {tp.partition: _offset(found.get(tp)) for tp in asked}
         starts = self.handover.on_assigned(committed, mine) if self.handover else committed
+        earliest = await self._earliest({tp for tp in assigned if starts.get(tp.partition)})
+        self._learn_until = {}
         for tp in assigned:
             start = starts.get(tp.partition)
             if start is not None:
-                self._consumer.seek(tp, start)
+                first = max(start - self._lookback, earliest.get(tp, start))
+                self._consumer.seek(tp, first)
+                if first < start:
+                    self._learn_until[tp.partition] = start
             elif self._from_latest:
                 self._consumer.seek_to_end(tp)
             else:
                 self._consumer.seek_to_beginning(tp)
+
+    async def _earliest(self, partitions: set[TopicPartition]) -> dict[TopicPartition, int]:
+        """The first offset still in the log of each partition (none asked: no lookback)."""
+        if not partitions or not self._lookback:
+            return {}
+        found = await self._consumer._fetcher._fetch_offsets_by_times_async(
+            {tp: OffsetSpec.EARLIEST for tp in partitions}, timeout_ms=COMMIT_TIMEOUT_MS
+        )
+        return {tp: found[tp].offset for tp in partitions if found.get(tp) is not None}
 
     async def _commit_async(self, positions: dict[int, int]) -> CommitOutcome:
         try:
@@ -261,7 +281,10 @@ class KafkaSource(AsyncConsumerRebalanceListener):
                 self._next_offsets[tp.partition] = messages[-1].offset + 1
         return [
             SourceRecord(
-                self._decode(message.value, tp.partition, message.offset), tp.partition, message.offset
+                self._decode(message.value, tp.partition, message.offset),
+                tp.partition,
+                message.offset,
+                message.offset < self._learn_until.get(tp.partition, -1),
             )
             for tp, messages in batches.items()
             for message in messages

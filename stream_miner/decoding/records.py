@@ -75,8 +75,11 @@ class DeadLetter:
 
 @dataclass(frozen=True, slots=True)
 class SourceRecord:
-    """A decoded record and its position: partition and offset (for files: 0 and the line)."""
+    """A decoded record and its position: partition and offset (for files: 0 and the line).
+    ``learn_only``: read again only to learn its basket id (a partition taken over from
+    another member: see ``--dedup-lookback``), never counted."""
 
     payload: Basket | DeadLetter
     partition: int
     offset: int
+    learn_only: bool = False

@@ -133,6 +133,7 @@ class Runner:
         )
         self._last_checkpoint_at = time.monotonic()
         self._unwritten = (0, "")  # checkpoints not written since the last one that was, and why
+        self._unsaved = False  # records taken since the last checkpoint
         self._lock = threading.Lock()
         self._arrivals = itertools.count()  # breaks ties between waiting baskets of equal time
 
@@ -173,14 +174,17 @@ class Runner:
             self._withdraw()
             for record in records:
                 with self._lock:  # a rebalance on the client's thread may checkpoint at any time
-                    self._take(record.payload, record.partition, record.offset)
+                    if record.learn_only:
+                        self._learn(record.payload, record.partition, record.offset)
+                    else:
+                        self._take(record.payload, record.partition, record.offset)
                 if self.schedule.count_due(self.consumed):
                     self._tick()
             self.progress.update(self.source.position, self.consumed)
             if self.schedule.interval_due():
                 self._tick()
-            if records:
-                self._checkpoint_if_due()  # also between ticks: no basket waits long for one
+            if self._unsaved:
+                self._checkpoint_if_due()  # also between ticks: nothing read waits long for one
             if self.source.exhausted():
                 with self._lock:
                     self._release(math.inf)  # no later basket can come: the waiting ones enter
@@ -189,8 +193,16 @@ class Runner:
                 time.sleep(IDLE_WAIT)
 
     # ----------------------------------------------------------------- records
+    def _learn(self, payload: Basket | DeadLetter, partition: int, offset: int) -> None:
+        """Remember the id of a basket another member counted (read again on taking its
+        partition over), so a repeat of it is skipped here too."""
+        timed = isinstance(self.settings.window, TimeWindow)
+        if isinstance(payload, Basket) and payload.id is not None and (payload.ts is not None or not timed):
+            self.recent.check_and_add(payload.id, payload.ts, origin_tag(partition, offset))
+
     def _take(self, payload: Basket | DeadLetter, partition: int, offset: int) -> None:
         self.ledger.took(partition, offset)
+        self._unsaved = True
         self.watch.record()
         if isinstance(payload, DeadLetter):
             self.dead_letters.write(payload)
@@ -440,6 +452,7 @@ class Runner:
                     raise
                 self._tell_unwritten(str(error))
                 return {}
+            self._unsaved = False
             self._tell_written(path)
             return positions
 
