@@ -45,6 +45,7 @@ from kafka.errors import (
     UnknownMemberIdError,
 )
 
+from stream_miner.connectors.kafka_join_fix import keep_finished_joins
 from stream_miner.decoding.files import InputError
 from stream_miner.decoding.messages import MessageFormat, decode_message
 from stream_miner.decoding.records import DeadLetter, SourceRecord
@@ -183,6 +184,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self._from_latest = settings.get("auto_offset_reset") == "latest"
         self._consumer = connect(servers, lambda: KafkaConsumer(bootstrap_servers=servers, group_id=group, **settings),
                                   stop or threading.Event(), log)
+        keep_finished_joins(self._consumer)
         self._consumer.subscribe([self.topic], listener=self)
 
     # ------------------------------------------------------------- rebalances

@@ -162,11 +162,19 @@ class Runner:
             )
         except ResultTooLarge as error:
             print(f"stream-miner: error: {error}", file=self.log)
-            self._checkpoint(final=True)
+            self._finish()
             return EXIT_USAGE
-        self._checkpoint(final=True)
+        self._finish()
         self._summarise()
         return EXIT_OK
+
+    def _finish(self) -> None:
+        """The last checkpoint and commit; afterwards closing the source hands nothing over
+        (the outputs may be closed first)."""
+        try:
+            self._checkpoint(final=True)
+        finally:
+            self.source.handover = None
 
     def _loop(self) -> None:
         while not self.stopping:
@@ -444,6 +452,7 @@ class Runner:
                 ],
                 "recent": self.recent.state(),
                 "counts": dict(self.counts),
+                "records": self.watch.records,
             }
             try:
                 path = save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
@@ -538,6 +547,7 @@ class Runner:
         heapq.heapify(self.waiting)
         self.recent = RecentIds.from_state(metadata["recent"])
         self.counts = Counter(metadata["counts"])
+        self.watch.records = int(metadata.get("records", 0))  # checkpoints before 0.3 did not keep it
         self.schedule.restored(self.miner.next_tick, self.consumed)
 
     def _take_commit_outcome(self, metadata: dict) -> None:
