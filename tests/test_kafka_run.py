@@ -291,3 +291,32 @@ def test_a_tick_longer_than_max_poll_interval_keeps_the_group_membership(broker,
     assert "warning" not in err
     letters = [json.loads(line) for line in (tmp_path / "dead.jsonl").read_text().splitlines()]
     assert [(letter["reason"], letter["offset"]) for letter in letters] == [("invalid JSON", 60060)]
+
+
+def test_a_member_ticking_while_it_joins_still_gets_its_partitions(broker, spawn, tmp_path):
+    """kafka-python 3.0 threw away a join that finished while the loop was busy (here: a tick
+    every half second) and joined again; with this broker holding JoinGroup for seconds, the
+    member went round for minutes without partitions (see connectors/kafka_join_fix.py). No
+    checkpoint directory: looking for one loads the topic's metadata early, which hid it."""
+    broker.create_topic("busy", 2)
+    broker.produce("busy", checkouts(100, seed=9), partition_of=lambda n: n % 2)
+    command = stream_miner(
+        "run",
+        "--source",
+        f"kafka://{broker.address}/busy",
+        "--group",
+        "g-busy",
+        "--min-count",
+        "1",
+        "--window-size",
+        "1000",
+        "--tick-interval",
+        "0.5s",
+        "--snapshot-out",
+        str(tmp_path / "snap.jsonl"),
+    )
+    for option in GROUP_OPTIONS:
+        command += ["--kafka-option", option]
+    run = spawn(command)
+    wait_until(lambda: consumed(tmp_path) == 100, 30, "100 baskets consumed", run)
+    run.stop()
