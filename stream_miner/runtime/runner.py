@@ -37,7 +37,7 @@ from stream_miner.engine.window import CountWindow, TimeWindow
 from stream_miner.runtime.dedup import RecentIds
 from stream_miner.runtime.health import DeadLetterWatch, plural, summary
 from stream_miner.runtime.progress import ProgressLine
-from stream_miner.runtime.protocols import DeadLetterSink, Source, TickListener, TickReport
+from stream_miner.runtime.protocols import DeadLetterSink, Source, SourceChanged, TickListener, TickReport
 from stream_miner.runtime.schedule import TickSchedule
 
 EXIT_OK, EXIT_USAGE = 0, 2
@@ -98,6 +98,7 @@ class Runner:
         self.counts: Counter[str] = Counter()
         self.miner = WindowMiner(settings.window, settings.policy)
         self.offsets: dict[int, int] = {}
+        self.source_identity: dict[str, str] = {}  # the source's identity when the checkpoint was made
         self.consumed = 0
         self.last_id: str | None = None
         self.newest = -math.inf
@@ -125,7 +126,7 @@ class Runner:
     def run(self) -> int:
         """Process records until the source is exhausted or stopped; return the exit code."""
         self._restore()
-        self.source.seek(self.offsets)
+        self.offsets = self.source.seek(self.offsets, self.source_identity)
         self.source.revoke_handler = self._hand_over  # checkpoint before partitions move away
         if self.talk_when_clean:
             print(f"stream-miner: reading {self.source.name}", file=self.log, flush=True)
@@ -140,6 +141,10 @@ class Runner:
             )
         except ResultTooLarge as error:
             self._checkpoint()
+            print(f"stream-miner: error: {error}", file=self.log)
+            return EXIT_USAGE
+        except SourceChanged as error:  # what was read is kept; no offsets are committed
+            self._hand_over()
             print(f"stream-miner: error: {error}", file=self.log)
             return EXIT_USAGE
         self._checkpoint()
@@ -307,6 +312,7 @@ class Runner:
             offsets = dict(self.offsets)
             metadata = {
                 "source": self.source.name,
+                "source_identity": self.source.identity(),
                 "offsets": {str(p): o for p, o in offsets.items()},
                 "consumed": self.consumed,
                 "last_id": self.last_id,
@@ -357,6 +363,7 @@ class Runner:
     def _take_run_state(self, metadata: dict) -> None:
         """The loop's own state from a checkpoint's metadata (see :meth:`_save`)."""
         self.offsets = {int(p): int(o) for p, o in metadata["offsets"].items()}
+        self.source_identity = {str(k): str(v) for k, v in metadata.get("source_identity", {}).items()}
         self.consumed = int(metadata["consumed"])
         self.last_id = metadata["last_id"]
         self.newest = -math.inf if metadata["newest"] is None else float(metadata["newest"])
