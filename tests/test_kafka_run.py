@@ -53,6 +53,13 @@ def checkouts(n, seed=0, prefix="k"):
 
 def start_run(spawn, broker, topic, group, workdir, *extra):
     """Start `stream-miner run` on ``topic`` and wait for its readiness line."""
+    run = spawn(run_command(broker, topic, group, workdir, *extra))
+    run.wait_ready()
+    return run
+
+
+def run_command(broker, topic, group, workdir, *extra):
+    """The command line of `stream-miner run` on ``topic``, state and snapshot in ``workdir``."""
     command = stream_miner(
         "run",
         "--source",
@@ -72,9 +79,7 @@ def start_run(spawn, broker, topic, group, workdir, *extra):
     for option in GROUP_OPTIONS:
         command += ["--kafka-option", option]
     workdir.mkdir(exist_ok=True)
-    run = spawn(command)
-    run.wait_ready()
-    return run
+    return command
 
 
 def snapshot(workdir):

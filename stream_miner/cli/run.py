@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import sys
-import threading
 from contextlib import ExitStack, closing
 from pathlib import Path
 from typing import Any
@@ -26,6 +25,7 @@ from stream_miner.connectors.file_source import FileSource
 from stream_miner.decoding.files import detect_format
 from stream_miner.runtime.protocols import DeadLetterSink, Source, StoppedWaiting, TickListener
 from stream_miner.runtime.runner import Runner, RunSettings
+from stream_miner.runtime.stop_clock import DEFAULT_STOP_WITHIN, StopClock
 
 
 def add_run_parser(commands: argparse._SubParsersAction) -> None:
@@ -61,6 +61,20 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
         "before the handover again to learn their basket ids, so a repeat arriving after the "
         "handover is still recognised (default 1000; 0: off)",
     )
+    source.add_argument(
+        "--accept-new-log",
+        action="store_true",
+        help="Kafka: the topic's log was lost, cut or recreated: drop the checkpoint (like "
+        "--start-fresh) and read every partition from the log's first offset, whatever the group "
+        "committed (for the one restart after the loss)",
+    )
+    source.add_argument(
+        "--accept-gap",
+        action="store_true",
+        help="Kafka: keep the window, and read the partitions whose log no longer holds the "
+        "checkpointed or committed offsets on from the log's first offset (for the one restart "
+        "after the loss)",
+    )
     source.add_argument("--follow", action="store_true", help="keep reading as the file grows")
     source.add_argument(
         "--pace", type=float, metavar="PER_SECOND", help="replay at most this many records a second"
@@ -90,6 +104,15 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
         "(default: count and report them)",
     )
     state.add_argument("--quiet", action="store_true", help="no line per tick on stderr")
+    state.add_argument(
+        "--stop-within",
+        type=duration,
+        default=DEFAULT_STOP_WITHIN,
+        metavar="DURATION",
+        help="after SIGTERM or SIGINT, end within this long even when a broker does not answer: "
+        "the local checkpoint is always written; committing offsets, sending dead letters and "
+        f"leaving the group get what is left (default: {DEFAULT_STOP_WITHIN:g}s)",
+    )
 
 
 def apply_config(parser: argparse.ArgumentParser, argv: list[str]) -> None:
@@ -147,7 +170,7 @@ def run_run(args: argparse.Namespace) -> int:
     """The ``run`` command."""
     settings = _settings(args)
     _check_outputs(args)
-    stop = threading.Event()
+    stop = StopClock(args.stop_within)
     with ExitStack() as resources, stop_on_signals(stop.set):
         try:
             source = resources.enter_context(closing(_source(args, stop)))
@@ -160,9 +183,14 @@ def run_run(args: argparse.Namespace) -> int:
         if not args.quiet:
             listeners.append(TickLine(sys.stderr))
         runner = Runner(settings, source, dead_letters, listeners)
+
+        def stop_both() -> None:
+            stop.set()  # starts the clock: waits for brokers get what is left of --stop-within
+            runner.stop()
+
         if stop.is_set():
             runner.stop()
-        with stop_on_signals(runner.stop):
+        with stop_on_signals(stop_both):
             return runner.run()
 
 
@@ -178,7 +206,7 @@ def _settings(args: argparse.Namespace) -> RunSettings:
         tick_interval=args.tick_interval,
         checkpoint_dir=args.checkpoint_dir,
         checkpoint_interval=args.checkpoint_interval,
-        start_fresh=args.start_fresh,
+        start_fresh=args.start_fresh or args.accept_new_log,
     )
 
 
@@ -193,7 +221,7 @@ def _check_outputs(args: argparse.Namespace) -> None:
         check_output_file(Path(target), "--dead-letter-out")
 
 
-def _dead_letters(args: argparse.Namespace, stop: threading.Event) -> DeadLetterSink:
+def _dead_letters(args: argparse.Namespace, stop: StopClock) -> DeadLetterSink:
     target = args.dead_letter_out
     if target is None:
         return DeadLetterCounter()
@@ -208,19 +236,27 @@ def _dead_letters(args: argparse.Namespace, stop: threading.Event) -> DeadLetter
         raise UsageError(f"--dead-letter-out {target!r}: cannot open it ({error.strerror})") from None
 
 
-def _source(args: argparse.Namespace, stop: threading.Event) -> Source:
+def _source(args: argparse.Namespace, stop: StopClock) -> Source:
     """The source the options name (``stop`` ends a wait for a broker: StoppedWaiting)."""
     spec = args.source
     if spec.startswith("kafka://"):
         if not args.group:
             raise UsageError("a Kafka source needs --group")
+        from stream_miner.connectors.kafka_log_check import Accept
         from stream_miner.connectors.kafka_source import KafkaSource, client_options
 
+        if args.accept_new_log and args.accept_gap:
+            raise UsageError("--accept-new-log drops the window, --accept-gap keeps it: give one")
+        accept = Accept.NEW_LOG if args.accept_new_log else Accept.GAP if args.accept_gap else Accept.NOTHING
         message = file_layout(args, "jsonl").message
         if args.dedup_lookback < 0:
             raise UsageError(f"--dedup-lookback must not be negative, got {args.dedup_lookback}")
         options = client_options(args.kafka_option)
-        return KafkaSource(spec, args.group, message, options, stop=stop, lookback=args.dedup_lookback)
+        return KafkaSource(
+            spec, args.group, message, options, stop=stop, accept=accept, lookback=args.dedup_lookback
+        )
+    if args.accept_new_log or args.accept_gap:
+        raise UsageError("--accept-new-log and --accept-gap are for a Kafka source")
     if spec == "-" or spec.startswith("file:"):
         path = "-" if spec == "-" else spec.removeprefix("file:")
         fmt = args.format or ("jsonl" if path == "-" else detect_format(path))

@@ -48,9 +48,14 @@ class FileSource:
         yield from read_records(self._stream, layout, self.name, follow=follow)
         self._done = True
 
-    def seek(self, positions: dict[int, int]) -> None:
+    def seek(self, positions: dict[int, int], identity: dict[str, str]) -> dict[int, int]:
         """Skip every record before the checkpointed next offset of partition 0."""
         self._resume_at = positions.get(0, 0)
+        return positions
+
+    def identity(self) -> dict[str, str]:
+        """Nothing beyond the name: a file has no id."""
+        return {}
 
     def poll(self, max_records: int = 500) -> list[SourceRecord]:
         """Up to ``max_records`` records; fewer (maybe none) when the input has no more now."""

@@ -19,6 +19,13 @@
   :meth:`KafkaSource.while_busy` keeps polling with every partition paused, so a slow tick
   never exceeds ``max_poll_interval_ms``; records of partitions assigned meanwhile are kept
   for the next :meth:`poll`.
+- Broker errors while reading (the broker stopped, killed or restarting) are retried with a
+  growing pause and one line per attempt; the stream resumes by itself when the broker is
+  back. Commits end within ``COMMIT_TIMEOUT`` (a failed one is retried at the next
+  checkpoint) and, once a stop was asked for, within what is left of ``--stop-within``, as
+  does closing. kafka-python's own offset reset is off (``auto_offset_reset`` "none"), so a
+  position outside the log is reported (:mod:`~stream_miner.connectors.kafka_log_check`)
+  instead of silently reset; the user's reset applies only where nothing was committed.
 - Any client option passes through (``--kafka-option key=value``); a value ``env:NAME`` is
   read from the environment variable NAME, so secrets never appear on the command line.
   Option values are never logged.
@@ -30,6 +37,7 @@ import os
 import socket
 import sys
 import threading
+import time
 from collections.abc import Callable
 from typing import TextIO, TypeVar
 
@@ -41,16 +49,22 @@ from kafka.errors import (
     FencedInstanceIdError,
     IllegalGenerationError,
     KafkaError,
+    LogTruncationError,
+    NoOffsetForPartitionError,
+    OffsetOutOfRangeError,
     RebalanceInProgressError,
+    RetriableError,
     UnknownMemberIdError,
 )
 
 from stream_miner.connectors.kafka_join_fix import keep_finished_joins
+from stream_miner.connectors.kafka_log_check import Accept, LogWatch, look, problems, refusal, restart_offsets
 from stream_miner.decoding.files import InputError
 from stream_miner.decoding.messages import MessageFormat, decode_message
 from stream_miner.decoding.records import DeadLetter, SourceRecord
 from stream_miner.runtime.ledger import CommitOutcome
-from stream_miner.runtime.protocols import Handover, StoppedWaiting
+from stream_miner.runtime.protocols import Handover, SourceChanged, StoppedWaiting
+from stream_miner.runtime.stop_clock import StopClock
 
 T = TypeVar("T")
 DEFAULTS = {"enable_auto_commit": False, "auto_offset_reset": "earliest", "max_poll_records": 500}
@@ -63,7 +77,11 @@ SET_BY_US = {
 }
 RETRY_FIRST, RETRY_MAX = 1.0, 30.0  # seconds between attempts to reach the brokers
 CONNECT_TIMEOUT = 3.0  # seconds for one TCP connection attempt
-COMMIT_TIMEOUT_MS = 10_000  # an offset commit without an answer by then has an unknown outcome
+COMMIT_TIMEOUT = 5.0  # seconds a commit may take while running; a failed one waits for the next checkpoint
+CLOSE_TIMEOUT = 10.0  # seconds the consumer may take to leave its group (less once stopping)
+READ_RETRY_MAX = 5.0  # seconds: polls are retried more often, so a stream resumes soon after its broker
+COORDINATOR_GRACE = 3.0  # seconds of polls without a group coordinator before reading counts as failed
+DETAIL = 160  # characters of a client error's text shown in a line
 # answers that mean the broker did not record a commit
 REFUSALS = (
     CommitFailedError,
@@ -141,6 +159,66 @@ def connect(servers: str, make: Callable[[], T], stop: threading.Event, log: Tex
         delay = min(2 * delay, RETRY_MAX)
 
 
+def describe(error: KafkaError) -> str:
+    """A client error in a few words: its name and detail on one line."""
+    text = " ".join(str(error).split()).removesuffix(": None")
+    return (text or type(error).__name__)[:DETAIL]
+
+
+class Retry:
+    """Attempts at something a broker must answer: after a failure one line says what
+    failed and when the next attempt is, the wait doubling from ``RETRY_FIRST`` up to
+    ``longest``; the first success after failures says how long they lasted."""
+
+    def __init__(self, what: str, servers: str, log: TextIO, longest: float = RETRY_MAX) -> None:
+        self.what, self.servers, self.log, self.longest = what, servers, log, longest
+        self._delay = RETRY_FIRST
+        self._next_at = 0.0
+        self._failing_since: float | None = None
+
+    def due(self) -> bool:
+        """True when the next attempt may be made."""
+        return time.monotonic() >= self._next_at
+
+    def failed(self, problem: str) -> float:
+        """Note a failed attempt (one line); returns the seconds until the next one."""
+        now = time.monotonic()
+        if self._failing_since is None:
+            self._failing_since = now
+        delay, self._delay = self._delay, min(2 * self._delay, self.longest)
+        self._next_at = now + delay
+        print(f"stream-miner: Kafka at {self.servers}: {self.what} failed ({problem}); retrying in {delay:g} s",
+              file=self.log, flush=True)
+        return delay
+
+    def succeeded(self) -> None:
+        """Note a success: the wait starts small again."""
+        if self._failing_since is not None:
+            print(f"stream-miner: Kafka at {self.servers}: {self.what} works again after "
+                  f"{time.monotonic() - self._failing_since:.1f} s", file=self.log, flush=True)
+        self._failing_since, self._delay, self._next_at = None, RETRY_FIRST, 0.0
+
+
+class _Consumer(KafkaConsumer):
+    """A consumer whose blocking commits end within ``COMMIT_TIMEOUT``, or within what is
+    left of the stop bound; the last commit's failure is kept for the closing line."""
+
+    def __init__(self, stop_clock: StopClock, **configs: object) -> None:
+        self._stop_clock = stop_clock
+        self.commit_failure: str | None = None
+        super().__init__(**configs)
+
+    def commit(self, offsets: dict | None = None, timeout_ms: int | None = None) -> None:
+        if timeout_ms is None:
+            timeout_ms = int(self._stop_clock.budget(COMMIT_TIMEOUT) * 1000)
+        try:
+            super().commit(offsets, timeout_ms=timeout_ms)
+        except KafkaError as error:  # kept for close(), then handled by the caller
+            self.commit_failure = describe(error)
+            raise
+        self.commit_failure = None
+
+
 def _unreachable(servers: str) -> str | None:
     """None when some bootstrap server accepts a TCP connection, else why none did."""
     problems = []
@@ -166,24 +244,35 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         message_format: MessageFormat,
         options: dict[str, object] | None = None,
         *,
-        stop: threading.Event | None = None,
+        stop: StopClock | None = None,
+        accept: Accept = Accept.NOTHING,
         log: TextIO = sys.stderr,
         lookback: int = 0,
     ) -> None:
         servers, self.topic = parse_kafka_url(url)
         self._lookback = lookback
         self._learn_until: dict[int, int] = {}  # partition -> first offset counted; before: ids only
+        self.servers = servers
         self.name = f"kafka:{self.topic}"
         self._format = message_format
         self.shares_partitions = True
         self.handover: Handover | None = None
         self._backlog: list[SourceRecord] = []
+        self._restart_at: dict[int, int] = {}  # partition -> where an accepted new log is read from
         self._next_offsets: dict[int, int] = {}  # per partition, after the last record read
+        self._stop = stop or StopClock()
+        self._accept = accept
+        self._log = log
+        self._reading = Retry(f"reading topic {self.topic}", servers, log, READ_RETRY_MAX)
+        self._no_coordinator_since: float | None = None
+        self._watch = LogWatch(self.topic, servers, None, {})
+        self._changed: SourceChanged | None = None  # found while polling, raised by the next poll()
         settings = DEFAULTS | {k: v for k, v in (options or {}).items() if k in KafkaConsumer.DEFAULT_CONFIG}
         self._max_records = int(settings.get("max_poll_records", 500))  # type: ignore[call-overload]
-        self._from_latest = settings.get("auto_offset_reset") == "latest"
-        self._consumer = connect(servers, lambda: KafkaConsumer(bootstrap_servers=servers, group_id=group, **settings),
-                                  stop or threading.Event(), log)
+        self._reset_to = settings.pop("auto_offset_reset")  # applied by _reset(); the client's is "none"
+        self._probe_settings = {"bootstrap_servers": servers, "group_id": group, **settings}
+        make = lambda: _Consumer(self._stop, auto_offset_reset="none", **self._probe_settings)  # noqa: E731
+        self._consumer = connect(servers, make, self._stop, log)
         keep_finished_joins(self._consumer)
         self._consumer.subscribe([self.topic], listener=self)
 
@@ -209,6 +298,8 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         asked = {TopicPartition(self.topic, p) for p in mine | read_before}
         found = await self._consumer._coordinator.fetch_committed_offsets_async(asked)
         committed = {tp.partition: _offset(found.get(tp)) for tp in asked}
+        # a log found lost or cut at start-up and accepted: read those partitions from there
+        committed |= {p: self._restart_at.pop(p) for p in mine & set(self._restart_at)}
         starts = self.handover.on_assigned(committed, mine) if self.handover else committed
         earliest = await self._earliest({tp for tp in assigned if starts.get(tp.partition)})
         self._learn_until = {}
@@ -219,9 +310,9 @@ class KafkaSource(AsyncConsumerRebalanceListener):
                 self._consumer.seek(tp, first)
                 if first < start:
                     self._learn_until[tp.partition] = start
-            elif self._from_latest:
+            elif self._reset_to == "latest":
                 self._consumer.seek_to_end(tp)
-            else:
+            elif self._reset_to == "earliest":
                 self._consumer.seek_to_beginning(tp)
 
     async def _earliest(self, partitions: set[TopicPartition]) -> dict[TopicPartition, int]:
@@ -229,14 +320,14 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         if not partitions or not self._lookback:
             return {}
         found = await self._consumer._fetcher._fetch_offsets_by_times_async(
-            {tp: OffsetSpec.EARLIEST for tp in partitions}, timeout_ms=COMMIT_TIMEOUT_MS
+            {tp: OffsetSpec.EARLIEST for tp in partitions}, timeout_ms=int(COMMIT_TIMEOUT * 1000)
         )
         return {tp: found[tp].offset for tp in partitions if found.get(tp) is not None}
 
     async def _commit_async(self, positions: dict[int, int]) -> CommitOutcome:
         try:
             await self._consumer._coordinator._commit_offsets_sync_async(
-                self._offsets(positions), timeout_ms=COMMIT_TIMEOUT_MS
+                self._offsets(positions), timeout_ms=int(self._stop.budget(COMMIT_TIMEOUT) * 1000)
             )
         except REFUSALS as error:
             _warn_uncommitted(error, "refused")
@@ -253,17 +344,106 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self._backlog = [record for record in self._backlog if record.partition not in gone]
 
     # ----------------------------------------------------------------- source
-    def seek(self, positions: dict[int, int]) -> None:
-        """Nothing to do here: where each partition is read from is settled on assignment,
-        from the group's committed offsets and the runtime's ledger."""
+    def seek(self, positions: dict[int, int], identity: dict[str, str]) -> dict[int, int]:
+        """Check that the log still holds the checkpointed next offsets (``identity``: the
+        topic's id when they were checkpointed) and the group's committed ones
+        (:mod:`~stream_miner.connectors.kafka_log_check`), then remember where to resume:
+        applied when partitions are assigned. Returns those offsets."""
+        recorded = identity.get("topic_id")
+        self._watch.topic_id = recorded
+        check = Retry(f"checking the log of topic {self.topic}", self.servers, self._log)
+        while True:
+            try:
+                resume = self._check_log(positions, recorded)
+                break
+            except StoppedWaiting:
+                return positions  # stopping before anything is read
+            except RetriableError as error:  # the broker went away again meanwhile
+                if self._stop.wait(check.failed(describe(error))):
+                    return positions
+        self._restart_at = {p: o for p, o in resume.items() if o != positions.get(p)}
+        self._watch.read = dict(resume)
+        return resume
+
+    def _check_log(self, positions: dict[int, int], recorded: str | None) -> dict[int, int]:
+        """One look at the log with a probe consumer; the offsets to resume at."""
+        make = lambda: KafkaConsumer(auto_offset_reset="none", **self._probe_settings)  # noqa: E731
+        probe = connect(self.servers, make, self._stop, self._log)
+        try:
+            state = look(probe, self.topic)
+            if state is None:
+                return positions  # no such topic yet: nothing to compare
+            self._watch.topic_id = state.topic_id or recorded
+            found = problems(state, positions, recorded)
+            if self._accept is Accept.NEW_LOG or (found and self._accept is Accept.GAP):
+                return positions | restart_offsets(probe, self.topic, state, found, self._accept)
+            if found:
+                raise refusal(self.topic, self.servers, found)
+            return positions
+        finally:
+            probe.close(autocommit=False, timeout_ms=int(self._stop.budget(CLOSE_TIMEOUT) * 1000))
+
+    def identity(self) -> dict[str, str]:
+        """The topic's id, where the broker reports one."""
+        return {"topic_id": self._watch.topic_id} if self._watch.topic_id else {}
 
     def poll(self, max_records: int = 500) -> list[SourceRecord]:
+        if self._changed is not None:
+            raise self._changed
         if self._backlog:
             out, self._backlog = self._backlog, []
             return out
-        return self._records(
-            self._consumer.poll(timeout_ms=200, max_records=min(max_records, self._max_records))
-        )
+        return self._records(self._fetch(timeout_ms=200, max_records=min(max_records, self._max_records)))
+
+    def _fetch(self, **options: int) -> dict:
+        """``consumer.poll(**options)``: after a broker error nothing until the next attempt is
+        due (a line says so); a log that no longer holds what was read is kept for
+        :meth:`poll` to raise, and what came with it is dropped."""
+        if self._changed is not None or not self._reading.due():
+            return {}
+        try:
+            batches = self._consumer.poll(**options)
+        except RetriableError as error:  # broker gone or restarting, a request timed out, coordinator moved
+            self._reading.failed(describe(error))
+            return {}
+        except NoOffsetForPartitionError as error:  # nothing committed or checkpointed there
+            self._reset(error.args[0])
+            return {}
+        except (OffsetOutOfRangeError, LogTruncationError) as error:
+            self._changed = self._watch.out_of_range(error)
+            return {}
+        self._changed = self._watch.check(self._consumer)
+        if self._changed is not None:
+            return {}
+        self._note_coordinator(any(batches.values()))
+        return batches
+
+    def _note_coordinator(self, got_records: bool) -> None:
+        """A poll that raised nothing: reading works unless no group coordinator answered
+        for ``COORDINATOR_GRACE`` seconds (a broker killed or stopped raises nothing)."""
+        if got_records or not self._consumer._coordinator.coordinator_unknown():
+            self._no_coordinator_since = None
+            self._reading.succeeded()
+            return
+        now = time.monotonic()
+        if self._no_coordinator_since is None:
+            self._no_coordinator_since = now
+        elif now - self._no_coordinator_since >= COORDINATOR_GRACE:
+            self._reading.failed("no group coordinator answers")
+
+    def _reset(self, partitions: set[TopicPartition]) -> None:
+        """Start partitions with no committed or checkpointed offset where the user's
+        ``auto_offset_reset`` says."""
+        if self._reset_to == "earliest":
+            self._consumer.seek_to_beginning(*partitions)
+        elif self._reset_to == "latest":
+            self._consumer.seek_to_end(*partitions)
+        else:
+            numbers = ", ".join(str(tp.partition) for tp in sorted(partitions))
+            raise InputError(
+                f"Kafka topic {self.topic}: partitions {numbers} have no committed offset and "
+                f"auto_offset_reset is {self._reset_to!r}; use earliest or latest"
+            )
 
     def while_busy(self, busy: Callable[[], bool]) -> None:
         """Keep the group membership alive while ``busy()`` (a tick on a worker thread) says
@@ -273,7 +453,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self._consumer.pause(*paused)
         try:
             while busy():
-                self._backlog += self._records(self._consumer.poll(timeout_ms=100))
+                self._backlog += self._records(self._fetch(timeout_ms=100))
         finally:
             self._consumer.resume(*(paused & set(self._consumer.assignment())))
 
@@ -281,6 +461,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         for tp, messages in batches.items():
             if messages:
                 self._next_offsets[tp.partition] = messages[-1].offset + 1
+                self._watch.advance(tp.partition, messages[-1].offset + 1)
         return [
             SourceRecord(
                 self._decode(message.value, tp.partition, message.offset),
@@ -314,7 +495,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         if not ours:
             return ours, CommitOutcome.ACKED
         try:
-            self._consumer.commit(self._offsets(ours), timeout_ms=COMMIT_TIMEOUT_MS)
+            self._consumer.commit(self._offsets(ours))  # within COMMIT_TIMEOUT or the stop bound
         except REFUSALS as error:  # e.g. a rebalance in progress: the next checkpoint retries
             _warn_uncommitted(error, "refused")
             return ours, CommitOutcome.REFUSED
@@ -335,10 +516,20 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         return {TopicPartition(self.topic, p): OffsetAndMetadata(o, "", -1) for p, o in positions.items()}
 
     def close(self) -> None:
+        """Leave the group within what is left of the stop bound. The loop's last checkpoint
+        and commit are done, so the rebalance listener hands nothing over on close; a line
+        says when the last commit failed."""
+        self.handover = None
+        if self._consumer.commit_failure is not None:
+            print(
+                f"stream-miner: offsets not committed to Kafka at {self.servers} "
+                f"({self._consumer.commit_failure}); the checkpoint holds them",
+                file=self._log,
+            )
         try:
-            self._consumer.close(autocommit=False)
+            self._consumer.close(autocommit=False, timeout_ms=int(self._stop.budget(CLOSE_TIMEOUT) * 1000))
         except KafkaError as error:
-            print(f"stream-miner: warning: closing the Kafka consumer: {error}", file=sys.stderr)
+            print(f"stream-miner: warning: closing the Kafka consumer: {describe(error)}", file=self._log)
 
     def _decode(self, value: bytes | None, partition: int, offset: int):
         if value is None:

@@ -4,7 +4,10 @@ Every sink takes JSON-ready dicts (``write``), flushes what it buffers (``flush`
 The Kafka sink produces with ``acks="all"`` and ``enable_idempotence=True`` set explicitly, so
 a retried send is not written twice. :class:`KafkaDeadLetters` puts a bad record's raw bytes
 on a dead-letter topic unchanged, keyed by the record's deterministic id
-(``SOURCE/PARTITION/OFFSET``), with the reason and origin in message headers.
+(``SOURCE/PARTITION/OFFSET``), with the reason and origin in message headers; it keeps
+each dead letter until the broker confirmed it and sends again what failed (a broker
+stopped, killed or restarted), so :meth:`KafkaDeadLetters.flush` returns only once all are
+in the topic, or once a stop's time bound is spent (a line then says how many were not sent).
 """
 
 from __future__ import annotations
@@ -17,21 +20,36 @@ from collections import Counter
 from typing import TextIO
 
 from kafka import KafkaProducer
+from kafka.errors import KafkaTimeoutError, RetriableError, UnknownProducerIdError
+from kafka.producer.future import FutureRecordMetadata
 
-from stream_miner.connectors.kafka_source import connect, parse_kafka_url
+from stream_miner.connectors.kafka_source import CLOSE_TIMEOUT, Retry, connect, describe, parse_kafka_url
 from stream_miner.decoding.records import DeadLetter
+from stream_miner.runtime.stop_clock import StopClock
 
 SAFE_PRODUCER = {"acks": "all", "enable_idempotence": True}
+# A dead letter's send waits at most this long for metadata or buffer space (kafka-python's
+# default is 60 s); one that could not be handed to the client is sent again by flush().
+DEAD_LETTER_DEFAULTS: dict[str, object] = {"max_block_ms": 5000}
+FLUSH_STEP = 5.0  # seconds one attempt to deliver the dead letters waits for the broker
+# failures after which sending the same record again can succeed (a restarted broker forgets
+# the idempotent producer's id)
+RESEND_AFTER = (RetriableError, UnknownProducerIdError)
 
 
 def _producer(
-    url: str, options: dict[str, object] | None, stop: threading.Event | None = None
+    url: str,
+    options: dict[str, object] | None,
+    stop: threading.Event | None = None,
+    defaults: dict[str, object] | None = None,
 ) -> tuple[KafkaProducer, str]:
-    """A producer for ``url``; of the shared client options it takes those a producer knows.
-    Until the brokers answer, a line per attempt says why not (``stop`` ends the wait)."""
+    """A producer for ``url``; of the shared client options it takes those a producer knows
+    (over ``defaults``). Until the brokers answer, a line per attempt says why not (``stop``
+    ends the wait)."""
     servers, topic = parse_kafka_url(url)
     known = {k: v for k, v in (options or {}).items() if k in KafkaProducer.DEFAULT_CONFIG}
-    make = lambda: KafkaProducer(bootstrap_servers=servers, **(known | SAFE_PRODUCER))  # noqa: E731
+    settings = (defaults or {}) | known | SAFE_PRODUCER
+    make = lambda: KafkaProducer(bootstrap_servers=servers, **settings)  # noqa: E731
     return connect(servers, make, stop or threading.Event(), sys.stderr), topic
 
 
@@ -84,12 +102,27 @@ class KafkaDeadLetters:
     as headers; counted by reason like the file sink."""
 
     def __init__(
-        self, url: str, options: dict[str, object] | None = None, *, stop: threading.Event | None = None
+        self,
+        url: str,
+        options: dict[str, object] | None = None,
+        *,
+        stop: StopClock | None = None,
+        log: TextIO = sys.stderr,
     ) -> None:
-        self._producer, self.topic = _producer(url, options, stop)
+        self._stop = stop or StopClock()
+        self._producer, self.topic = _producer(url, options, self._stop, DEAD_LETTER_DEFAULTS)
+        self.servers = parse_kafka_url(url)[0]
         self.counts: Counter[str] = Counter()
+        self._log = log
+        self._retry = Retry(f"sending dead letters to topic {self.topic}", self.servers, log)
+        self._unconfirmed: list[tuple[DeadLetter, FutureRecordMetadata | None]] = []
+        self._reported = 0  # how many were last reported as not sent
 
     def write(self, letter: DeadLetter) -> None:
+        self.counts[letter.reason] += 1
+        self._unconfirmed.append((letter, self._send(letter)))
+
+    def _send(self, letter: DeadLetter) -> FutureRecordMetadata | None:
         headers = [
             ("reason", letter.reason.encode()),
             ("detail", letter.detail.encode()),
@@ -97,11 +130,55 @@ class KafkaDeadLetters:
             ("partition", str(letter.partition).encode()),
             ("offset", str(letter.offset).encode()),
         ]
-        self._producer.send(self.topic, key=letter.key.encode(), value=letter.raw, headers=headers)
-        self.counts[letter.reason] += 1
+        try:
+            return self._producer.send(self.topic, key=letter.key.encode(), value=letter.raw, headers=headers)
+        except KafkaTimeoutError:  # no metadata or buffer space in time: flush() sends it again
+            return None
 
     def flush(self) -> None:
-        self._producer.flush()
+        """Return once every dead letter written so far is in the topic; between attempts a
+        line says what failed and the pause grows. Once a stop was asked for, only until its
+        bound: then a line says how many were not sent."""
+        while (problem := self._deliver()) is not None:
+            if self._stop.spent():
+                if len(self._unconfirmed) != self._reported:
+                    self._reported = len(self._unconfirmed)
+                    print(
+                        f"stream-miner: {self._reported} dead letters not sent to topic {self.topic} "
+                        f"at {self.servers} ({problem}): the stop's time bound is spent",
+                        file=self._log,
+                    )
+                return
+            self._stop.wait(self._retry.failed(problem))
+        self._retry.succeeded()
+
+    def _deliver(self) -> str | None:
+        """One attempt: send again what failed, wait for the rest; None once all are in the
+        topic, else what went wrong."""
+        waiting = []
+        for letter, future in self._unconfirmed:
+            if future is None or future.failed():
+                if future is not None and not isinstance(future.exception, RESEND_AFTER):
+                    print(
+                        f"stream-miner: warning: dead letter from {letter.source} partition "
+                        f"{letter.partition} offset {letter.offset} not sent to topic {self.topic} "
+                        f"({describe(future.exception)}); dropped",
+                        file=self._log,
+                    )
+                    continue
+                future = self._send(letter)
+            waiting.append((letter, future))
+        try:
+            self._producer.flush(timeout=self._stop.budget(FLUSH_STEP))
+        except KafkaTimeoutError as error:
+            problem: str | None = describe(error)
+        else:
+            problem = None
+        self._unconfirmed = [(letter, f) for letter, f in waiting if f is None or not f.succeeded()]
+        if not self._unconfirmed:
+            return None
+        failure = next((f.exception for _, f in self._unconfirmed if f is not None and f.failed()), None)
+        return problem or (describe(failure) if failure is not None else "not handed to the client")
 
     def position(self) -> int | None:
         """A topic cannot be cut back."""
@@ -111,5 +188,6 @@ class KafkaDeadLetters:
         """A topic cannot be cut back: nothing to do."""
 
     def close(self) -> None:
-        self._producer.flush()
-        self._producer.close()
+        """Deliver what is left (see :meth:`flush`), then close within the stop bound."""
+        self.flush()
+        self._producer.close(timeout=self._stop.budget(CLOSE_TIMEOUT))

@@ -38,6 +38,12 @@ class Handover(Protocol):
         ...
 
 
+class SourceChanged(ValueError):
+    """The source no longer holds what was read from it (a Kafka log lost, cut or recreated):
+    reading on would silently skip or mix records. The message is one line naming what was
+    found and the options to go on."""
+
+
 class Source(Protocol):
     """Records from outside: a file, stdin or a Kafka topic."""
 
@@ -48,8 +54,16 @@ class Source(Protocol):
     handover: Handover | None
     """Set by the loop before the first poll."""
 
-    def seek(self, positions: dict[int, int]) -> None:
-        """Resume at these next offsets per partition (from a checkpoint)."""
+    def seek(self, positions: dict[int, int], identity: dict[str, str]) -> dict[int, int]:
+        """Resume at these next offsets per partition (from a checkpoint, made when the source
+        had ``identity``); returns the offsets reading resumes at. Raises
+        :class:`SourceChanged` when the source no longer holds them."""
+        ...
+
+    def identity(self) -> dict[str, str]:
+        """What tells this source's data apart from a replacement under the same name (a
+        Kafka topic's id); kept in checkpoints and handed back to :meth:`seek`."""
+        ...
 
     def poll(self, max_records: int = 500) -> list[SourceRecord]:
         """The next records; none when nothing is there now."""

@@ -47,7 +47,7 @@ from stream_miner.runtime.health import DeadLetterWatch, plural, summary
 from stream_miner.runtime.ledger import CommitOutcome, PartitionLedger
 from stream_miner.runtime.outbox import DeadLetterOutbox
 from stream_miner.runtime.progress import ProgressLine
-from stream_miner.runtime.protocols import DeadLetterSink, Source, TickListener, TickReport
+from stream_miner.runtime.protocols import DeadLetterSink, Source, SourceChanged, TickListener, TickReport
 from stream_miner.runtime.schedule import TickSchedule
 
 EXIT_OK, EXIT_USAGE = 0, 2
@@ -115,9 +115,8 @@ class Runner:
         self.miner = WindowMiner(settings.window, settings.policy)
         self.ledger = PartitionLedger()
         self.sequence = 0  # checkpoints saved, across restarts
-        self._withdrawals: list[
-            tuple[int, int]
-        ] = []  # (partition, offset): given back, not yet out of the miner
+        self._withdrawals: list[tuple[int, int]] = []  # (partition, offset): given back, not yet withdrawn
+        self.source_identity: dict[str, str] = {}  # the source's identity when the checkpoint was made
         self.consumed = 0
         self.last_id: str | None = None
         self.newest = -math.inf
@@ -147,7 +146,10 @@ class Runner:
     def run(self) -> int:
         """Process records until the source is exhausted or stopped; return the exit code."""
         self._restore()
-        self.source.seek(dict(self.ledger.held))
+        held = dict(self.ledger.held)
+        for partition, offset in self.source.seek(held, self.source_identity).items():
+            if offset != held.get(partition):  # a lost or cut log, accepted: read on from there
+                self.ledger.starts_at(partition, offset)
         self.source.handover = self
         if self.talk_when_clean:
             print(f"stream-miner: reading {self.source.name}", file=self.log, flush=True)
@@ -163,6 +165,11 @@ class Runner:
         except ResultTooLarge as error:
             print(f"stream-miner: error: {error}", file=self.log)
             self._finish()
+            return EXIT_USAGE
+        except SourceChanged as error:  # what was read is kept; no offsets are committed
+            self._save(final=True)
+            self.source.handover = None
+            print(f"stream-miner: error: {error}", file=self.log)
             return EXIT_USAGE
         self._finish()
         self._summarise()
@@ -438,6 +445,7 @@ class Runner:
             self.sequence += 1
             metadata = {
                 "source": self.source.name,
+                "source_identity": self.source.identity(),
                 "sequence": self.sequence,
                 "attempt": {str(p): o for p, o in positions.items()},
                 "ledger": self.ledger.state(),
@@ -536,6 +544,7 @@ class Runner:
         else:  # made by stream-miner 0.2: offsets only, taken as committed
             offsets = {int(p): int(o) for p, o in metadata["offsets"].items()}
             self.ledger.held, self.ledger.landed = dict(offsets), dict(offsets)
+        self.source_identity = {str(k): str(v) for k, v in metadata.get("source_identity", {}).items()}
         self.consumed = int(metadata["consumed"])
         self.last_id = metadata["last_id"]
         self.newest = -math.inf if metadata["newest"] is None else float(metadata["newest"])
