@@ -51,15 +51,17 @@ def checkouts(n, seed=0, prefix="k"):
     ]
 
 
-def start_run(spawn, broker, topic, group, workdir, *extra):
+def start_run(spawn, broker, topic, group, workdir, *extra, checkpoints=True):
     """Start `stream-miner run` on ``topic`` and wait for its readiness line."""
-    run = spawn(run_command(broker, topic, group, workdir, *extra))
+    run = spawn(run_command(broker, topic, group, workdir, *extra, checkpoints=checkpoints))
     run.wait_ready()
     return run
 
 
-def run_command(broker, topic, group, workdir, *extra):
-    """The command line of `stream-miner run` on ``topic``, state and snapshot in ``workdir``."""
+def run_command(broker, topic, group, workdir, *extra, checkpoints=True):
+    """The command line of `stream-miner run` on ``topic``, state (``checkpoints``) and
+    snapshot in ``workdir``."""
+    kept = ["--checkpoint-dir", str(workdir / "ck"), "--checkpoint-interval", "0.2s"] if checkpoints else []
     command = stream_miner(
         "run",
         "--source",
@@ -68,10 +70,7 @@ def run_command(broker, topic, group, workdir, *extra):
         group,
         "--min-count",
         "1",
-        "--checkpoint-dir",
-        str(workdir / "ck"),
-        "--checkpoint-interval",
-        "0.2s",
+        *kept,
         "--snapshot-out",
         str(workdir / "snap.jsonl"),
         *extra,
@@ -305,23 +304,7 @@ def test_a_member_ticking_while_it_joins_still_gets_its_partitions(broker, spawn
     checkpoint directory: looking for one loads the topic's metadata early, which hid it."""
     broker.create_topic("busy", 2)
     broker.produce("busy", checkouts(100, seed=9), partition_of=lambda n: n % 2)
-    command = stream_miner(
-        "run",
-        "--source",
-        f"kafka://{broker.address}/busy",
-        "--group",
-        "g-busy",
-        "--min-count",
-        "1",
-        "--window-size",
-        "1000",
-        "--tick-interval",
-        "0.5s",
-        "--snapshot-out",
-        str(tmp_path / "snap.jsonl"),
-    )
-    for option in GROUP_OPTIONS:
-        command += ["--kafka-option", option]
-    run = spawn(command)
+    extra = ["--window-size", "1000", "--tick-interval", "0.5s"]
+    run = start_run(spawn, broker, "busy", "g-busy", tmp_path, *extra, checkpoints=False)
     wait_until(lambda: consumed(tmp_path) == 100, 30, "100 baskets consumed", run)
     run.stop()

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import math
 from collections import deque
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -190,25 +191,17 @@ class WindowStore:
 
     def expire_until(self, cutoff: float) -> Expired:
         """Remove every basket with event time <= ``cutoff``."""
-        out = []
-        for chunk in self._chunks:
-            due = chunk.alive & (chunk.ts <= cutoff)
-            if due.any():
-                rows = np.flatnonzero(due)
-                out.append(chunk.kill(rows))
-                self._size -= rows.size
-        while self._chunks and self._chunks[0].n_alive == 0:
-            self._chunks.popleft()
-            self._head = 0
-        return Expired.concat(out)
+        return self._remove_where(lambda chunk: chunk.ts <= cutoff)
 
     def withdraw(self, low: int, high: int) -> Expired:
         """Remove every basket whose origin tag lies in [``low``, ``high``)."""
+        return self._remove_where(lambda chunk: (chunk.tags >= low) & (chunk.tags < high))
+
+    def _remove_where(self, chosen: Callable[[_Chunk], np.ndarray]) -> Expired:
+        """Remove the live baskets of every chunk where ``chosen(chunk)`` (a row mask) is set."""
         out = []
         for chunk in self._chunks:
-            if chunk.origin is None:
-                continue
-            due = chunk.alive & (chunk.origin >= low) & (chunk.origin < high)
+            due = chunk.alive & chosen(chunk)
             if due.any():
                 rows = np.flatnonzero(due)
                 out.append(chunk.kill(rows))
