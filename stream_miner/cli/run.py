@@ -239,6 +239,8 @@ def _dead_letters(args: argparse.Namespace, stop: StopClock) -> DeadLetterSink:
 def _source(args: argparse.Namespace, stop: StopClock) -> Source:
     """The source the options name (``stop`` ends a wait for a broker: StoppedWaiting)."""
     spec = args.source
+    if args.dedup_lookback < 0:
+        raise UsageError(f"--dedup-lookback must not be negative, got {args.dedup_lookback}")
     if spec.startswith("kafka://"):
         if not args.group:
             raise UsageError("a Kafka source needs --group")
@@ -249,8 +251,6 @@ def _source(args: argparse.Namespace, stop: StopClock) -> Source:
             raise UsageError("--accept-new-log drops the window, --accept-gap keeps it: give one")
         accept = Accept.NEW_LOG if args.accept_new_log else Accept.GAP if args.accept_gap else Accept.NOTHING
         message = file_layout(args, "jsonl").message
-        if args.dedup_lookback < 0:
-            raise UsageError(f"--dedup-lookback must not be negative, got {args.dedup_lookback}")
         options = client_options(args.kafka_option)
         return KafkaSource(
             spec, args.group, message, options, stop=stop, accept=accept, lookback=args.dedup_lookback
