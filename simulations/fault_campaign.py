@@ -253,8 +253,11 @@ def kill_loop(baskets: int, seed: int, workdir: Path) -> Figures:
             point = stage.target(k, kills, len(stage.messages))
 
             def due(point: int = point, reached: int = reached) -> bool:
-                # the stream has come this far, and this life counted baskets past the last one's
-                return stage.producer.total() >= point and member.consumed() > reached
+                # the stream has come this far, and this life counted baskets past the last
+                # one's (or, once the stream is over, has ticked)
+                if stage.producer.busy:
+                    return stage.producer.total() >= point and member.consumed() > reached
+                return member.consumed() > reached or member.ticked()
 
             watch(due, PROGRESS_WITHIN, stage.tend)
             time.sleep(stage.rnd.uniform(0, KILL_JITTER))  # see KILL_JITTER
