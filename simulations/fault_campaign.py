@@ -41,6 +41,7 @@ from pathlib import Path
 
 from simulations.fault_harness import (
     ONE_LINE,
+    TICK_SECONDS,
     Figures,
     Member,
     Message,
@@ -71,8 +72,8 @@ PROGRESS_WITHIN = 120.0  # seconds to reach a fault's progress point (else the f
 RECOVERY_WITHIN = 120.0  # seconds after the last commit of the topic for pending recoveries
 COMPLETION_WITHIN = 300.0  # seconds after the producer's end for the group to commit the topic
 REPORT_WITHIN = 30.0  # seconds for a member to report a checkpoint fault (a line, or an exit)
-KILL_JITTER = 5.0  # a seeded random extra (s) after a kill's progress point: where in the
-# member's tick and checkpoint cycle (TICK_SECONDS, CHECKPOINT_SECONDS) the kill lands
+KILL_JITTER = TICK_SECONDS  # a seeded random extra (s) after a kill's progress point (baskets
+# in the member's snapshot, written every TICK_SECONDS): where in a tick the kill lands
 OUTAGE_SECONDS = 10.0  # a SIGSTOPped broker: longer than the session timeout (GROUP_OPTIONS, 6 s)
 RESTART_DOWN = 3.0  # seconds a restarted broker stays down
 # the duration of an outage is the fault itself, not a wait for anything
@@ -242,26 +243,16 @@ def open_stage(
 
 # ------------------------------------------------------------------ scenarios
 def kill_loop(baskets: int, seed: int, workdir: Path) -> Figures:
-    """One member SIGKILLed at seeded progress points while the producer runs, restarted with
-    the same command each time; SIGTERM at the end."""
+    """One member SIGKILLed at seeded progress points (baskets it counted) while the producer
+    runs, restarted with the same command each time; SIGTERM at the end."""
     with open_stage("kill-loop", baskets, seed, workdir, partitions=1) as stage:
         member = stage.member("m0", to_topic=False, per_basket=False)
         stage.producer.send(stage.messages)
         kills = min(8, max(3, baskets // 5000))
-        reached = 0  # baskets in the last snapshot before the previous kill
         for k in range(kills):
-            point = stage.target(k, kills, len(stage.messages))
-
-            def due(point: int = point, reached: int = reached) -> bool:
-                # the stream has come this far, and this life counted baskets past the last
-                # one's (or, once the stream is over, has ticked)
-                if stage.producer.busy:
-                    return stage.producer.total() >= point and member.consumed() > reached
-                return member.consumed() > reached or member.ticked()
-
-            watch(due, PROGRESS_WITHIN, stage.tend)
+            point = stage.target(k, kills, baskets)
+            watch(lambda point=point: member.consumed() >= point, PROGRESS_WITHIN, stage.tend)
             time.sleep(stage.rnd.uniform(0, KILL_JITTER))  # see KILL_JITTER
-            reached = member.consumed()
             member.kill()
             member.start()
             stage.fault_over()

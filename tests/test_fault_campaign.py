@@ -10,6 +10,7 @@ which are the scenarios themselves.
 
 from __future__ import annotations
 
+import json
 from dataclasses import asdict
 
 import pytest
@@ -64,4 +65,5 @@ def test_scenario_keeps_every_promise(name, tmp_path):
             "moto", reason="a kept broker log needs moto's S3 server (pip install -e '.[test]')"
         )
     figures = SCENARIOS[name](BASKETS, SEED, tmp_path)
-    assert broken_promises(figures) == [], asdict(figures)
+    broken = broken_promises(figures)
+    assert not broken, "\n".join([*broken, json.dumps(asdict(figures))])
