@@ -18,9 +18,8 @@ import time
 
 import pytest
 
-from broker_restarts import RestartableBroker
 from brute_force import frequent_itemsets
-from kafka_broker import start_broker, stop_broker
+from kafka_broker import Broker, start_broker, stop_broker
 from processes import wait_until
 from test_kafka_run import checkouts, consumed, run_command, snapshot, start_run
 
@@ -47,17 +46,17 @@ def broker():
 
 @pytest.fixture
 def restartable():
-    """``restartable(keep_log)`` -> a :class:`RestartableBroker` of the test's own, ended
-    afterwards."""
+    """``restartable(keep_log)`` -> a broker of the test's own that it may kill and start
+    again on the same port (``Broker.restart``), with its log kept or lost; ended afterwards."""
     made = []
 
-    def make(keep_log: bool) -> RestartableBroker:
-        made.append(RestartableBroker(keep_log))
+    def make(keep_log: bool) -> Broker:
+        made.append(start_broker(kept_log=keep_log))
         return made[-1]
 
     yield make
     for broker in made:
-        broker.close()
+        stop_broker(broker)
 
 
 def stream(n, prefix):
@@ -164,18 +163,16 @@ def test_a_broker_stopped_mid_stream_resumes_by_itself_and_loses_nothing(broker,
 
 
 def test_a_broker_killed_and_restarted_with_its_log_resumes_exactly(restartable, spawn, tmp_path):
-    restarting = restartable(keep_log=True)
-    first = restarting.broker
+    first = restartable(keep_log=True)
     first.create_topic("kept", 1)
     first.create_topic("kept-dead", 1)
     dead = ["--dead-letter-out", f"kafka://{first.address}/kept-dead"]
     run = start_run(spawn, first, "kept", "g-kept", tmp_path, *WINDOW, *dead)
     producer = start_stream(first, "kept", stream(3000, "r"), tmp_path, run)
-    restarting.kill()
-    time.sleep(OUTAGE_SECONDS)  # the outage itself
+    first.restart(signal.SIGKILL, down=OUTAGE_SECONDS)  # the outage itself, then the same port and log
     at_restart = consumed(tmp_path)
     restarted = time.monotonic()
-    second = restarting.start_again()
+    second = first
     recovery = wait_for_progress(tmp_path, at_restart, run, restarted)
     baskets, bad = finish_stream(second, "kept", producer, tmp_path, run)
     err = run.stop()
@@ -189,17 +186,16 @@ def test_a_broker_killed_and_restarted_with_its_log_resumes_exactly(restartable,
 
 
 def test_a_broker_that_lost_its_log_stops_the_run_with_the_options(restartable, spawn, tmp_path):
-    restarting = restartable(keep_log=False)
-    first = restarting.broker
+    first = restartable(keep_log=False)
     first.create_topic("lost", 1)
     old = checkouts(400, seed=7, prefix="o")
     first.produce("lost", old)
     window = ["--window-size", "5000", "--tick-every", "50"]
     run = start_run(spawn, first, "lost", "g-lost", tmp_path, *window)
     wait_until(lambda: consumed(tmp_path) == 400, 60, "400 baskets consumed", run)
-    restarting.kill()
+    first.restart(signal.SIGKILL)  # in-memory storage: the log and the group's offsets are gone
     restarted = time.monotonic()
-    second = restarting.start_again()  # in-memory storage: the log and the group's offsets are gone
+    second = first
     new = checkouts(100, seed=8, prefix="n")
     second.produce("lost", new)  # the topic comes back (created on first use) with a shorter log
     code, err = run.finish(120)
