@@ -406,3 +406,14 @@ def test_origin_tags_are_checked():
         with pytest.raises(ValueError, match="origin tag"):
             miner.add(["a"], tag=bad)
     assert len(miner) == 0
+
+
+def test_withdrawal_leaves_alone_what_buffered_baskets_push_out():
+    """A stored basket that a buffered one is about to push out of a count window is not in
+    the window any more, so withdrawing its tag takes back only the buffered one."""
+    miner = WindowMiner(CountWindow(1), batch_size=2)
+    miner.add(["a"], tag=0)
+    miner.flush()
+    miner.add(["a"], tag=0)
+    assert miner.withdraw(0, 1) == 1
+    assert len(miner) == 0 and miner.mine(MiningParams(min_count=1)).itemsets == {}

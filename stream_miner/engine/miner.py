@@ -233,21 +233,17 @@ class WindowMiner:
             self._reorder_if_stale()
 
     def withdraw(self, low: int, high: int) -> int:
-        """Take back every basket whose origin tag lies in [``low``, ``high``), in the window or
-        still buffered, as if it had never been added (the next tick counts without them);
-        return how many. For a count window the freed places are filled by the next baskets
-        added, not by baskets that expired earlier."""
-        keep = [not low <= tag < high for tag in self._pending_tags]
-        taken = keep.count(False)
-        if taken:
-            self._pending = [b for b, k in zip(self._pending, keep, strict=True) if k]
-            self._pending_ts = [t for t, k in zip(self._pending_ts, keep, strict=True) if k]
-            self._pending_tags = [t for t, k in zip(self._pending_tags, keep, strict=True) if k]
+        """Take back every basket in the window whose origin tag lies in [``low``, ``high``),
+        as if it had never been added (the next tick counts without them); return how many.
+        Buffered baskets are applied first, so what they push out of a count window is not
+        taken back; the freed places are filled by the next baskets added, not by baskets
+        that expired earlier."""
+        self.flush()
         withdrawn = self.store.withdraw(low, high)
         if len(withdrawn.handles):
             self.tree.update(BasketArrays.empty(), withdrawn.handles)
             self._note_changes((withdrawn.baskets, -1))
-        return taken + len(withdrawn.handles)
+        return len(withdrawn.handles)
 
     def _note_changes(self, *changes: tuple[BasketArrays, int]) -> None:
         """Tell the tracker (if one runs) which baskets left (-1) or entered (+1) the window."""
