@@ -82,7 +82,11 @@ class SteadyProducer(threading.Thread):
         from kafka import KafkaProducer
 
         producer = KafkaProducer(
-            bootstrap_servers=self.address, acks="all", enable_idempotence=True, max_block_ms=120_000
+            bootstrap_servers=self.address,
+            acks="all",
+            enable_idempotence=True,
+            max_block_ms=120_000,
+            request_timeout_ms=3000,  # a request lost to the outage is sent again soon after it
         )
         for start in range(0, len(self.values), self.batch):
             for value in self.values[start : start + self.batch]:
