@@ -258,7 +258,6 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self.shares_partitions = True
         self.handover: Handover | None = None
         self._backlog: list[SourceRecord] = []
-        self._restart_at: dict[int, int] = {}  # partition -> where an accepted new log is read from
         self._next_offsets: dict[int, int] = {}  # per partition, after the last record read
         self._stop = stop or StopClock()
         self._accept = accept
@@ -298,22 +297,21 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         asked = {TopicPartition(self.topic, p) for p in mine | read_before}
         found = await self._consumer._coordinator.fetch_committed_offsets_async(asked)
         committed = {tp.partition: _offset(found.get(tp)) for tp in asked}
-        # a log found lost or cut at start-up and accepted: read those partitions from there
-        committed |= {p: self._restart_at.pop(p) for p in mine & set(self._restart_at)}
         starts = self.handover.on_assigned(committed, mine) if self.handover else committed
         earliest = await self._earliest({tp for tp in assigned if starts.get(tp.partition)})
         self._learn_until = {}
+        unplaced = set()
         for tp in assigned:
             start = starts.get(tp.partition)
-            if start is not None:
-                first = max(start - self._lookback, earliest.get(tp, start))
-                self._consumer.seek(tp, first)
-                if first < start:
-                    self._learn_until[tp.partition] = start
-            elif self._reset_to == "latest":
-                self._consumer.seek_to_end(tp)
-            elif self._reset_to == "earliest":
-                self._consumer.seek_to_beginning(tp)
+            if start is None:
+                unplaced.add(tp)
+                continue
+            first = max(start - self._lookback, earliest.get(tp, start))
+            self._consumer.seek(tp, first)
+            if first < start:
+                self._learn_until[tp.partition] = start
+        if unplaced and self._reset_to != "none":  # "none": the next poll says so (_reset)
+            self._reset(unplaced)
 
     async def _earliest(self, partitions: set[TopicPartition]) -> dict[TopicPartition, int]:
         """The first offset still in the log of each partition (none asked: no lookback)."""
@@ -329,12 +327,8 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             await self._consumer._coordinator._commit_offsets_sync_async(
                 self._offsets(positions), timeout_ms=int(self._stop.budget(COMMIT_TIMEOUT) * 1000)
             )
-        except REFUSALS as error:
-            _warn_uncommitted(error, "refused")
-            return CommitOutcome.REFUSED
         except KafkaError as error:
-            _warn_uncommitted(error, "unanswered")
-            return CommitOutcome.UNKNOWN
+            return _failed_commit(error)
         return CommitOutcome.ACKED
 
     def _drop_backlog(self, partitions: set[TopicPartition]) -> None:
@@ -361,7 +355,6 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             except RetriableError as error:  # the broker went away again meanwhile
                 if self._stop.wait(check.failed(describe(error))):
                     return positions
-        self._restart_at = {p: o for p, o in resume.items() if o != positions.get(p)}
         self._watch.read = dict(resume)
         return resume
 
@@ -496,12 +489,8 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             return ours, CommitOutcome.ACKED
         try:
             self._consumer.commit(self._offsets(ours))  # within COMMIT_TIMEOUT or the stop bound
-        except REFUSALS as error:  # e.g. a rebalance in progress: the next checkpoint retries
-            _warn_uncommitted(error, "refused")
-            return ours, CommitOutcome.REFUSED
-        except KafkaError as error:
-            _warn_uncommitted(error, "unanswered")
-            return ours, CommitOutcome.UNKNOWN
+        except KafkaError as error:  # e.g. a rebalance in progress: the next checkpoint retries
+            return ours, _failed_commit(error)
         return ours, CommitOutcome.ACKED
 
     def has_progress(self) -> bool:
@@ -543,10 +532,14 @@ def _offset(committed: OffsetAndMetadata | int | None) -> int | None:
     return offset if offset is not None and offset >= 0 else None
 
 
-def _warn_uncommitted(error: KafkaError, how: str) -> None:
+def _failed_commit(error: KafkaError) -> CommitOutcome:
+    """What a commit that raised ``error`` came to (a refusal, or no answer), said in a line."""
+    outcome = CommitOutcome.REFUSED if isinstance(error, REFUSALS) else CommitOutcome.UNKNOWN
+    how = "refused" if outcome is CommitOutcome.REFUSED else "unanswered"
     print(
         f"stream-miner: warning: offset commit {how} ({type(error).__name__}); "
         "the next checkpoint commits again",
         file=sys.stderr,
         flush=True,
     )
+    return outcome

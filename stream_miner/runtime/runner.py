@@ -63,6 +63,11 @@ def origin_tag(partition: int, offset: int) -> int:
     return (partition << OFFSET_BITS) | offset
 
 
+def tags_from(partition: int, offset: int) -> tuple[int, int]:
+    """The range of origin tags of ``partition`` from ``offset`` on: [low, high)."""
+    return origin_tag(partition, offset), origin_tag(partition + 1, 0)
+
+
 @dataclass(frozen=True)
 class RunSettings:
     """How the loop windows, ticks, checkpoints and mines."""
@@ -117,6 +122,7 @@ class Runner:
         self.sequence = 0  # checkpoints saved, across restarts
         self._withdrawals: list[tuple[int, int]] = []  # (partition, offset): given back, not yet withdrawn
         self.source_identity: dict[str, str] = {}  # the source's identity when the checkpoint was made
+        self._resume_at: dict[int, int] = {}  # partitions of a lost or cut log, accepted: read from here
         self.consumed = 0
         self.last_id: str | None = None
         self.newest = -math.inf
@@ -147,9 +153,10 @@ class Runner:
         """Process records until the source is exhausted or stopped; return the exit code."""
         self._restore()
         held = dict(self.ledger.held)
-        for partition, offset in self.source.seek(held, self.source_identity).items():
-            if offset != held.get(partition):  # a lost or cut log, accepted: read on from there
-                self.ledger.starts_at(partition, offset)
+        resume = self.source.seek(held, self.source_identity)
+        self._resume_at = {p: o for p, o in resume.items() if o != held.get(p)}
+        for partition, offset in self._resume_at.items():
+            self.ledger.starts_at(partition, offset)
         self.source.handover = self
         if self.talk_when_clean:
             print(f"stream-miner: reading {self.source.name}", file=self.log, flush=True)
@@ -369,6 +376,8 @@ class Runner:
         starts: dict[int, int | None] = {}
         with self._lock:
             for partition, offset in sorted(committed.items()):
+                if partition in assigned:  # an accepted new log outranks the group's offset
+                    offset = self._resume_at.pop(partition, offset)
                 boundary = self.ledger.boundary(partition, offset)
                 if boundary < self.ledger.held.get(partition, 0):
                     self._give_back(partition, boundary)
@@ -400,8 +409,7 @@ class Runner:
         the window lets go of it before the next record is taken (:meth:`_withdraw`)."""
         returned = self.ledger.give_back(partition, boundary)
         self.consumed -= returned
-        low, high = origin_tag(partition, boundary), origin_tag(partition + 1, 0)
-        self.recent.forget(low, high)
+        self.recent.forget(*tags_from(partition, boundary))
         self.waiting = [w for w in self.waiting if not (w[3] == partition and w[4] >= boundary)]
         heapq.heapify(self.waiting)
         self.dead_letters.give_back(partition, boundary)
@@ -418,7 +426,7 @@ class Runner:
         runs)."""
         with self._lock:
             for partition, boundary in self._withdrawals:
-                self.miner.withdraw(origin_tag(partition, boundary), origin_tag(partition + 1, 0))
+                self.miner.withdraw(*tags_from(partition, boundary))
             self._withdrawals.clear()
 
     # -------------------------------------------------------------- checkpoints
@@ -447,7 +455,6 @@ class Runner:
                 "source": self.source.name,
                 "source_identity": self.source.identity(),
                 "sequence": self.sequence,
-                "attempt": {str(p): o for p, o in positions.items()},
                 "ledger": self.ledger.state(),
                 "withdrawals": [list(w) for w in self._withdrawals],
                 "dead_letters": self.dead_letters.state(),
@@ -538,8 +545,8 @@ class Runner:
         if "ledger" in metadata:
             self.sequence = int(metadata["sequence"])
             self.ledger = PartitionLedger.from_state(metadata["ledger"])
-            for partition, boundary in metadata["withdrawals"]:
-                self.miner.withdraw(origin_tag(partition, boundary), origin_tag(partition + 1, 0))
+            self._withdrawals = [(int(p), int(o)) for p, o in metadata["withdrawals"]]
+            self._withdraw()
             self._take_commit_outcome(metadata)
         else:  # made by stream-miner 0.2: offsets only, taken as committed
             offsets = {int(p): int(o) for p, o in metadata["offsets"].items()}
@@ -560,25 +567,19 @@ class Runner:
         self.schedule.restored(self.miner.next_tick, self.consumed)
 
     def _take_commit_outcome(self, metadata: dict) -> None:
-        """Apply the note on the commit after the checkpoint: its outcome, and the dead letters
-        it already let out. Without a note the outcome is unknown, except for a source nobody
-        else reads, where the checkpoint alone is the record."""
+        """Apply the note on the commit of the checkpoint's positions (the ledger's ``held``):
+        its outcome, and the dead letters it already let out. Without a note the outcome is
+        unknown, except for a source nobody else reads, where the checkpoint alone is the
+        record; the letters it would have let out are written now."""
         from stream_miner.runtime.commit_note import read_note
 
         assert self.settings.checkpoint_dir is not None
-        attempt = {int(p): int(o) for p, o in metadata["attempt"].items()}
         noted = read_note(self.settings.checkpoint_dir, self.sequence)
-        letters = metadata["dead_letters"]
-        if noted is None:
-            self.dead_letters.restore(letters)
-            outcome = CommitOutcome.ACKED if not self.source.shares_partitions else CommitOutcome.UNKNOWN
-            self.ledger.outcome(attempt, outcome)
-            self.dead_letters.release(self.ledger.landed)
-            return
-        positions, outcome, written = noted
-        self.dead_letters.restore(letters, written)
+        guess = CommitOutcome.UNKNOWN if self.source.shares_partitions else CommitOutcome.ACKED
+        positions, outcome, written = noted or (dict(self.ledger.held), guess, None)
+        self.dead_letters.restore(metadata["dead_letters"], written)
         self.ledger.outcome(positions, outcome)
-        self.dead_letters.release(self.ledger.landed, write=False)  # written before the crash
+        self.dead_letters.release(self.ledger.landed, write=noted is None)  # else written before
 
     def _summarise(self) -> None:
         self.progress.close()
