@@ -9,6 +9,7 @@ from dataclasses import dataclass
 from typing import Protocol
 
 from stream_miner.decoding.records import DeadLetter, SourceRecord
+from stream_miner.drift.events import DriftEvent, PatternStatus
 from stream_miner.engine.miner import Tick
 from stream_miner.runtime.ledger import CommitOutcome
 
@@ -120,8 +121,9 @@ class DeadLetterSink(Protocol):
 
 @dataclass(frozen=True)
 class TickReport:
-    """One tick as the run loop saw it: the tick, the stream so far, and the time it took to
-    update the window (apply buffered baskets) and to refresh the result."""
+    """One tick as the run loop saw it: the tick, the stream so far, the time it took to
+    update the window (apply buffered baskets) and to refresh the result, and what the drift
+    detector found (when one runs)."""
 
     tick: Tick
     consumed: int
@@ -130,6 +132,8 @@ class TickReport:
     window_end: float | None
     window_update_seconds: float
     refresh_seconds: float
+    events: tuple[DriftEvent, ...] = ()  # drift events of this tick (with drift detection on)
+    patterns: tuple[PatternStatus, ...] = ()  # tracked patterns after this tick, by support
 
 
 class TickListener(Protocol):
