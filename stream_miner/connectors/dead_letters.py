@@ -12,12 +12,11 @@ replacement characters, at most 1000 characters). :class:`DeadLetterCounter` onl
 from __future__ import annotations
 
 import base64
-import json
 import os
-import sys
 from collections import Counter
 from typing import Self
 
+from stream_miner.connectors.json_lines import JsonLinesFile
 from stream_miner.decoding.records import DeadLetter
 
 RAW_TEXT_LIMIT = 1000
@@ -59,43 +58,28 @@ class DeadLetterFile(DeadLetterCounter):
     def __init__(self, path: str | os.PathLike[str]) -> None:
         super().__init__()
         self.path = path
-        self._file = open(path, "a", encoding="utf-8")  # noqa: SIM115 - closed by close()
+        self._lines = JsonLinesFile(path)
 
     def write(self, letter: DeadLetter) -> None:
         """Append ``letter`` as one JSON line, flush, and count it."""
-        self._file.write(json.dumps(_as_json(letter)) + "\n")
-        self._file.flush()
+        self._lines.write(_as_json(letter))
         super().write(letter)
 
     def flush(self) -> None:
         """Make what was written durable (fsync)."""
-        self._file.flush()
-        os.fsync(self._file.fileno())
+        self._lines.flush()
 
     def position(self) -> int | None:
         """The file's length in bytes."""
-        self._file.flush()
-        return os.fstat(self._file.fileno()).st_size
+        return self._lines.position()
 
     def truncate(self, position: int | None) -> None:
-        """Cut the file back to ``position`` bytes (never lengthen it: a file shorter than a
-        checkpoint says was replaced or cut outside stream-miner, and is left alone)."""
-        if position is None:
-            return
-        size = self.position() or 0
-        if size > position:
-            self._file.truncate(position)
-            self.flush()
-        elif size < position:
-            print(
-                f"stream-miner: warning: {self.path} is shorter than the checkpoint says "
-                f"({size:,} < {position:,} bytes); left as it is",
-                file=sys.stderr,
-            )
+        """Cut the file back to ``position`` bytes (see :meth:`JsonLinesFile.truncate`)."""
+        self._lines.truncate(position)
 
     def close(self) -> None:
         """Close the file."""
-        self._file.close()
+        self._lines.close()
 
 
 def _as_json(letter: DeadLetter) -> dict[str, object]:

@@ -17,7 +17,7 @@ import os
 import sys
 import threading
 from collections import Counter
-from typing import TextIO
+from typing import Any, TextIO
 
 from kafka import KafkaProducer
 from kafka.errors import KafkaTimeoutError, RetriableError, UnknownProducerIdError
@@ -97,9 +97,11 @@ class StdoutSink(JsonlSink):
         self._out.flush()
 
 
-class KafkaDeadLetters:
-    """Dead letters to a Kafka topic: the raw bytes as the value; reason, detail and origin
-    as headers; counted by reason like the file sink."""
+class _ConfirmedSends:
+    """Records to a Kafka topic, each kept until the broker confirmed it and sent again when a
+    send failed in a way that a retry can mend; subclasses say how an item becomes a record."""
+
+    what = "records"
 
     def __init__(
         self,
@@ -112,39 +114,39 @@ class KafkaDeadLetters:
         self._stop = stop or StopClock()
         self._producer, self.topic = _producer(url, options, self._stop, DEAD_LETTER_DEFAULTS)
         self.servers = parse_kafka_url(url)[0]
-        self.counts: Counter[str] = Counter()
         self._log = log
-        self._retry = Retry(f"sending dead letters to topic {self.topic}", self.servers, log)
-        self._unconfirmed: list[tuple[DeadLetter, FutureRecordMetadata | None]] = []
+        self._retry = Retry(f"sending {self.what} to topic {self.topic}", self.servers, log)
+        self._unconfirmed: list[tuple[Any, FutureRecordMetadata | None]] = []
         self._reported = 0  # how many were last reported as not sent
 
-    def write(self, letter: DeadLetter) -> None:
-        self.counts[letter.reason] += 1
-        self._unconfirmed.append((letter, self._send(letter)))
+    def _record(self, item: Any) -> tuple[bytes, bytes, list[tuple[str, bytes]]]:
+        """The key, value and headers of ``item``'s message."""
+        raise NotImplementedError
 
-    def _send(self, letter: DeadLetter) -> FutureRecordMetadata | None:
-        headers = [
-            ("reason", letter.reason.encode()),
-            ("detail", letter.detail.encode()),
-            ("source", letter.source.encode()),
-            ("partition", str(letter.partition).encode()),
-            ("offset", str(letter.offset).encode()),
-        ]
+    def _name(self, item: Any) -> str:
+        """``item`` in a warning line."""
+        raise NotImplementedError
+
+    def _enqueue(self, item: Any) -> None:
+        self._unconfirmed.append((item, self._send(item)))
+
+    def _send(self, item: Any) -> FutureRecordMetadata | None:
+        key, value, headers = self._record(item)
         try:
-            return self._producer.send(self.topic, key=letter.key.encode(), value=letter.raw, headers=headers)
+            return self._producer.send(self.topic, key=key, value=value, headers=headers)
         except KafkaTimeoutError:  # no metadata or buffer space in time: flush() sends it again
             return None
 
     def flush(self) -> None:
-        """Return once every dead letter written so far is in the topic; between attempts a
-        line says what failed and the pause grows. Once a stop was asked for, only until its
+        """Return once every record written so far is in the topic; between attempts a line
+        says what failed and the pause grows. Once a stop was asked for, only until its
         bound: then a line says how many were not sent."""
         while (problem := self._deliver()) is not None:
             if self._stop.spent():
                 if len(self._unconfirmed) != self._reported:
                     self._reported = len(self._unconfirmed)
                     print(
-                        f"stream-miner: {self._reported} dead letters not sent to topic {self.topic} "
+                        f"stream-miner: {self._reported} {self.what} not sent to topic {self.topic} "
                         f"at {self.servers} ({problem}): the stop's time bound is spent",
                         file=self._log,
                     )
@@ -156,25 +158,24 @@ class KafkaDeadLetters:
         """One attempt: send again what failed, wait for the rest; None once all are in the
         topic, else what went wrong."""
         waiting = []
-        for letter, future in self._unconfirmed:
+        for item, future in self._unconfirmed:
             if future is None or future.failed():
                 if future is not None and not isinstance(future.exception, RESEND_AFTER):
                     print(
-                        f"stream-miner: warning: dead letter from {letter.source} partition "
-                        f"{letter.partition} offset {letter.offset} not sent to topic {self.topic} "
+                        f"stream-miner: warning: {self._name(item)} not sent to topic {self.topic} "
                         f"({describe(future.exception)}); dropped",
                         file=self._log,
                     )
                     continue
-                future = self._send(letter)
-            waiting.append((letter, future))
+                future = self._send(item)
+            waiting.append((item, future))
         try:
             self._producer.flush(timeout=self._stop.budget(FLUSH_STEP))
         except KafkaTimeoutError as error:
             problem: str | None = describe(error)
         else:
             problem = None
-        self._unconfirmed = [(letter, f) for letter, f in waiting if f is None or not f.succeeded()]
+        self._unconfirmed = [(item, f) for item, f in waiting if f is None or not f.succeeded()]
         if not self._unconfirmed:
             return None
         failure = next((f.exception for _, f in self._unconfirmed if f is not None and f.failed()), None)
@@ -191,3 +192,48 @@ class KafkaDeadLetters:
         """Deliver what is left (see :meth:`flush`), then close within the stop bound."""
         self.flush()
         self._producer.close(timeout=self._stop.budget(CLOSE_TIMEOUT))
+
+
+class KafkaDeadLetters(_ConfirmedSends):
+    """Dead letters to a Kafka topic: the raw bytes as the value; reason, detail and origin
+    as headers; counted by reason like the file sink."""
+
+    what = "dead letters"
+
+    def __init__(self, url: str, options: dict[str, object] | None = None, **kwargs: Any) -> None:
+        super().__init__(url, options, **kwargs)
+        self.counts: Counter[str] = Counter()
+
+    def write(self, letter: DeadLetter) -> None:
+        self.counts[letter.reason] += 1
+        self._enqueue(letter)
+
+    def _record(self, letter: DeadLetter) -> tuple[bytes, bytes, list[tuple[str, bytes]]]:
+        headers = [
+            ("reason", letter.reason.encode()),
+            ("detail", letter.detail.encode()),
+            ("source", letter.source.encode()),
+            ("partition", str(letter.partition).encode()),
+            ("offset", str(letter.offset).encode()),
+        ]
+        return letter.key.encode(), letter.raw, headers
+
+    def _name(self, letter: DeadLetter) -> str:
+        return f"dead letter from {letter.source} partition {letter.partition} offset {letter.offset}"
+
+
+class KafkaEvents(_ConfirmedSends):
+    """Drift events to a Kafka topic: the event's JSON as the value, its id as the key (so a
+    compacted topic or a reader can drop a repeat) and its kind as a header."""
+
+    what = "drift events"
+
+    def write(self, event: dict) -> None:
+        self._enqueue(event)
+
+    def _record(self, event: dict) -> tuple[bytes, bytes, list[tuple[str, bytes]]]:
+        value = json.dumps(event, ensure_ascii=False, allow_nan=False).encode()
+        return str(event["id"]).encode(), value, [("event", str(event["event"]).encode())]
+
+    def _name(self, event: dict) -> str:
+        return f"event {event['id']}"

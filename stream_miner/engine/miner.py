@@ -301,6 +301,31 @@ class WindowMiner:
         found = self._mine_tree(params, names, min_count, interrupt)
         return self._result(found, min_count, params, names, interrupt)
 
+    def count(self, itemsets: Sequence[Sequence[str]]) -> list[int]:
+        """The exact number of baskets in the window holding each itemset (item names; an
+        unknown name counts 0). One pass over the window's items, then set intersections."""
+        self.flush()
+        ids = [[self.vocabulary.lookup(name) for name in itemset] for itemset in itemsets]
+        wanted = sorted({i for row in ids for i in row if i is not None})
+        if not wanted:
+            return [0 if row else len(self.store) for row in ids]
+        baskets = self.store.contents()[0]
+        mask = np.isin(baskets.items, wanted)
+        items, rows = baskets.items[mask], baskets.row_of_items()[mask]
+        holding = {i: rows[items == i] for i in wanted}  # basket rows, ascending, each once
+        counts = []
+        for row in ids:
+            if not row:
+                counts.append(len(self.store))
+            elif None in row:
+                counts.append(0)
+            else:
+                found = holding[row[0]]  # type: ignore[index]
+                for item in row[1:]:
+                    found = np.intersect1d(found, holding[item], assume_unique=True)  # type: ignore[index]
+                counts.append(int(found.size))
+        return counts
+
     def _mine_tree(
         self, params: MiningParams, names: Sequence[str], min_count: int, interrupt: threading.Event | None
     ) -> dict[Itemset, int]:

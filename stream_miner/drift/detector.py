@@ -1,0 +1,487 @@
+"""The drift detector: fed every tick, it reports the co-purchase patterns that emerged or
+faded, each once, and only when the change is statistically real.
+
+Per pattern (see :mod:`stream_miner.drift.patterns`) a lifecycle runs: not tracked ->
+rising -> active -> falling -> gone. A pattern starts rising when it passes the enter
+thresholds, and becomes active after ``confirm_ticks`` consecutive ticks above them *and* a
+significant rise against the baseline (:mod:`stream_miner.drift.baseline`): an ``emerged``
+event. An active pattern starts falling when it drops below the exit thresholds (a lower
+band, ``exit_fraction`` of the enter ones), and is gone after ``confirm_ticks`` ticks below
+them *and* a significant fall: a ``faded`` event. A pattern that drops back before its
+confirmation changes nothing, so one hovering at a threshold never flaps. A move that stays
+insignificant for a whole window completes silently (no event): the pattern came or went
+too gradually to call.
+
+Significance at a tick: a rise needs both the support (two-proportion z-test) and the
+association of the pattern's weakest split (log odds ratio test) to grow, so a single item
+that gets popular raises nothing; a fall needs the support to drop (a stock-out that breaks
+a pairing counts). The p-values of every move tested at the tick are adjusted together
+(Benjamini-Hochberg) and compared with ``false_discovery_rate``; as a move may be tested
+at every tick of a window, its p-value is first multiplied by the ticks in a window
+(Bonferroni's bound over those repeated looks). A move whose pattern holds a
+smaller pattern making the same move (now, or within the last window) is folded into that
+one: one event per real change.
+
+Warm-up: until the window is full for the first time nothing is reported; the patterns
+present then are the baseline (active, no event).
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from fractions import Fraction
+from itertools import combinations
+
+from stream_miner.drift.baseline import POLICIES, Decayed, Recorded
+from stream_miner.drift.events import (
+    ACTIVE,
+    EMERGED,
+    FADED,
+    FALLING,
+    RISING,
+    Baseline,
+    DriftEvent,
+    PatternStatus,
+    WindowInfo,
+)
+from stream_miner.drift.patterns import Figures, Names, Thresholds, figures, splits
+from stream_miner.drift.significance import DOWN, UP, benjamini_hochberg, odds_ratio_p, proportion_p
+from stream_miner.engine.miner import Tick
+from stream_miner.engine.rules import Rule
+
+STATE_VERSION = 1
+MAX_PATTERN_SIZE = 8  # the hard cap on ``max_size``: checking a pattern's splits costs 2^size
+
+
+@dataclass(frozen=True)
+class DriftSettings:
+    """How the detector decides. ``min_confidence`` and ``min_lift`` are the enter thresholds
+    of a pattern's rules (the support threshold is the tick's own); the exit thresholds are
+    ``exit_fraction`` of them (lift: 1 + fraction x (lift - 1)). ``baseline`` is a policy of
+    :mod:`stream_miner.drift.baseline` (``half_life`` in windows, for ``decayed``)."""
+
+    min_confidence: Fraction = Fraction(0)
+    min_lift: Fraction = Fraction(1)
+    exit_fraction: Fraction = Fraction(4, 5)
+    confirm_ticks: int = 2
+    false_discovery_rate: float = 0.01
+    baseline: str = "previous"
+    half_life: float = 4.0
+    max_size: int = 4
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "min_confidence", Fraction(self.min_confidence))
+        object.__setattr__(self, "min_lift", Fraction(self.min_lift))
+        object.__setattr__(self, "exit_fraction", Fraction(self.exit_fraction))
+        if not 0 < self.exit_fraction <= 1:
+            raise ValueError(f"the exit fraction must lie in (0, 1], got {float(self.exit_fraction)}")
+        if not 0 <= self.min_confidence <= 1 or self.min_lift < 0:
+            raise ValueError("min_confidence must lie in [0, 1] and min_lift must not be negative")
+        if (
+            isinstance(self.confirm_ticks, bool)
+            or not isinstance(self.confirm_ticks, int)
+            or self.confirm_ticks < 1
+        ):
+            raise ValueError(
+                f"confirm ticks must be a whole number of at least 1, got {self.confirm_ticks!r}"
+            )
+        if not 0 < self.false_discovery_rate < 1:
+            raise ValueError(f"the false discovery rate must lie in (0, 1), got {self.false_discovery_rate}")
+        if self.baseline not in POLICIES:
+            raise ValueError(f"unknown baseline {self.baseline!r}; choose from {', '.join(POLICIES)}")
+        if not self.half_life > 0:
+            raise ValueError(f"the half-life must be positive, got {self.half_life}")
+        if not 2 <= self.max_size <= MAX_PATTERN_SIZE:
+            raise ValueError(f"the pattern size must lie in [2, {MAX_PATTERN_SIZE}], got {self.max_size}")
+
+
+@dataclass(frozen=True)
+class WindowView:
+    """Where the window of a tick lies: ``start`` and ``end`` in basket numbers (a count
+    window: the baskets taken so far minus the window size, and that count) or in event time;
+    ``full`` once it has held a whole window length; ``info`` for the events."""
+
+    start: float
+    end: float
+    full: bool
+    info: WindowInfo
+
+
+@dataclass
+class _Tracked:
+    """One pattern's place in its lifecycle: the state, how many ticks in a row the pending
+    move held, where the window ended when the move began, and its latest figures (for a
+    falling pattern, the rules it had when last active)."""
+
+    state: str
+    streak: int
+    since: float
+    count: int
+    n_baskets: int
+    confidence: float
+    lift: float
+    rules: tuple[Rule, ...] = ()
+
+
+@dataclass(frozen=True)
+class _Move:
+    items: Names
+    kind: str
+    figures: Figures
+    p_value: float
+    baseline: Baseline
+
+
+@dataclass
+class DriftDetector:
+    """Feed :meth:`update` every tick; it returns the tick's events. :meth:`state` and
+    :meth:`restored` carry the whole detector across restarts (checkpoints)."""
+
+    settings: DriftSettings = field(default_factory=DriftSettings)
+    emerged_total: int = 0
+    faded_total: int = 0
+    baseline_tick: int | None = None  # the tick whose window was the first full one
+    _tracked: dict[Names, _Tracked] = field(default_factory=dict)
+    _history: list[Recorded] = field(default_factory=list)
+    _reference: Recorded | None = None
+    _decayed: Decayed | None = None
+    _recent: dict[tuple[Names, str], float] = field(default_factory=dict)  # (items, kind) -> window end
+
+    # ------------------------------------------------------------------ ticks
+    def update(
+        self, tick: Tick, window: WindowView, count: Callable[[Sequence[Names]], list[int]] | None = None
+    ) -> list[DriftEvent]:
+        """The events of ``tick`` (whose window lies at ``window``). ``count`` gives exact
+        window counts of itemsets below the support threshold (patterns being watched that
+        left the result); without it they count as just below it."""
+        result = tick.result
+        n = result.n_baskets
+        counts = self._counts_of(result.itemsets, result.min_count, count)
+        enter = Thresholds(result.min_count, self.settings.min_confidence, self.settings.min_lift)
+        leave = enter.lowered(self.settings.exit_fraction)
+        found = self._figures(result.itemsets, counts, n, leave)
+        recorded = Recorded(
+            tick.number, window.start, window.end, n, result.min_count, self._sized(result.itemsets)
+        )
+        if self.baseline_tick is None:
+            self._warm_up(found, enter, window, recorded, tick.number)
+            return []
+        moves = self._step(found, enter, leave, window)
+        events = self._report(moves, tick.number, window)
+        self._remember(recorded, window)
+        return events
+
+    def _counts_of(
+        self,
+        itemsets: dict[Names, int],
+        min_count: int,
+        count: Callable[[Sequence[Names]], list[int]] | None,
+    ) -> Callable[[Names], int]:
+        """Exact counts: from the result, else counted in the window in one go for every
+        watched pattern that left it (and its parts), else the bound below the threshold."""
+        wanted = {
+            part
+            for items in self._tracked
+            if items not in itemsets
+            for size in range(1, len(items) + 1)
+            for part in _subsets(items, size)
+            if part not in itemsets
+        }
+        extra: dict[Names, int] = {}
+        if wanted and count is not None:
+            ordered = sorted(wanted)
+            extra = dict(zip(ordered, count(ordered), strict=True))
+        fallback = max(0, min_count - 1)
+        return lambda items: itemsets.get(items, extra.get(items, fallback))
+
+    def _figures(
+        self, itemsets: dict[Names, int], count_of: Callable[[Names], int], n: int, leave: Thresholds
+    ) -> dict[Names, Figures]:
+        """Figures of every itemset that could be a pattern at the exit bar: the result's
+        itemsets of pattern size, and every watched pattern."""
+        found: dict[Names, Figures] = {}
+        floor = max(leave.min_lift, Fraction(1))
+        for items in [*itemsets, *self._tracked]:
+            if not 2 <= len(items) <= self.settings.max_size or items in found:
+                continue
+            left, right = next(splits(items))  # a quick look at one split before all of them
+            expected = floor.numerator * count_of(left) * count_of(right)
+            below = count_of(items) * n * floor.denominator <= expected
+            if below and items not in self._tracked:
+                continue
+            found[items] = figures(items, n, count_of, self.settings.min_confidence)
+        return found
+
+    def _sized(self, itemsets: dict[Names, int]) -> dict[Names, int]:
+        limit = self.settings.max_size
+        return {items: c for items, c in itemsets.items() if len(items) <= limit}
+
+    def _warm_up(
+        self,
+        found: dict[Names, Figures],
+        enter: Thresholds,
+        window: WindowView,
+        recorded: Recorded,
+        tick: int,
+    ) -> None:
+        """Before the first full window: the patterns present become the baseline, silently."""
+        self._tracked = {
+            items: _tracked(ACTIVE, 0, window.end, fig) for items, fig in found.items() if fig.passes(enter)
+        }
+        if window.full:
+            self.baseline_tick = tick
+            self._reference = recorded
+            self._history = [recorded]
+            if self.settings.baseline == "decayed":
+                self._decayed = Decayed(0.5 ** (1.0 / self.settings.half_life))
+                self._decayed.fold(recorded)
+
+    def _step(
+        self, found: dict[Names, Figures], enter: Thresholds, leave: Thresholds, window: WindowView
+    ) -> list[_Move]:
+        """Advance every lifecycle by this tick's figures; return the moves due for a test."""
+        due: list[tuple[Names, str, Figures]] = []
+        for items, fig in found.items():
+            if items not in self._tracked and fig.passes(enter):
+                self._tracked[items] = _tracked(RISING, 0, window.end, fig)
+        for items, pattern in list(self._tracked.items()):
+            fig = found[items]  # every watched pattern has figures (see _figures)
+            if pattern.state == RISING:
+                if not fig.passes(enter):
+                    del self._tracked[items]
+                    continue
+                pattern.streak += 1
+                _refresh(pattern, fig, keep_rules=False)
+                if pattern.streak >= self.settings.confirm_ticks:
+                    due.append((items, EMERGED, fig))
+            elif pattern.state == ACTIVE:
+                if fig.passes(leave):
+                    _refresh(pattern, fig, keep_rules=False)
+                else:
+                    pattern.state, pattern.streak, pattern.since = FALLING, 0, window.end
+            if pattern.state == FALLING:
+                if fig.passes(leave):
+                    pattern.state, pattern.streak = ACTIVE, 0
+                    _refresh(pattern, fig, keep_rules=False)
+                    continue
+                pattern.streak += 1
+                _refresh(pattern, fig, keep_rules=True)
+                if pattern.streak >= self.settings.confirm_ticks:
+                    due.append((items, FADED, fig))
+        return self._tested(due, window)
+
+    def _tested(self, due: list[tuple[Names, str, Figures]], window: WindowView) -> list[_Move]:
+        """The due moves that are significant at the false discovery rate (Benjamini-Hochberg
+        over all of them). A due move that stayed insignificant for a whole window completes
+        silently."""
+        tests = [(items, kind, fig, *self._evidence(items, kind, fig)) for items, kind, fig in due]
+        looks = self._looks_per_window(window)
+        adjusted = benjamini_hochberg([min(1.0, p * looks) for *_, p, _ in tests])
+        moves = []
+        for (items, kind, fig, _, baseline), p in zip(tests, adjusted, strict=True):
+            if p <= self.settings.false_discovery_rate:
+                moves.append(_Move(items, kind, fig, p, baseline))
+            elif window.start >= self._tracked[items].since:  # a whole window went by
+                self._complete(items, kind)
+        return moves
+
+    def _looks_per_window(self, window: WindowView) -> int:
+        """How many ticks fall in one window length: how often one move may be tested before
+        it completes silently (its p-values are multiplied by this, Bonferroni's bound)."""
+        last = self._history[-1].end if self._history else window.start
+        step = window.end - last
+        return max(1, round((window.end - window.start) / step)) if step > 0 else 1
+
+    def _evidence(self, items: Names, kind: str, fig: Figures) -> tuple[float, Baseline]:
+        """The p-value of ``kind`` for ``items`` against the baseline, and the baseline's figures."""
+        look = self._baseline_count()
+        n0 = self._baseline_size()
+        c0, exact = look(items)
+        if kind == FADED:
+            p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, DOWN) if exact else 1.0
+        else:
+            p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, UP)
+            left, right, n_left, n_right = fig.weakest
+            (l0, l_exact), (r0, r_exact) = look(left), look(right)
+            if l_exact and r_exact:  # else a part was rare in the baseline: no association to compare
+                before = (round(c0), round(l0), round(r0), round(n0))
+                p = max(p, odds_ratio_p(before, (fig.count, n_left, n_right, fig.n_baskets), UP))
+        return p, self._baseline_figures(items, c0, exact, n0, look)
+
+    def _baseline_count(self) -> Callable[[Names], tuple[float, bool]]:
+        if self.settings.baseline == "decayed" and self._decayed is not None:
+            return self._decayed.count
+        return self._baseline_window().count
+
+    def _baseline_size(self) -> float:
+        if self.settings.baseline == "decayed" and self._decayed is not None:
+            return self._decayed.n_baskets
+        return self._baseline_window().n_baskets
+
+    def _baseline_window(self) -> Recorded:
+        """The recorded window the current one is compared with (see the module's policies)."""
+        assert self._reference is not None
+        if self.settings.baseline == "reference" or not self._history:
+            return self._reference
+        return self._history[0]
+
+    def _baseline_figures(
+        self, items: Names, c0: float, exact: bool, n0: float, look: Callable[[Names], tuple[float, bool]]
+    ) -> Baseline:
+        """The baseline's count, and its confidence and lift where every count is exact."""
+        if not exact or not n0:
+            return Baseline(round(c0), round(n0), None, None, exact)
+        confidence, lift = 0.0, None
+        for left, right in splits(items):
+            (cl, el), (cr, er) = look(left), look(right)
+            if not (el and er) or not cl or not cr:
+                return Baseline(round(c0), round(n0), None, None, exact)
+            confidence = max(confidence, c0 / cl, c0 / cr)
+            split_lift = c0 * n0 / (cl * cr)
+            lift = split_lift if lift is None else min(lift, split_lift)
+        return Baseline(round(c0), round(n0), confidence, lift, exact)
+
+    def _report(self, moves: list[_Move], tick: int, window: WindowView) -> list[DriftEvent]:
+        """Events for the significant moves, smallest patterns first; a move whose pattern
+        holds a smaller one making the same move (now, or within the last window) is folded
+        into that one's event."""
+        events = []
+        moving = {(m.items, m.kind) for m in moves}
+        for move in sorted(moves, key=lambda m: (len(m.items), m.items)):
+            folded = any(
+                (part, move.kind) in moving
+                or self._recent.get((part, move.kind), -float("inf")) > window.start
+                for size in range(2, len(move.items))
+                for part in _subsets(move.items, size)
+            )
+            pattern = self._tracked[move.items]
+            rules = move.figures.rules if move.kind == EMERGED else pattern.rules
+            self._complete(move.items, move.kind)
+            if folded:
+                continue
+            self._recent[(move.items, move.kind)] = window.end
+            if move.kind == EMERGED:
+                self.emerged_total += 1
+            else:
+                self.faded_total += 1
+            events.append(
+                DriftEvent(
+                    kind=move.kind,
+                    id=event_id(move.kind, tick, move.items),
+                    tick=tick,
+                    items=move.items,
+                    rules=tuple(sorted(rules, key=lambda r: (-r.confidence, r.antecedent))),
+                    count=move.figures.count,
+                    n_baskets=move.figures.n_baskets,
+                    baseline=move.baseline,
+                    p_value=move.p_value,
+                    window=window.info,
+                )
+            )
+        return events
+
+    def _complete(self, items: Names, kind: str) -> None:
+        """Finish a move: a rising pattern becomes active, a falling one is gone."""
+        if kind == EMERGED:
+            pattern = self._tracked[items]
+            pattern.state, pattern.streak = ACTIVE, 0
+        else:
+            del self._tracked[items]
+
+    def _remember(self, recorded: Recorded, window: WindowView) -> None:
+        """Keep the recorded windows that may still serve as a baseline: the newest one that
+        ends at or before the current start, and every later one."""
+        self._history.append(recorded)
+        decayed = self._decayed
+        if decayed is not None:  # fold the disjoint windows in turn, each after the last folded
+            for old in self._history:
+                if old.end <= window.start and old.start >= decayed.end:
+                    decayed.fold(old)
+        while len(self._history) > 1 and self._history[1].end <= window.start:
+            self._history.pop(0)
+        cutoff = window.start
+        self._recent = {key: end for key, end in self._recent.items() if end > cutoff}
+
+    # ------------------------------------------------------------------ reads
+    def patterns(self) -> list[PatternStatus]:
+        """Every tracked pattern, by support (then items)."""
+        statuses = [
+            PatternStatus(items, p.state, p.count, p.n_baskets, p.confidence, p.lift)
+            for items, p in self._tracked.items()
+        ]
+        return sorted(statuses, key=lambda s: (-s.support, s.items))
+
+    @property
+    def active_count(self) -> int:
+        """Patterns reported (or part of the baseline) and not gone: active or falling."""
+        return sum(1 for p in self._tracked.values() if p.state in (ACTIVE, FALLING))
+
+    # ------------------------------------------------------------------ persistence
+    def state(self) -> dict:
+        """The detector as JSON-ready data (for a checkpoint)."""
+        return {
+            "version": STATE_VERSION,
+            "emerged_total": self.emerged_total,
+            "faded_total": self.faded_total,
+            "baseline_tick": self.baseline_tick,
+            "tracked": [[list(items), _tracked_state(p)] for items, p in self._tracked.items()],
+            "history": [r.state() for r in self._history],
+            "reference": None if self._reference is None else self._reference.state(),
+            "decayed": None if self._decayed is None else self._decayed.state(),
+            "recent": [[list(items), kind, end] for (items, kind), end in self._recent.items()],
+        }
+
+    @classmethod
+    def restored(cls, state: dict, settings: DriftSettings) -> DriftDetector:
+        """A detector holding ``state`` (from :meth:`state`), deciding by ``settings``."""
+        if state.get("version") != STATE_VERSION:
+            raise ValueError(f"drift state version {state.get('version')!r} is not {STATE_VERSION}")
+        detector = cls(settings, int(state["emerged_total"]), int(state["faded_total"]))
+        detector.baseline_tick = None if state["baseline_tick"] is None else int(state["baseline_tick"])
+        detector._tracked = {tuple(items): _tracked_from(entry) for items, entry in state["tracked"]}
+        detector._history = [Recorded.from_state(entry) for entry in state["history"]]
+        if state["reference"] is not None:
+            detector._reference = Recorded.from_state(state["reference"])
+        if state["decayed"] is not None:
+            detector._decayed = Decayed.from_state(state["decayed"])
+        detector._recent = {(tuple(items), str(kind)): float(end) for items, kind, end in state["recent"]}
+        return detector
+
+
+def event_id(kind: str, tick: int, items: Names) -> str:
+    """A deterministic event id: the kind, the tick and a digest of the items."""
+    digest = hashlib.sha1("\x1f".join(items).encode()).hexdigest()[:12]
+    return f"{kind}-{tick}-{digest}"
+
+
+def _subsets(items: Names, size: int) -> list[Names]:
+    return list(combinations(items, size))
+
+
+def _tracked(state: str, streak: int, since: float, fig: Figures) -> _Tracked:
+    pattern = _Tracked(state, streak, since, 0, 0, 0.0, 0.0)
+    _refresh(pattern, fig, keep_rules=False)
+    return pattern
+
+
+def _refresh(pattern: _Tracked, fig: Figures, *, keep_rules: bool) -> None:
+    pattern.count, pattern.n_baskets = fig.count, fig.n_baskets
+    pattern.confidence, pattern.lift = float(fig.confidence), float(fig.lift)
+    if not keep_rules:
+        pattern.rules = fig.rules
+
+
+def _tracked_state(p: _Tracked) -> list:
+    rules = [[list(r.antecedent), list(r.consequent), r.count, r.antecedent_count, r.consequent_count,
+              r.n_baskets] for r in p.rules]  # fmt: skip
+    return [p.state, p.streak, p.since, p.count, p.n_baskets, p.confidence, p.lift, rules]
+
+
+def _tracked_from(entry: list) -> _Tracked:
+    state, streak, since, count, n, confidence, lift, rules = entry
+    return _Tracked(
+        str(state), int(streak), float(since), int(count), int(n), float(confidence), float(lift),
+        tuple(Rule(tuple(a), tuple(c), int(k), int(na), int(nc), int(nn)) for a, c, k, na, nc, nn in rules),
+    )  # fmt: skip

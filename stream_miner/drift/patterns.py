@@ -1,0 +1,118 @@
+"""Which itemsets are co-purchase patterns, and their figures.
+
+A pattern is an itemset of two or more items that is **productive**: for every way of
+splitting it into two non-empty parts P and Q, the parts occur together more often than
+chance, with lift(P -> Q) = n(PQ) N / (n(P) n(Q)) at least the lift threshold (and above 1).
+This is the lift-based form of Webb's productivity ("Self-sufficient itemsets", ACM TKDD 2010)
+and plays the part of minimum improvement (Bayardo, Agrawal & Gunopulos 1999): a bundle
+{a, b} seen with an unrelated popular item c makes {a, b, c} frequent, but the split
+{a, b} | {c} has lift near 1, so {a, b, c} is no pattern of its own and raises no event.
+The pattern's lift is its weakest split's lift. Its rules are the splits A -> C whose
+confidence passes the threshold and that beat every rule A' -> C with a smaller antecedent
+(improvement above 0).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from fractions import Fraction
+from itertools import combinations
+
+from stream_miner.engine.rules import Rule
+
+Names = tuple[str, ...]
+CountOf = Callable[[Names], int]
+
+
+@dataclass(frozen=True)
+class Thresholds:
+    """A pattern's bar: at least ``min_count`` baskets, confidence of its best rule at least
+    ``min_confidence``, every split's lift at least ``min_lift`` (and above 1)."""
+
+    min_count: int
+    min_confidence: Fraction
+    min_lift: Fraction
+
+    def lowered(self, fraction: Fraction) -> Thresholds:
+        """The exit bar of the hysteresis band: count and confidence times ``fraction``,
+        lift 1 + ``fraction`` x (lift - 1) (lift's neutral point is 1, not 0)."""
+        return Thresholds(
+            min_count=max(1, -(-self.min_count * fraction.numerator // fraction.denominator)),
+            min_confidence=self.min_confidence * fraction,
+            min_lift=1 + fraction * (self.min_lift - 1) if self.min_lift > 1 else self.min_lift,
+        )
+
+
+@dataclass(frozen=True)
+class Figures:
+    """An itemset's counts now: baskets holding it, the window size, its weakest split (the
+    two parts and their counts) with that split's lift, its best rule's confidence (exact
+    fractions), whether any of its rules improves on a smaller rule, and the rules worth
+    reporting (improving, and confident enough)."""
+
+    count: int
+    n_baskets: int
+    lift: Fraction
+    confidence: Fraction
+    weakest: tuple[Names, Names, int, int]
+    improves: bool
+    rules: tuple[Rule, ...]
+
+    def passes(self, bar: Thresholds) -> bool:
+        return (
+            self.count >= bar.min_count
+            and self.lift > 1
+            and self.lift >= bar.min_lift
+            and self.confidence >= bar.min_confidence
+            and self.improves
+        )
+
+
+def splits(items: Names) -> Iterator[tuple[Names, Names]]:
+    """Every split of ``items`` into two non-empty parts, each once (the part holding the
+    first item comes first)."""
+    first, rest = items[0], items[1:]
+    for k in range(len(rest)):
+        for chosen in combinations(rest, k):
+            left = (first, *chosen)
+            yield left, tuple(i for i in items if i not in left)
+
+
+def figures(items: Names, n_baskets: int, count_of: CountOf, min_confidence: Fraction) -> Figures:
+    """The figures of ``items`` (sorted, two or more) in a window of ``n_baskets``, with
+    ``count_of`` giving the exact count of it and of each of its subsets; the rules listed
+    are those with confidence at least ``min_confidence``."""
+    count = count_of(items)
+    weakest: tuple[Fraction, Names, Names, int, int] | None = None
+    confidence = Fraction(0)
+    improving: list[Rule] = []
+    for left, right in splits(items):
+        n_left, n_right = count_of(left), count_of(right)
+        split_lift = Fraction(count * n_baskets, n_left * n_right) if n_left and n_right else Fraction(0)
+        if weakest is None or split_lift < weakest[0]:
+            weakest = (split_lift, left, right, n_left, n_right)
+        for antecedent, consequent, n_a, n_c in (
+            (left, right, n_left, n_right),
+            (right, left, n_right, n_left),
+        ):
+            if n_a:
+                confidence = max(confidence, Fraction(count, n_a))
+                rule = Rule(antecedent, consequent, count, n_a, n_c, n_baskets)
+                if _improves(rule, count_of):
+                    improving.append(rule)
+    assert weakest is not None, "a pattern has two or more items"
+    lift, left, right, n_left, n_right = weakest
+    rules = tuple(r for r in improving if Fraction(r.count, r.antecedent_count) >= min_confidence)
+    return Figures(count, n_baskets, lift, confidence, (left, right, n_left, n_right), bool(improving), rules)
+
+
+def _improves(rule: Rule, count_of: CountOf) -> bool:
+    """Whether ``rule`` is more confident than every rule with the same consequent and an
+    antecedent that is a proper non-empty subset of its own."""
+    for k in range(1, len(rule.antecedent)):
+        for smaller in combinations(rule.antecedent, k):
+            together = tuple(sorted(smaller + rule.consequent))
+            if rule.count * count_of(smaller) <= count_of(together) * rule.antecedent_count:
+                return False
+    return True

@@ -1,0 +1,1 @@
+"""Generated basket streams with planted changes and their ground truth."""
