@@ -206,7 +206,7 @@ def run_settings(args: argparse.Namespace, **more: Any) -> RunSettings:
     """The loop settings the shared options ask for; ``more`` adds a command's own."""
     return RunSettings(
         window=window_of(args),
-        params=mining_params(args),
+        params=mining_params(args, drift=more.get("drift") is not None),
         policy=basket_policy(args),
         allowed_lateness=args.allowed_lateness,
         drop_late=args.late == "drop",
@@ -215,16 +215,17 @@ def run_settings(args: argparse.Namespace, **more: Any) -> RunSettings:
     )
 
 
-def mining_params(args: argparse.Namespace) -> MiningParams:
-    """The mining parameters the options ask for."""
+def mining_params(args: argparse.Namespace, *, drift: bool = False) -> MiningParams:
+    """The mining parameters the options ask for (with ``drift``, --min-confidence and
+    --min-lift are the drift detector's thresholds even without --rules)."""
     rules = None
     if args.rules:
         rules = rule_filter(args)
     elif any(
         v is not None
         for v in (
-            args.min_confidence,
-            args.min_lift,
+            None if drift else args.min_confidence,
+            None if drift else args.min_lift,
             args.max_antecedent,
             args.max_consequent,
             args.antecedent_item,
@@ -233,7 +234,7 @@ def mining_params(args: argparse.Namespace) -> MiningParams:
             args.rank_by,
         )
     ):
-        raise UsageError("rule options need --rules")
+        raise UsageError("rule options need --rules" + ("" if drift else " (or --events-out)"))
     min_support = args.min_support
     if min_support is None and args.min_count is None:
         min_support = Fraction(1, 100)

@@ -8,6 +8,12 @@ from contextlib import ExitStack, closing
 from pathlib import Path
 from typing import Any
 
+from stream_miner.cli.drift_options import (
+    add_drift_options,
+    check_events_out,
+    drift_settings,
+    events_sink,
+)
 from stream_miner.cli.options import (
     UsageError,
     add_input_options,
@@ -84,6 +90,7 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
     )
     add_window_options(run, wall_clock=True)
     add_mining_options(run)
+    add_drift_options(run)
     state = run.add_argument_group("state and output")
     state.add_argument("--checkpoint-dir", type=Path, metavar="DIR", help="where checkpoints are kept")
     state.add_argument(
@@ -175,6 +182,9 @@ def run_run(args: argparse.Namespace) -> int:
         try:
             source = resources.enter_context(closing(_source(args, stop)))
             dead_letters = resources.enter_context(closing(_dead_letters(args, stop)))
+            events = events_sink(args, stop)
+            if events is not None:
+                resources.enter_context(closing(events))
         except StoppedWaiting:
             return 0  # stopped while waiting for a broker to answer
         listeners: list[TickListener] = []
@@ -182,7 +192,7 @@ def run_run(args: argparse.Namespace) -> int:
             listeners.append(SnapshotWriter(args.snapshot_out))
         if not args.quiet:
             listeners.append(TickLine(sys.stderr))
-        runner = Runner(settings, source, dead_letters, listeners)
+        runner = Runner(settings, source, dead_letters, listeners, events=events)
 
         def stop_both() -> None:
             stop.set()  # starts the clock: waits for brokers get what is left of --stop-within
@@ -207,6 +217,7 @@ def _settings(args: argparse.Namespace) -> RunSettings:
         checkpoint_dir=args.checkpoint_dir,
         checkpoint_interval=args.checkpoint_interval,
         start_fresh=args.start_fresh or args.accept_new_log,
+        drift=drift_settings(args),
     )
 
 
@@ -219,6 +230,7 @@ def _check_outputs(args: argparse.Namespace) -> None:
     target = args.dead_letter_out
     if target is not None and not target.startswith("kafka://"):
         check_output_file(Path(target), "--dead-letter-out")
+    check_events_out(args)
 
 
 def _dead_letters(args: argparse.Namespace, stop: StopClock) -> DeadLetterSink:

@@ -29,6 +29,7 @@ present then are the baseline (active, no event).
 from __future__ import annotations
 
 import hashlib
+import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from fractions import Fraction
@@ -46,7 +47,7 @@ from stream_miner.drift.events import (
     PatternStatus,
     WindowInfo,
 )
-from stream_miner.drift.patterns import Figures, Names, Thresholds, figures, splits
+from stream_miner.drift.patterns import CountOf, Figures, Names, Thresholds, figures, lift_without, splits
 from stream_miner.drift.significance import DOWN, UP, benjamini_hochberg, odds_ratio_p, proportion_p
 from stream_miner.engine.miner import Tick
 from stream_miner.engine.rules import Rule
@@ -125,6 +126,9 @@ class _Tracked:
     rules: tuple[Rule, ...] = ()
 
 
+_IDLE = _Tracked("", 0, 0.0, 0, 0, 0.0, 0.0)  # stands in for a pattern not tracked
+
+
 @dataclass(frozen=True)
 class _Move:
     items: Names
@@ -169,7 +173,7 @@ class DriftDetector:
             self._warm_up(found, enter, window, recorded, tick.number)
             return []
         moves = self._step(found, enter, leave, window)
-        events = self._report(moves, tick.number, window)
+        events = self._report(moves, tick.number, window, counts, leave)
         self._remember(recorded, window)
         return events
 
@@ -343,35 +347,54 @@ class DriftDetector:
             lift = split_lift if lift is None else min(lift, split_lift)
         return Baseline(round(c0), round(n0), confidence, lift, exact)
 
-    def _report(self, moves: list[_Move], tick: int, window: WindowView) -> list[DriftEvent]:
-        """Events for the significant moves, smallest patterns first; a move whose pattern
-        holds a smaller one making the same move (now, or within the last window) is folded
-        into that one's event."""
+    def _report(
+        self, moves: list[_Move], tick: int, window: WindowView, count_of: CountOf, leave: Thresholds
+    ) -> list[DriftEvent]:
+        """Events for the significant moves: one per real change. Two patterns, one inside the
+        other, making the same move are one change. The smaller is only a part of the larger
+        when it is not productive in the baskets that lack the larger's other items (Webb's
+        independent productivity, "Self-sufficient itemsets", ACM TKDD 2010): then the larger
+        pattern's event tells it (the smaller waits while the larger still rises or falls).
+        Otherwise the smaller pattern is the change and the larger one's move is folded
+        into it."""
+        floor = max(leave.min_lift, Fraction(1))
+        n = window.info.size
+
+        def explains(whole: Names, part: Names) -> bool:
+            return not lift_without(part, whole, n, count_of) > floor
+
         events = []
-        moving = {(m.items, m.kind) for m in moves}
-        for move in sorted(moves, key=lambda m: (len(m.items), m.items)):
-            folded = any(
-                (part, move.kind) in moving
-                or self._recent.get((part, move.kind), -float("inf")) > window.start
-                for size in range(2, len(move.items))
-                for part in _subsets(move.items, size)
+        for move in sorted(moves, key=lambda m: (-len(m.items), m.items)):
+            kind, items = move.kind, move.items
+            pending = RISING if kind == EMERGED else FALLING
+            larger = [
+                (whole, self._moved(whole, kind, moves, window))
+                for whole in self._neighbours(items, kind, moves, bigger=True)
+                if self._moved(whole, kind, moves, window) or self._tracked.get(whole, _IDLE).state == pending
+            ]
+            larger = [(whole, moved) for whole, moved in larger if explains(whole, items)]
+            if larger and not any(moved for _, moved in larger):
+                continue  # a larger pattern is still on its way: this one waits for it
+            folded = bool(larger) or any(
+                self._moved(part, kind, moves, window) and not explains(items, part)
+                for part in self._neighbours(items, kind, moves, bigger=False)
             )
-            pattern = self._tracked[move.items]
-            rules = move.figures.rules if move.kind == EMERGED else pattern.rules
-            self._complete(move.items, move.kind)
+            pattern = self._tracked[items]
+            rules = move.figures.rules if kind == EMERGED else pattern.rules
+            self._complete(items, kind)
             if folded:
                 continue
-            self._recent[(move.items, move.kind)] = window.end
-            if move.kind == EMERGED:
+            self._recent[(items, kind)] = window.end
+            if kind == EMERGED:
                 self.emerged_total += 1
             else:
                 self.faded_total += 1
             events.append(
                 DriftEvent(
-                    kind=move.kind,
-                    id=event_id(move.kind, tick, move.items),
+                    kind=kind,
+                    id=event_id(kind, tick, items),
                     tick=tick,
-                    items=move.items,
+                    items=items,
                     rules=tuple(sorted(rules, key=lambda r: (-r.confidence, r.antecedent))),
                     count=move.figures.count,
                     n_baskets=move.figures.n_baskets,
@@ -380,7 +403,22 @@ class DriftDetector:
                     window=window.info,
                 )
             )
-        return events
+        return sorted(events, key=lambda e: (len(e.items), e.items))
+
+    def _neighbours(self, items: Names, kind: str, moves: list[_Move], *, bigger: bool) -> set[Names]:
+        """Patterns (two or more items) strictly containing ``items`` (``bigger``) or strictly
+        inside it, among those tracked, moving now or recently moved the same way."""
+        known = {*self._tracked, *(m.items for m in moves), *(i for i, k in self._recent if k == kind)}
+        mine = set(items)
+        if bigger:
+            return {other for other in known if len(other) > len(items) and mine < set(other)}
+        return {other for other in known if 2 <= len(other) < len(items) and set(other) < mine}
+
+    def _moved(self, items: Names, kind: str, moves: list[_Move], window: WindowView) -> bool:
+        """Whether ``items`` makes the move ``kind`` now or made it within the last window."""
+        if any(m.items == items and m.kind == kind for m in moves):
+            return True
+        return self._recent.get((items, kind), -math.inf) > window.start
 
     def _complete(self, items: Names, kind: str) -> None:
         """Finish a move: a rising pattern becomes active, a falling one is gone."""

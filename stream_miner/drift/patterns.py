@@ -116,3 +116,21 @@ def _improves(rule: Rule, count_of: CountOf) -> bool:
             if rule.count * count_of(smaller) <= count_of(together) * rule.antecedent_count:
                 return False
     return True
+
+
+def lift_without(part: Names, whole: Names, n_baskets: int, count_of: CountOf) -> Fraction:
+    """The weakest split lift of ``part`` counted only in the baskets that do not hold all
+    of ``whole``'s other items: whether ``part`` is productive on its own, apart from
+    ``whole`` (Webb's independent productivity)."""
+    rest = tuple(i for i in whole if i not in part)
+    with_rest = lambda items: count_of(tuple(sorted((*items, *rest))))  # noqa: E731
+    n = n_baskets - count_of(rest)
+    both = count_of(part) - with_rest(part)
+    weakest: Fraction | None = None
+    for left, right in splits(part):
+        n_left, n_right = count_of(left) - with_rest(left), count_of(right) - with_rest(right)
+        lift = (
+            Fraction(both * n, n_left * n_right) if n_left > 0 and n_right > 0 and both > 0 else Fraction(0)
+        )
+        weakest = lift if weakest is None else min(weakest, lift)
+    return weakest if weakest is not None else Fraction(0)

@@ -301,6 +301,11 @@ class WindowMiner:
         found = self._mine_tree(params, names, min_count, interrupt)
         return self._result(found, min_count, params, names, interrupt)
 
+    def oldest_tag(self) -> int | None:
+        """The origin tag of the oldest basket in the window (None: empty or untagged)."""
+        self.flush()
+        return self.store.oldest_tag()
+
     def count(self, itemsets: Sequence[Sequence[str]]) -> list[int]:
         """The exact number of baskets in the window holding each itemset (item names; an
         unknown name counts 0). One pass over the window's items, then set intersections."""

@@ -223,6 +223,14 @@ class WindowStore:
                 parts.append(chunk.baskets(rows))
         return BasketArrays.concat(parts)
 
+    def oldest_tag(self) -> int | None:
+        """The origin tag of the oldest live basket (None: empty, or it has no tag)."""
+        for chunk in self._chunks:
+            if chunk.n_alive:
+                tag = int(chunk.tags[int(np.argmax(chunk.alive))])
+                return None if tag < 0 else tag
+        return None
+
     def contents(self) -> tuple[BasketArrays, np.ndarray, np.ndarray]:
         """All live baskets, their event times and their origin tags, oldest first."""
         parts, ts, tags = [], [], []

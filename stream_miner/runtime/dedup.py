@@ -38,6 +38,7 @@ class RecentIds:
         self._by_time: list[tuple[float, str]] = []
         self._newest = -math.inf
         self._tags: dict[str, int] = {}
+        self._by_tag: dict[int, str] = {}
 
     def __len__(self) -> int:
         return len(self._ids)
@@ -58,6 +59,7 @@ class RecentIds:
         self._ids.add(basket_id)
         if tag is not None:
             self._tags[basket_id] = tag
+            self._by_tag[tag] = basket_id
         if self.horizon is None:
             self._by_arrival.append(basket_id)
             if len(self._by_arrival) > (self.keep_last or 0):
@@ -73,7 +75,13 @@ class RecentIds:
 
     def _drop(self, basket_id: str) -> None:
         self._ids.discard(basket_id)
-        self._tags.pop(basket_id, None)
+        tag = self._tags.pop(basket_id, None)
+        if tag is not None:
+            self._by_tag.pop(tag, None)
+
+    def id_at(self, tag: int) -> str | None:
+        """The remembered id of the basket read at origin ``tag`` (None: unknown)."""
+        return self._by_tag.get(tag)
 
     def forget(self, low: int, high: int) -> int:
         """Forget every id whose origin tag lies in [``low``, ``high``); return how many."""
@@ -81,7 +89,7 @@ class RecentIds:
         if gone:
             self._ids -= gone
             for basket_id in gone:
-                del self._tags[basket_id]
+                self._by_tag.pop(self._tags.pop(basket_id), None)
             self._by_arrival = deque(x for x in self._by_arrival if x not in gone)
             self._by_time = [entry for entry in self._by_time if entry[1] not in gone]
             heapq.heapify(self._by_time)

@@ -32,17 +32,20 @@ import threading
 import time
 from collections import Counter
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TextIO
 
 from stream_miner.decoding.records import Basket, DeadLetter
+from stream_miner.drift.detector import DriftDetector, DriftSettings, WindowView
+from stream_miner.drift.events import WindowInfo
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.window import CountWindow, TimeWindow
 from stream_miner.runtime.dedup import RecentIds
+from stream_miner.runtime.event_outbox import EventOutbox, EventSink
 from stream_miner.runtime.health import DeadLetterWatch, plural, summary
 from stream_miner.runtime.ledger import CommitOutcome, PartitionLedger
 from stream_miner.runtime.outbox import DeadLetterOutbox
@@ -83,6 +86,7 @@ class RunSettings:
     checkpoint_dir: Path | None = None
     checkpoint_interval: float = 30.0
     start_fresh: bool = False
+    drift: DriftSettings | None = None  # None: no drift detection
 
     def __post_init__(self) -> None:
         TickSchedule(self.tick_every, self.tick_interval)  # validates the tick options
@@ -103,6 +107,7 @@ class Runner:
         listeners: Sequence[TickListener] = (),
         log: TextIO | None = None,
         *,
+        events: EventSink | None = None,
         talk_when_clean: bool = True,
         tick_on_stop: bool = True,
     ) -> None:
@@ -110,6 +115,9 @@ class Runner:
         self.source = source
         self.dead_letters = DeadLetterOutbox(dead_letters, hold=settings.checkpoint_dir is not None)
         self.listeners = list(listeners)
+        self.detector = DriftDetector(settings.drift) if settings.drift is not None else None
+        held = settings.checkpoint_dir is not None
+        self.events = None if events is None else EventOutbox(events, hold=held)
         self.log = log or sys.stderr
         self.talk_when_clean = talk_when_clean  # False: say nothing unless something was set aside
         self.tick_on_stop = tick_on_stop  # False: a stop skips the last tick (mine: no partial result)
@@ -127,6 +135,7 @@ class Runner:
         self.last_id: str | None = None
         self.newest = -math.inf
         self.watermark = -math.inf  # where an event-time window ends: newest - lateness, or newest at the end
+        self.earliest = math.inf  # the oldest event time that entered the window (when it first filled)
         self.waiting: list[tuple[float, int, Basket, int, int]] = []  # heap by event time
         self.schedule = TickSchedule(settings.tick_every, settings.tick_interval)
         self.watch = DeadLetterWatch(self.dead_letters.counts, self.log)
@@ -269,6 +278,8 @@ class Runner:
             self._enter(basket, partition, offset)
 
     def _enter(self, basket: Basket, partition: int, offset: int) -> None:
+        if basket.ts is not None and basket.ts < self.earliest:
+            self.earliest = basket.ts
         verdict = self.miner.add(basket.items, basket.ts, origin_tag(partition, offset))
         if verdict is Verdict.SKIPPED_OVERSIZE:
             detail = f"{len(basket.items)} distinct items, limit {self.settings.policy.max_items}"
@@ -285,12 +296,46 @@ class Runner:
     # ------------------------------------------------------------------- ticks
     def _tick(self) -> None:
         self.progress.close()
-        report = self._refresh_off_the_main_thread()
+        report = self._detect(self._refresh_off_the_main_thread())
         self.schedule.ticked(report.consumed)
+        if report.events and self.events is not None:
+            self.events.write([event.as_json() for event in report.events])
         for listener in self.listeners:
             listener.on_tick(report)
         self.watch.check()
-        self._checkpoint_if_due()
+        if report.events and self.settings.checkpoint_dir is not None:
+            self._checkpoint()  # held events go out once it is durable: now, not at the next one
+        else:
+            self._checkpoint_if_due()
+
+    def _detect(self, report: TickReport) -> TickReport:
+        """Feed the tick to the drift detector (on the loop's thread, so an abandoned tick
+        never half-updates it); the report with its events and patterns."""
+        if self.detector is None:
+            return report
+        with self._lock:
+            view = self._window_view(report)
+            if view is None:
+                return report
+            events = self.detector.update(report.tick, view, self.miner.count)
+            patterns = self.detector.patterns()
+        return replace(report, events=tuple(events), patterns=tuple(patterns))
+
+    def _window_view(self, report: TickReport) -> WindowView | None:
+        """Where the tick's window lies (None while it is empty): in event time for a time
+        window, else in baskets taken."""
+        n = report.tick.result.n_baskets
+        if not n:
+            return None
+        tag = self.miner.oldest_tag()
+        first_id = None if tag is None else self.recent.id_at(tag)
+        window = self.settings.window
+        if isinstance(window, TimeWindow):
+            end = self.watermark
+            info = WindowInfo(n, first_id, self.last_id, end)
+            return WindowView(end - window.seconds, end, end - self.earliest >= window.seconds, info)
+        full = window is not None and n >= window.size
+        return WindowView(self.consumed - n, self.consumed, full, WindowInfo(n, first_id, self.last_id, None))
 
     def _checkpoint_if_due(self) -> None:
         if time.monotonic() - self._last_checkpoint_at >= self.settings.checkpoint_interval:
@@ -468,7 +513,12 @@ class Runner:
                 "recent": self.recent.state(),
                 "counts": dict(self.counts),
                 "records": self.watch.records,
+                "earliest": None if self.earliest == math.inf else self.earliest,
             }
+            if self.detector is not None:
+                metadata["drift"] = self.detector.state()
+            if self.events is not None:
+                metadata["events"] = self.events.state()
             try:
                 path = save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
             except CheckpointWriteError as error:
@@ -478,6 +528,8 @@ class Runner:
                 return {}
             self._unsaved = False
             self._tell_written(path)
+            if self.events is not None:
+                self.events.release(self.settings.checkpoint_dir, self.sequence)
             return positions
 
     def _tell_unwritten(self, cause: str) -> None:
@@ -564,7 +616,20 @@ class Runner:
         self.recent = RecentIds.from_state(metadata["recent"])
         self.counts = Counter(metadata["counts"])
         self.watch.records = int(metadata.get("records", 0))  # checkpoints before 0.3 did not keep it
+        earliest = metadata.get("earliest")
+        self.earliest = math.inf if earliest is None else float(earliest)
+        self._take_drift_state(metadata)
         self.schedule.restored(self.miner.next_tick, self.consumed)
+
+    def _take_drift_state(self, metadata: dict) -> None:
+        """The detector and the events held at the checkpoint; events the note beside it does
+        not show as written are written now (that checkpoint is durable)."""
+        if self.detector is not None and "drift" in metadata:
+            assert self.settings.drift is not None
+            self.detector = DriftDetector.restored(metadata["drift"], self.settings.drift)
+        if self.events is not None and "events" in metadata and self.settings.checkpoint_dir is not None:
+            self.events.restore(metadata["events"], self.settings.checkpoint_dir, self.sequence)
+            self.events.release(self.settings.checkpoint_dir, self.sequence)
 
     def _take_commit_outcome(self, metadata: dict) -> None:
         """Apply the note on the commit of the checkpoint's positions (the ledger's ``held``):
