@@ -16,11 +16,11 @@ Significance at a tick: a rise needs both the support (two-proportion z-test) an
 association of the pattern's weakest split (log odds ratio test) to grow, so a single item
 that gets popular raises nothing; a fall needs the support to drop (a stock-out that breaks
 a pairing counts). The p-values of every move tested at the tick are adjusted together
-(Benjamini-Hochberg) and compared with ``false_discovery_rate``; as a move may be tested
-at every tick of a window, its p-value is first multiplied by the ticks in a window
-(Bonferroni's bound over those repeated looks). A move whose pattern holds a
-smaller pattern making the same move (now, or within the last window) is folded into that
-one: one event per real change.
+(Benjamini-Hochberg) and compared with ``false_discovery_rate``. Successive ticks share most
+of their baskets, so their tests are not independent: the confirmation ticks, the one event
+per move and the silent completion after a window bound how often a move is looked at.
+Patterns one inside the other making the same move are one change, told once (see
+:meth:`DriftDetector._report`).
 
 Warm-up: until the window is full for the first time nothing is reported; the patterns
 present then are the baseline (active, no event).
@@ -281,8 +281,7 @@ class DriftDetector:
         over all of them). A due move that stayed insignificant for a whole window completes
         silently."""
         tests = [(items, kind, fig, *self._evidence(items, kind, fig)) for items, kind, fig in due]
-        looks = self._looks_per_window(window)
-        adjusted = benjamini_hochberg([min(1.0, p * looks) for *_, p, _ in tests])
+        adjusted = benjamini_hochberg([p for *_, p, _ in tests])
         moves = []
         for (items, kind, fig, _, baseline), p in zip(tests, adjusted, strict=True):
             if p <= self.settings.false_discovery_rate:
@@ -290,13 +289,6 @@ class DriftDetector:
             elif window.start >= self._tracked[items].since:  # a whole window went by
                 self._complete(items, kind)
         return moves
-
-    def _looks_per_window(self, window: WindowView) -> int:
-        """How many ticks fall in one window length: how often one move may be tested before
-        it completes silently (its p-values are multiplied by this, Bonferroni's bound)."""
-        last = self._history[-1].end if self._history else window.start
-        step = window.end - last
-        return max(1, round((window.end - window.start) / step)) if step > 0 else 1
 
     def _evidence(self, items: Names, kind: str, fig: Figures) -> tuple[float, Baseline]:
         """The p-value of ``kind`` for ``items`` against the baseline, and the baseline's figures."""
