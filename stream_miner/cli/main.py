@@ -10,6 +10,7 @@ from collections.abc import Sequence
 
 from stream_miner import __version__
 from stream_miner.cli.mine import add_mine_parser
+from stream_miner.cli.ops_kit import add_ops_kit_parser
 from stream_miner.cli.run import add_run_parser, apply_config
 from stream_miner.runtime.runner import TICK_THREAD
 
@@ -61,6 +62,7 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(required=True, metavar="COMMAND")
     add_mine_parser(commands)
     add_run_parser(commands)
+    add_ops_kit_parser(commands)
     return parser
 
 
