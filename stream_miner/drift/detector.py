@@ -152,14 +152,22 @@ class DriftDetector:
     _reference: Recorded | None = None
     _decayed: Decayed | None = None
     _recent: dict[tuple[Names, str], float] = field(default_factory=dict)  # (items, kind) -> window end
+    _count_past: Callable[[Sequence[Names], float, float], list[int]] | None = None
 
     # ------------------------------------------------------------------ ticks
     def update(
-        self, tick: Tick, window: WindowView, count: Callable[[Sequence[Names]], list[int]] | None = None
+        self,
+        tick: Tick,
+        window: WindowView,
+        count: Callable[[Sequence[Names]], list[int]] | None = None,
+        count_past: Callable[[Sequence[Names], float, float], list[int]] | None = None,
     ) -> list[DriftEvent]:
         """The events of ``tick`` (whose window lies at ``window``). ``count`` gives exact
         window counts of itemsets below the support threshold (patterns being watched that
-        left the result); without it they count as just below it."""
+        left the result); ``count_past`` exact counts over a past window, given as a span of
+        positions like ``window``'s (the baskets :meth:`past_needed` asks to keep). Without
+        them an itemset below a threshold counts as just below it."""
+        self._count_past = count_past
         result = tick.result
         n = result.n_baskets
         counts = self._counts_of(result.itemsets, result.min_count, count)
@@ -292,7 +300,7 @@ class DriftDetector:
 
     def _evidence(self, items: Names, kind: str, fig: Figures) -> tuple[float, Baseline]:
         """The p-value of ``kind`` for ``items`` against the baseline, and the baseline's figures."""
-        look = self._baseline_count()
+        look = self._baseline_count(items)
         n0 = self._baseline_size()
         c0, exact = look(items)
         if kind == FADED:
@@ -301,15 +309,31 @@ class DriftDetector:
             p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, UP)
             left, right, n_left, n_right = fig.weakest
             (l0, l_exact), (r0, r_exact) = look(left), look(right)
-            if l_exact and r_exact:  # else a part was rare in the baseline: no association to compare
+            floor = 0 if self.settings.baseline == "decayed" else self._baseline_window().min_count
+            if l_exact and r_exact and min(l0, r0) >= floor:  # else a part was rare: nothing to compare
                 before = (round(c0), round(l0), round(r0), round(n0))
                 p = max(p, odds_ratio_p(before, (fig.count, n_left, n_right, fig.n_baskets), UP))
         return p, self._baseline_figures(items, c0, exact, n0, look)
 
-    def _baseline_count(self) -> Callable[[Names], tuple[float, bool]]:
+    def _baseline_count(self, items: Names) -> Callable[[Names], tuple[float, bool]]:
+        """Counts of ``items`` and its parts in the baseline: recorded, else counted exactly in
+        the kept past baskets when the host counts them, else bounds."""
         if self.settings.baseline == "decayed" and self._decayed is not None:
             return self._decayed.count
-        return self._baseline_window().count
+        base = self._baseline_window()
+        count_past = self._count_past
+        if count_past is None:
+            return base.count
+        parts = [part for size in range(1, len(items) + 1) for part in combinations(items, size)]
+        missing = [part for part in parts if part not in base.counts]
+        counted = (
+            dict(zip(missing, count_past(missing, base.start, base.end), strict=True)) if missing else {}
+        )
+
+        def look(part: Names) -> tuple[float, bool]:
+            return (counted[part], True) if part in counted else base.count(part)
+
+        return look
 
     def _baseline_size(self) -> float:
         if self.settings.baseline == "decayed" and self._decayed is not None:
@@ -433,6 +457,15 @@ class DriftDetector:
             self._history.pop(0)
         cutoff = window.start
         self._recent = {key: end for key, end in self._recent.items() if end > cutoff}
+
+    def past_needed(self) -> tuple[float, float] | None:
+        """The span of past positions a later comparison may count in (the host keeps those
+        baskets after they leave the window); None when none will be."""
+        if self.settings.baseline == "decayed":
+            return None
+        if self.settings.baseline == "reference" or not self._history:
+            return None if self._reference is None else (self._reference.start, self._reference.end)
+        return self._history[0].start, math.inf
 
     # ------------------------------------------------------------------ reads
     def patterns(self) -> list[PatternStatus]:

@@ -12,18 +12,20 @@ import numbers
 import threading
 from collections import Counter
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from decimal import Decimal
 from typing import TYPE_CHECKING
 
 import numpy as np
 
 from stream_miner.engine.baskets import BasketArrays
+from stream_miner.engine.counting import count_itemsets
 from stream_miner.engine.delta import ResultDelta, diff_results
 from stream_miner.engine.fpgrowth import Itemset, check_size, mine_tree
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.limits import stop_if_set
 from stream_miner.engine.params import MiningParams
+from stream_miner.engine.past import PastBaskets
 from stream_miner.engine.result import MiningResult
 from stream_miner.engine.rules import generate_rules
 from stream_miner.engine.tree import PrefixTree, frequency_rank
@@ -44,8 +46,9 @@ class MinerState:
     """Everything a :class:`WindowMiner` needs to carry on after a restart (for checkpoints):
     the window's baskets with their event times and origin tags, the not yet applied buffer
     (the same three), the vocabulary,
-    the tree's item order, the counters, the next tick's number and the last tick's result
-    (the next delta is taken against it; None before the first tick)."""
+    the tree's item order, the counters, the next tick's number, the last tick's result
+    (the next delta is taken against it; None before the first tick) and the past baskets
+    kept for comparisons with their positions."""
 
     names: list[str]
     baskets: BasketArrays
@@ -61,6 +64,10 @@ class MinerState:
     verdicts: Counter[Verdict]
     next_tick: int
     last_result: MiningResult | None
+    past: BasketArrays = field(default_factory=BasketArrays.empty)  # kept after they left (keep_past)
+    past_positions: np.ndarray = field(default_factory=lambda: np.empty(0))
+    left_total: int = 0
+    keeping_past: bool = False
 
 
 @dataclass(frozen=True)
@@ -112,6 +119,10 @@ class WindowMiner:
         self._last: MiningResult | None = None
         self._ticks = 0
         self._named: dict[Itemset, tuple[str, ...]] = {}  # item names of recent results' itemsets
+        self.left_total = 0  # count window: baskets that left it (the oldest one's number in it)
+        self.past = PastBaskets()  # baskets that left, kept for comparisons (see keep_past)
+        self._keeping_past = False
+        self._dropped_unseen = 0
 
     # ------------------------------------------------------------------ state
     @property
@@ -124,6 +135,7 @@ class WindowMiner:
         taking the state changes nothing (not even the batch boundaries that decide the
         tree's item order)."""
         baskets, ts, tags = self.store.contents()
+        past, past_positions = self.past.contents()
         return MinerState(
             names=self.vocabulary.names(),
             baskets=baskets,
@@ -139,6 +151,10 @@ class WindowMiner:
             verdicts=Counter(self.verdicts),
             next_tick=self._ticks,
             last_result=self._last,
+            past=past,
+            past_positions=past_positions,
+            left_total=self.left_total,
+            keeping_past=self._keeping_past,
         )
 
     @classmethod
@@ -167,6 +183,9 @@ class WindowMiner:
         miner._pending_tags = state.pending_tags.tolist()
         miner._ticks = state.next_tick
         miner._last = state.last_result
+        miner.past = PastBaskets(state.past, state.past_positions)
+        miner.left_total = state.left_total
+        miner._keeping_past = state.keeping_past
         return miner
 
     # ------------------------------------------------------------------ input
@@ -209,6 +228,7 @@ class WindowMiner:
             overflow = len(self.store) + len(pending) - self.window.size
             expired = self.store.expire_oldest(max(0, overflow))
             dropped = max(0, overflow - len(expired.handles))
+            self._dropped_unseen = dropped
             pending, pending_ts, pending_tags = (
                 pending[dropped:],
                 pending_ts[dropped:],
@@ -222,6 +242,7 @@ class WindowMiner:
             pending_ts, pending_tags = pending_ts[keep], pending_tags[keep]
         else:
             expired = Expired.concat([])
+        self._remember_past(expired)
         if not self._ranked and pending:
             self._rank_from(pending)
         paths = self.tree.paths_of(pending)
@@ -231,6 +252,21 @@ class WindowMiner:
         self._applied_since_order += len(paths)
         if self._applied_since_order >= max(len(self.store), ORDER_CHECK_MIN):
             self._reorder_if_stale()
+
+    def _remember_past(self, expired: Expired) -> None:
+        """Number the baskets that left (count window: in the order they left, then those of
+        the buffer that never entered) and keep them when asked to (:meth:`keep_past`)."""
+        count_window = isinstance(self.window, CountWindow)
+        left = len(expired.handles)
+        if self._keeping_past and left:
+            if count_window:
+                positions = np.arange(self.left_total, self.left_total + left, dtype=np.float64)
+            else:
+                positions = expired.ts
+            self.past.append(expired.baskets, positions)
+        if count_window:
+            self.left_total += left + self._dropped_unseen
+            self._dropped_unseen = 0
 
     def withdraw(self, low: int, high: int) -> int:
         """Take back every basket in the window whose origin tag lies in [``low``, ``high``),
@@ -310,26 +346,33 @@ class WindowMiner:
         """The exact number of baskets in the window holding each itemset (item names; an
         unknown name counts 0). One pass over the window's items, then set intersections."""
         self.flush()
-        ids = [[self.vocabulary.lookup(name) for name in itemset] for itemset in itemsets]
-        wanted = sorted({i for row in ids for i in row if i is not None})
-        if not wanted:
-            return [0 if row else len(self.store) for row in ids]
-        baskets = self.store.contents()[0]
-        mask = np.isin(baskets.items, wanted)
-        items, rows = baskets.items[mask], baskets.row_of_items()[mask]
-        holding = {i: rows[items == i] for i in wanted}  # basket rows, ascending, each once
-        counts = []
-        for row in ids:
-            if not row:
-                counts.append(len(self.store))
-            elif None in row:
-                counts.append(0)
-            else:
-                found = holding[row[0]]  # type: ignore[index]
-                for item in row[1:]:
-                    found = np.intersect1d(found, holding[item], assume_unique=True)  # type: ignore[index]
-                counts.append(int(found.size))
-        return counts
+        return count_itemsets(self.store.contents()[0], self._ids_of(itemsets))
+
+    def count_past(self, itemsets: Sequence[Sequence[str]], low: float, high: float) -> list[int]:
+        """Exact counts over every basket with position in [``low``, ``high``): those kept
+        after they left the window (see :meth:`keep_past`) and those still in it. Positions
+        are basket numbers for a count window (:attr:`left_total` is the oldest one's number
+        in the window), event times for a time window."""
+        self.flush()
+        ids = self._ids_of(itemsets)
+        baskets, ts, _ = self.store.contents()
+        if isinstance(self.window, CountWindow):
+            positions = self.left_total + np.arange(len(baskets), dtype=np.float64)
+        else:
+            positions = ts
+        inside = np.flatnonzero((positions >= low) & (positions < high))
+        now = count_itemsets(baskets.select(inside), ids)
+        return [a + b for a, b in zip(now, self.past.count(ids, low, high), strict=True)]
+
+    def keep_past(self, low: float, high: float) -> None:
+        """Keep the baskets that left the window with position in [``low``, ``high``) for
+        :meth:`count_past`, and from now on every basket that leaves (until told again)."""
+        self.flush()
+        self.past.keep(low, high)
+        self._keeping_past = True
+
+    def _ids_of(self, itemsets: Sequence[Sequence[str]]) -> list[list[int | None]]:
+        return [[self.vocabulary.lookup(name) for name in itemset] for itemset in itemsets]
 
     def _mine_tree(
         self, params: MiningParams, names: Sequence[str], min_count: int, interrupt: threading.Event | None

@@ -120,7 +120,7 @@ class _Chunk:
         """Mark rows expired; return their handles and baskets."""
         self.alive[rows] = False
         self.n_alive -= rows.size
-        return Expired(self.handle[rows].astype(np.int64), self.baskets(rows))
+        return Expired(self.handle[rows].astype(np.int64), self.baskets(rows), self.ts[rows])
 
     @property
     def nbytes(self) -> int:
@@ -130,18 +130,20 @@ class _Chunk:
 
 @dataclass(frozen=True)
 class Expired:
-    """Baskets that left the window: their tree handles and their items."""
+    """Baskets that left the window: their tree handles, their items and event times."""
 
     handles: np.ndarray
     baskets: BasketArrays
+    ts: np.ndarray
 
     @classmethod
     def concat(cls, parts: list[Expired]) -> Expired:
         if not parts:
-            return cls(np.empty(0, dtype=np.int64), BasketArrays.empty())
+            return cls(np.empty(0, dtype=np.int64), BasketArrays.empty(), np.empty(0))
         return cls(
             np.concatenate([p.handles for p in parts]),
             BasketArrays.concat([p.baskets for p in parts]),
+            np.concatenate([p.ts for p in parts]),
         )
 
 

@@ -22,6 +22,10 @@ loads with ``allow_pickle=False``) in a directory of the caller's choice:
 - ``pending_items`` (int32), ``pending_start`` (int64), ``pending_ts`` (float64),
   ``pending_tags`` (int64): baskets accepted but not yet applied (the engine's buffer), in
   arrival order, already cleaned;
+- ``past_items`` (int32), ``past_start`` (int64), ``past_ts`` (float64), ``past_tags``
+  (int64, all -1): baskets that left the window and are kept for the drift detector's
+  comparisons, with their positions in ``past_ts`` (see :mod:`stream_miner.engine.past`);
+  absent in checkpoints made before 0.4 (read as none);
 - the last tick's result, which the next tick's delta is taken against: ``last_items``
   (int32), ``last_start`` (int64) its itemsets as item ids in CSR form (items in name
   order), ``last_counts`` (int64) their counts, ``last_rules`` (int64, one row per rule)
@@ -90,6 +94,7 @@ _KEYS = (
     "last_counts",
     "last_rules",
 )
+_PAST_KEYS = ("past_items", "past_start", "past_ts", "past_tags")  # written since 0.4, optional to read
 _HEADER_KEYS = ("window", "policy", "verdicts", "engine", "ticks", "metadata")
 
 
@@ -131,7 +136,12 @@ def save_checkpoint(directory: str | os.PathLike, miner: WindowMiner, metadata: 
         "window": _window_config(miner.window),
         "policy": _policy_config(miner.policy),
         "verdicts": {str(Verdict(v).value): int(n) for v, n in state.verdicts.items() if n},
-        "engine": {"ranked": state.ranked, "applied_since_order": state.applied_since_order},
+        "engine": {
+            "ranked": state.ranked,
+            "applied_since_order": state.applied_since_order,
+            "left_total": state.left_total,
+            "keeping_past": state.keeping_past,
+        },
         "ticks": {"next": state.next_tick, "last": _last_header(state.last_result)},
         "metadata": json.loads(metadata_json),
     }
@@ -148,6 +158,10 @@ def save_checkpoint(directory: str | os.PathLike, miner: WindowMiner, metadata: 
         "pending_start": state.pending.start.astype(np.int64),
         "pending_ts": state.pending_ts,
         "pending_tags": state.pending_tags,
+        "past_items": state.past.items.astype(np.int32),
+        "past_start": state.past.start.astype(np.int64),
+        "past_ts": np.asarray(state.past_positions, dtype=np.float64),
+        "past_tags": np.full(len(state.past), -1, dtype=np.int64),
         **_last_arrays(state.last_result, state.names),
     }
 
@@ -278,6 +292,9 @@ def _validate(data, header, window, policy, fail) -> dict[str, Any]:
     newest_ts = float(newest[0])
     baskets, ts, tags = _baskets(data, "", len(names), policy, fail)
     pending, pending_ts, pending_tags = _baskets(data, "pending_", len(names), policy, fail)
+    past, past_positions = BasketArrays.empty(), np.empty(0)
+    if "past_items" in data:  # checkpoints before 0.4 kept no past baskets
+        past, past_positions, _ = _baskets(data, "past_", len(names), policy, fail)
     n = len(baskets)
     if isinstance(window, CountWindow) and n > window.size:
         raise fail(f"corrupted: {n} baskets in a window of {window.size}")
@@ -287,8 +304,12 @@ def _validate(data, header, window, policy, fail) -> dict[str, Any]:
     engine = header["engine"]
     ranked = engine.get("ranked") if isinstance(engine, dict) else None
     applied = engine.get("applied_since_order") if isinstance(engine, dict) else None
+    left_total = engine.get("left_total", 0) if isinstance(engine, dict) else None
+    keeping_past = engine.get("keeping_past", False) if isinstance(engine, dict) else None
     if type(ranked) is not bool or type(applied) is not int or applied < 0:
         raise fail("corrupted: bad engine state")
+    if type(left_total) is not int or left_total < 0 or type(keeping_past) is not bool:
+        raise fail("corrupted: bad engine state (past baskets)")
     if rank.size > len(names) or not np.array_equal(np.sort(rank), np.arange(rank.size)):
         raise fail("corrupted: the item order is not a permutation")
     if n and (not ranked or baskets.items.max() >= rank.size):
@@ -319,6 +340,10 @@ def _validate(data, header, window, policy, fail) -> dict[str, Any]:
         "verdicts": counts,
         "next_tick": next_tick,
         "last_result": last_result,
+        "past": past,
+        "past_positions": past_positions,
+        "left_total": left_total,
+        "keeping_past": keeping_past,
     }
 
 

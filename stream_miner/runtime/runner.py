@@ -317,13 +317,17 @@ class Runner:
             view = self._window_view(report)
             if view is None:
                 return report
-            events = self.detector.update(report.tick, view, self.miner.count)
+            events = self.detector.update(report.tick, view, self.miner.count, self.miner.count_past)
             patterns = self.detector.patterns()
+            needed = self.detector.past_needed()
+            if needed is not None:
+                self.miner.keep_past(*needed)
         return replace(report, events=tuple(events), patterns=tuple(patterns))
 
     def _window_view(self, report: TickReport) -> WindowView | None:
         """Where the tick's window lies (None while it is empty): in event time for a time
-        window, else in baskets taken."""
+        window, else in basket numbers (baskets given back to another group member shift the
+        numbers of later ones, so comparisons across a handover are approximate)."""
         n = report.tick.result.n_baskets
         if not n:
             return None
@@ -335,7 +339,8 @@ class Runner:
             info = WindowInfo(n, first_id, self.last_id, end)
             return WindowView(end - window.seconds, end, end - self.earliest >= window.seconds, info)
         full = window is not None and n >= window.size
-        return WindowView(self.consumed - n, self.consumed, full, WindowInfo(n, first_id, self.last_id, None))
+        start = self.miner.left_total  # the number of the oldest basket in the window
+        return WindowView(start, start + n, full, WindowInfo(n, first_id, self.last_id, None))
 
     def _checkpoint_if_due(self) -> None:
         if time.monotonic() - self._last_checkpoint_at >= self.settings.checkpoint_interval:
