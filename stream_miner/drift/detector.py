@@ -1,26 +1,28 @@
 """The drift detector: fed every tick, it reports the co-purchase patterns that emerged or
 faded, each once, and only when the change is statistically real.
 
-Per pattern (see :mod:`stream_miner.drift.patterns`) a lifecycle runs: not tracked ->
-rising -> active -> falling -> gone. A pattern starts rising when it passes the enter
-thresholds, and becomes active after ``confirm_ticks`` consecutive ticks above them *and* a
-significant rise against the baseline (:mod:`stream_miner.drift.baseline`): an ``emerged``
-event. An active pattern starts falling when it drops below the exit thresholds (a lower
-band, ``exit_fraction`` of the enter ones), and is gone after ``confirm_ticks`` ticks below
-them *and* a significant fall: a ``faded`` event. A pattern that drops back before its
+Per pattern (see :mod:`stream_miner.drift.patterns`) a lifecycle runs: not tracked -> rising
+-> active -> falling -> gone. A pattern starts rising when it passes the enter thresholds,
+and becomes active after ``confirm_ticks`` consecutive ticks above them *and* a significant
+rise against the baseline (:mod:`stream_miner.drift.baseline`): an ``emerged`` event. An
+active pattern starts falling when it drops below the exit thresholds (a lower band,
+``exit_fraction`` of the enter ones), and is gone after ``confirm_ticks`` ticks below them
+*and* a significant fall: a ``faded`` event. A pattern that drops back before its
 confirmation changes nothing, so one hovering at a threshold never flaps. A move that stays
-insignificant for a whole window completes silently (no event): the pattern came or went
-too gradually to call.
+insignificant for a whole window completes silently (no event): the pattern came or went too
+gradually to call.
 
-Significance at a tick: a rise needs both the support (two-proportion z-test) and the
-association of the pattern's weakest split (log odds ratio test) to grow, so a single item
-that gets popular raises nothing; a fall needs the support to drop (a stock-out that breaks
-a pairing counts). The p-values of every move tested at the tick are adjusted together
-(Benjamini-Hochberg) and compared with ``false_discovery_rate``. Successive ticks share most
-of their baskets, so their tests are not independent: the confirmation ticks, the one event
-per move and the silent completion after a window bound how often a move is looked at.
-Patterns one inside the other making the same move are one change, told once (see
-:meth:`DriftDetector._report`).
+A move runs from one side of the band to the other: an emergence needs the pattern's support
+in the baseline below the exit bar, a fade needs it at or above the enter bar there, so
+noise around one threshold is no move. Significance at a tick: a rise needs both the support
+(two-proportion z-test) and the association of the pattern's weakest split (log odds ratio
+test) to grow, so a single item that gets popular raises nothing; a fall needs the support
+to drop (a stock-out that breaks a pairing counts). The p-values of every move tested at the
+tick are adjusted together (Benjamini-Hochberg) and compared with ``false_discovery_rate``.
+Successive ticks share most of their baskets, so their tests are not independent: the
+confirmation ticks, the one event per move and the silent completion after a window bound
+how often a move is looked at. Patterns one inside the other making the same move are one
+change, told once (see :meth:`DriftDetector._report`).
 
 Warm-up: until the window is full for the first time nothing is reported; the patterns
 present then are the baseline (active, no event).
@@ -67,7 +69,7 @@ class DriftSettings:
     min_lift: Fraction = Fraction(1)
     exit_fraction: Fraction = Fraction(4, 5)
     confirm_ticks: int = 2
-    false_discovery_rate: float = 0.01
+    false_discovery_rate: float = 0.001
     baseline: str = "previous"
     half_life: float = 4.0
     max_size: int = 4
@@ -153,6 +155,7 @@ class DriftDetector:
     _decayed: Decayed | None = None
     _recent: dict[tuple[Names, str], float] = field(default_factory=dict)  # (items, kind) -> window end
     _count_past: Callable[[Sequence[Names], float, float], list[int]] | None = None
+    _support_bar = 1.0  # the enter support threshold at the current tick, as a share
 
     # ------------------------------------------------------------------ ticks
     def update(
@@ -168,6 +171,7 @@ class DriftDetector:
         positions like ``window``'s (the baskets :meth:`past_needed` asks to keep). Without
         them an itemset below a threshold counts as just below it."""
         self._count_past = count_past
+        self._support_bar = tick.result.min_count / tick.result.n_baskets if tick.result.n_baskets else 1.0
         result = tick.result
         n = result.n_baskets
         counts = self._counts_of(result.itemsets, result.min_count, count)
@@ -303,9 +307,13 @@ class DriftDetector:
         look = self._baseline_count(items)
         n0 = self._baseline_size()
         c0, exact = look(items)
-        if kind == FADED:
-            p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, DOWN) if exact else 1.0
-        else:
+        was = c0 / n0 if n0 else 0.0
+        if kind == FADED:  # a fade starts above the enter bar in the baseline
+            established = exact and was >= self._support_bar
+            p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, DOWN) if established else 1.0
+        elif was >= self._support_bar * self.settings.exit_fraction:  # it was there already
+            p = 1.0
+        else:  # an emergence starts below the exit bar in the baseline
             p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, UP)
             left, right, n_left, n_right = fig.weakest
             (l0, l_exact), (r0, r_exact) = look(left), look(right)
