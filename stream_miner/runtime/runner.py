@@ -47,7 +47,14 @@ from stream_miner.runtime.health import DeadLetterWatch, plural, summary
 from stream_miner.runtime.ledger import CommitOutcome, PartitionLedger
 from stream_miner.runtime.outbox import DeadLetterOutbox
 from stream_miner.runtime.progress import ProgressLine
-from stream_miner.runtime.protocols import DeadLetterSink, Source, SourceChanged, TickListener, TickReport
+from stream_miner.runtime.protocols import (
+    DeadLetterSink,
+    DriftTotals,
+    Source,
+    SourceChanged,
+    TickListener,
+    TickReport,
+)
 from stream_miner.runtime.schedule import TickSchedule
 
 EXIT_OK, EXIT_USAGE = 0, 2
@@ -92,6 +99,28 @@ class RunSettings:
             raise ValueError("--allowed-lateness needs an event-time window (--window-time)")
 
 
+@dataclass(frozen=True)
+class RunFigures:
+    """The loop's counts at one moment, taken together (for metrics, read on another thread).
+    ``consumed`` + ``given_back`` only grows, as does ``rejected`` + ``rejected_given_back``
+    per reason; the other counts only grow. ``watermark`` (event-time windows) and
+    ``checkpointed_at`` (wall clock of the last checkpoint written, across restarts) are None
+    until known; ``lag`` is the source's lag per partition."""
+
+    consumed: int
+    given_back: int
+    duplicates: int
+    dropped_late: int
+    rejected: dict[str, int]
+    rejected_given_back: dict[str, int]
+    ticks: int
+    emerged: int
+    faded: int
+    watermark: float | None
+    checkpointed_at: float | None
+    lag: dict[int, int]
+
+
 class Runner:
     """Runs one source through the window until it ends or :meth:`stop` is called."""
 
@@ -124,6 +153,8 @@ class Runner:
         self.source_identity: dict[str, str] = {}  # the source's identity when the checkpoint was made
         self._resume_at: dict[int, int] = {}  # partitions of a lost or cut log, accepted: read from here
         self.consumed = 0
+        self.detector: DriftTotals | None = None  # the drift detector, when one runs
+        self.checkpointed_at: float | None = None  # wall clock of the last checkpoint written
         self.last_id: str | None = None
         self.newest = -math.inf
         self.watermark = -math.inf  # where an event-time window ends: newest - lateness, or newest at the end
@@ -409,6 +440,8 @@ class Runner:
         the window lets go of it before the next record is taken (:meth:`_withdraw`)."""
         returned = self.ledger.give_back(partition, boundary)
         self.consumed -= returned
+        if returned:
+            self.counts["given back"] += returned
         self.recent.forget(*tags_from(partition, boundary))
         self.waiting = [w for w in self.waiting if not (w[3] == partition and w[4] >= boundary)]
         heapq.heapify(self.waiting)
@@ -451,6 +484,7 @@ class Runner:
             positions = dict(self.ledger.held)
             self.ledger.sent(positions)
             self.sequence += 1
+            saved_at = time.time()
             metadata = {
                 "source": self.source.name,
                 "source_identity": self.source.identity(),
@@ -468,6 +502,7 @@ class Runner:
                 "recent": self.recent.state(),
                 "counts": dict(self.counts),
                 "records": self.watch.records,
+                "saved_at": saved_at,
             }
             try:
                 path = save_checkpoint(self.settings.checkpoint_dir, self.miner, metadata)
@@ -477,6 +512,7 @@ class Runner:
                 self._tell_unwritten(str(error))
                 return {}
             self._unsaved = False
+            self.checkpointed_at = saved_at
             self._tell_written(path)
             return positions
 
@@ -564,6 +600,7 @@ class Runner:
         self.recent = RecentIds.from_state(metadata["recent"])
         self.counts = Counter(metadata["counts"])
         self.watch.records = int(metadata.get("records", 0))  # checkpoints before 0.3 did not keep it
+        self.checkpointed_at = metadata.get("saved_at")  # nor this
         self.schedule.restored(self.miner.next_tick, self.consumed)
 
     def _take_commit_outcome(self, metadata: dict) -> None:
@@ -580,6 +617,27 @@ class Runner:
         self.dead_letters.restore(metadata["dead_letters"], written)
         self.ledger.outcome(positions, outcome)
         self.dead_letters.release(self.ledger.landed, write=noted is None)  # else written before
+
+    def figures(self) -> RunFigures:
+        """The counts as one consistent set (safe from any thread: taken under the loop's lock,
+        so a call may wait for a checkpoint being written)."""
+        with self._lock:
+            letters = self.dead_letters
+            timed = isinstance(self.settings.window, TimeWindow) and self.watermark > -math.inf
+            return RunFigures(
+                consumed=self.consumed,
+                given_back=self.counts["given back"],
+                duplicates=self.counts["duplicates skipped"],
+                dropped_late=self.counts["dropped as too late"],
+                rejected=dict(letters.counts),
+                rejected_given_back=dict(letters.given_back),
+                ticks=self.schedule.ticks,
+                emerged=self.detector.emerged_total if self.detector else 0,
+                faded=self.detector.faded_total if self.detector else 0,
+                watermark=self.watermark if timed else None,
+                checkpointed_at=self.checkpointed_at,
+                lag=self.source.lag(),
+            )
 
     def _summarise(self) -> None:
         self.progress.close()
