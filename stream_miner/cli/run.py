@@ -23,13 +23,13 @@ from stream_miner.cli.reporting import SnapshotWriter, TickLine
 from stream_miner.cli.signals import stop_on_signals
 from stream_miner.connectors.dead_letters import DeadLetterCounter, DeadLetterFile
 from stream_miner.connectors.file_source import FileSource
-from stream_miner.connectors.http_server import HttpServer
 from stream_miner.decoding.files import detect_format
 from stream_miner.runtime.protocols import DeadLetterSink, Source, StoppedWaiting, TickListener
 from stream_miner.runtime.runner import Runner, RunSettings
 from stream_miner.runtime.stop_clock import DEFAULT_STOP_WITHIN, StopClock
 
 if TYPE_CHECKING:
+    from stream_miner.connectors.http_server import HttpServer
     from stream_miner.metrics import RunMetrics
 
 DEFAULT_METRICS_HOST = "127.0.0.1"
@@ -271,6 +271,8 @@ def _metrics(args: argparse.Namespace) -> RunMetrics | None:
 
 def _serve_metrics(args: argparse.Namespace, metrics: RunMetrics) -> HttpServer:
     """The metrics server, listening; its address is said on stderr."""
+    from stream_miner.connectors.http_server import HttpServer  # only when asked for
+
     host = args.metrics_host or DEFAULT_METRICS_HOST
     try:
         server = HttpServer(host, args.metrics_port, {"/metrics": metrics.exposition})
