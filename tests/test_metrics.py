@@ -280,10 +280,10 @@ def settled(url: str, lines: int, window: int):
     """A scrape once every line of the file is accounted for and the tick after the last
     basket has ended (the window gauge shows the full window); None before."""
     samples = scrape(url)
-    taken = sum(rejected_by_reason(samples).values())
-    taken += value(samples, "stream_miner_transactions_total") + value(
-        samples, "stream_miner_duplicates_total"
-    )
+    accepted, duplicates = (value(samples, f"stream_miner_{n}_total") for n in ("transactions", "duplicates"))
+    if accepted is None or duplicates is None:
+        return None  # scraped before the run loop was made (the server listens first)
+    taken = accepted + duplicates + sum(rejected_by_reason(samples).values())
     full = value(samples, "stream_miner_window_transactions") == window
     return samples if taken == lines and full else None
 
