@@ -142,6 +142,7 @@ def test_outbox_holds_letters_until_a_commit_covers_them(tmp_path):
     assert outbox.release({0: 5, 1: 5}) == 2
     outbox.give_back(1, 5)  # the next owner of partition 1 writes offset 9
     assert outbox.counts == {"invalid JSON": 3}
+    assert outbox.given_back == {"invalid JSON": 1}  # counts + given back never shrink (metrics)
     saved = json.loads(json.dumps(outbox.state()))
     assert outbox.release({0: 8}) == 1
     keys = [json.loads(line)["key"] for line in (tmp_path / "dead.jsonl").read_text().splitlines()]
@@ -152,7 +153,7 @@ def test_outbox_holds_letters_until_a_commit_covers_them(tmp_path):
     assert again.release({0: 8}) == 1
     keys = [json.loads(line)["key"] for line in (tmp_path / "dead.jsonl").read_text().splitlines()]
     assert keys == ["kafka:t/0/1", "kafka:t/1/4", "kafka:t/0/7"]
-    assert again.counts == {"invalid JSON": 3}
+    assert again.counts == {"invalid JSON": 3} and again.given_back == {"invalid JSON": 1}
 
 
 def test_forgotten_ids_are_no_duplicates_any_more():

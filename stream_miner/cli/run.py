@@ -6,7 +6,7 @@ import argparse
 import sys
 from contextlib import ExitStack, closing
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from stream_miner.cli.drift_options import (
     add_drift_options,
@@ -21,6 +21,7 @@ from stream_miner.cli.options import (
     add_window_options,
     duration,
     file_layout,
+    positive_int,
     run_settings,
 )
 from stream_miner.cli.paths import check_directory, check_output_file
@@ -32,6 +33,12 @@ from stream_miner.decoding.files import detect_format
 from stream_miner.runtime.protocols import DeadLetterSink, Source, StoppedWaiting, TickListener
 from stream_miner.runtime.runner import Runner, RunSettings
 from stream_miner.runtime.stop_clock import DEFAULT_STOP_WITHIN, StopClock
+
+if TYPE_CHECKING:
+    from stream_miner.connectors.http_server import HttpServer
+    from stream_miner.metrics import RunMetrics
+
+DEFAULT_METRICS_HOST = "127.0.0.1"
 
 
 def add_run_parser(commands: argparse._SubParsersAction) -> None:
@@ -120,6 +127,25 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
         "the local checkpoint is always written; committing offsets, sending dead letters and "
         f"leaving the group get what is left (default: {DEFAULT_STOP_WITHIN:g}s)",
     )
+    metrics = run.add_argument_group("metrics")
+    metrics.add_argument(
+        "--metrics-port",
+        type=port_number,
+        metavar="PORT",
+        help="serve Prometheus metrics on http://HOST:PORT/metrics for the whole run (0: a free port, "
+        "printed at the start)",
+    )
+    metrics.add_argument(
+        "--metrics-host",
+        metavar="HOST",
+        help=f"the address the metrics server listens on (default: {DEFAULT_METRICS_HOST}: this machine)",
+    )
+    metrics.add_argument(
+        "--metrics-top-k",
+        type=positive_int,
+        metavar="K",
+        help="the K strongest active patterns get series of their own (default: 20, at most 100)",
+    )
 
 
 def apply_config(parser: argparse.ArgumentParser, argv: list[str]) -> None:
@@ -177,8 +203,11 @@ def run_run(args: argparse.Namespace) -> int:
     """The ``run`` command."""
     settings = _settings(args)
     _check_outputs(args)
+    metrics = _metrics(args)
     stop = StopClock(args.stop_within)
     with ExitStack() as resources, stop_on_signals(stop.set):
+        if metrics is not None:  # listening first: a port in use stops the run before anything is read
+            resources.enter_context(closing(_serve_metrics(args, metrics)))
         try:
             source = resources.enter_context(closing(_source(args, stop)))
             dead_letters = resources.enter_context(closing(_dead_letters(args, stop)))
@@ -192,7 +221,11 @@ def run_run(args: argparse.Namespace) -> int:
             listeners.append(SnapshotWriter(args.snapshot_out))
         if not args.quiet:
             listeners.append(TickLine(sys.stderr))
+        if metrics is not None:
+            listeners.append(metrics)
         runner = Runner(settings, source, dead_letters, listeners, events=events)
+        if metrics is not None:
+            metrics.watch(runner.figures)
 
         def stop_both() -> None:
             stop.set()  # starts the clock: waits for brokers get what is left of --stop-within
@@ -231,6 +264,46 @@ def _check_outputs(args: argparse.Namespace) -> None:
     if target is not None and not target.startswith("kafka://"):
         check_output_file(Path(target), "--dead-letter-out")
     check_events_out(args)
+
+
+def _metrics(args: argparse.Namespace) -> RunMetrics | None:
+    """The metrics the options ask for (None: no --metrics-port)."""
+    if args.metrics_port is None:
+        for option, value in (("--metrics-host", args.metrics_host), ("--metrics-top-k", args.metrics_top_k)):
+            if value is not None:
+                raise UsageError(f"{option} needs --metrics-port")
+        return None
+    from stream_miner.metrics import DEFAULT_TOP_K, MAX_TOP_K, RunMetrics, TopPatterns  # only when asked for
+
+    k = DEFAULT_TOP_K if args.metrics_top_k is None else args.metrics_top_k
+    if k > MAX_TOP_K:
+        raise UsageError(f"--metrics-top-k {k}: at most {MAX_TOP_K} patterns get series of their own")
+    return RunMetrics(TopPatterns(k))
+
+
+def _serve_metrics(args: argparse.Namespace, metrics: RunMetrics) -> HttpServer:
+    """The metrics server, listening; its address is said on stderr."""
+    from stream_miner.connectors.http_server import HttpServer  # only when asked for
+
+    host = args.metrics_host or DEFAULT_METRICS_HOST
+    try:
+        server = HttpServer(host, args.metrics_port, {"/metrics": metrics.exposition})
+    except OSError as error:
+        cause = error.strerror or str(error)
+        raise UsageError(f"--metrics-port {args.metrics_port}: cannot listen on {host} ({cause})") from None
+    print(f"stream-miner: metrics on {server.url('/metrics')}", file=sys.stderr, flush=True)
+    return server
+
+
+def port_number(text: str) -> int:
+    """A TCP port: 0 (any free one) to 65535."""
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a port number") from None
+    if not 0 <= value <= 65535:
+        raise argparse.ArgumentTypeError(f"{text!r} must lie between 0 and 65535")
+    return value
 
 
 def _dead_letters(args: argparse.Namespace, stop: StopClock) -> DeadLetterSink:

@@ -85,6 +85,10 @@ class FileSource:
         except (OSError, ValueError):
             return None
 
+    def lag(self) -> dict[int, int]:
+        """A file has no partitions to lag on."""
+        return {}
+
     def while_busy(self, busy: Callable[[], bool]) -> None:
         """Wait while ``busy()`` says so: a file needs no attention meanwhile."""
         while busy():

@@ -259,6 +259,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self.handover: Handover | None = None
         self._backlog: list[SourceRecord] = []
         self._next_offsets: dict[int, int] = {}  # per partition, after the last record read
+        self._lag: dict[int, int] = {}  # per assigned partition, as of the last fetch (replaced, never changed)
         self._stop = stop or StopClock()
         self._accept = accept
         self._log = log
@@ -408,6 +409,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self._changed = self._watch.check(self._consumer)
         if self._changed is not None:
             return {}
+        self._lag = self._partition_lag()
         self._note_coordinator(any(batches.values()))
         return batches
 
@@ -479,6 +481,19 @@ class KafkaSource(AsyncConsumerRebalanceListener):
                 return None
             lag += max(0, newest - self._next_offsets.get(tp.partition, newest))
         return f"{lag:,} messages behind"
+
+    def lag(self) -> dict[int, int]:
+        """Messages behind the newest per assigned partition, as of the last fetch."""
+        return self._lag
+
+    def _partition_lag(self) -> dict[int, int]:
+        """The cached high watermark minus the consumer's position, per assigned partition
+        where both are known (kafka-python's subscription state: no round trip to a broker)."""
+        lag = {}
+        for tp, state in list(self._consumer._subscription.assignment.items()):
+            if state.highwater is not None and state.position is not None:
+                lag[tp.partition] = max(0, state.highwater - state.position.offset)
+        return lag
 
     def commit(self, positions: dict[int, int]) -> tuple[dict[int, int], CommitOutcome]:
         """Commit the next offsets of the partitions this member owns (others are not its to

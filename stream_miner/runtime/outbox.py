@@ -5,8 +5,9 @@ the partition's next owner, which writes it. So, when the source shares its part
 other group members, letters wait here until a commit covering their offsets is acknowledged
 (:meth:`DeadLetterOutbox.release`), and letters beyond a handover boundary are dropped
 (:meth:`DeadLetterOutbox.give_back`). Then every bad record is written by exactly one member.
-Counts by reason cover every letter taken and not given back, and survive restarts with the
-held letters (:meth:`DeadLetterOutbox.state`). With ``hold=False`` (no checkpoints, or a
+Counts by reason cover every letter taken and not given back (``given_back`` counts the
+rest, so the two together only grow), and survive restarts with the held letters
+(:meth:`DeadLetterOutbox.state`). With ``hold=False`` (no checkpoints, or a
 source nobody else reads) letters go straight to the sink.
 """
 
@@ -26,6 +27,7 @@ class DeadLetterOutbox:
         self.sink = sink
         self.hold = hold
         self.counts: Counter[str] = Counter()
+        self.given_back: Counter[str] = Counter()
         self._held: list[DeadLetter] = []
 
     def write(self, letter: DeadLetter) -> None:
@@ -51,12 +53,13 @@ class DeadLetterOutbox:
 
     def give_back(self, partition: int, boundary: int) -> None:
         """Drop held letters of ``partition`` at or beyond ``boundary`` (the next owner of the
-        partition writes them) and uncount them."""
+        partition writes them) and move them from ``counts`` to ``given_back``."""
         dropped = [x for x in self._held if x.partition == partition and (x.offset or 0) >= boundary]
         if dropped:
             self._held = [x for x in self._held if x not in dropped]
             for letter in dropped:
                 self.counts[letter.reason] -= 1
+                self.given_back[letter.reason] += 1
                 if not self.counts[letter.reason]:
                     del self.counts[letter.reason]
 
@@ -73,6 +76,7 @@ class DeadLetterOutbox:
         """JSON-ready state for a checkpoint: counts, held letters, where the sink stands."""
         return {
             "counts": dict(self.counts),
+            "given_back": dict(self.given_back),
             "held": [_letter_state(letter) for letter in self._held],
             "written": self.sink.position(),
         }
@@ -82,6 +86,7 @@ class DeadLetterOutbox:
         it stood in that state), dropping what was written after it."""
         self.counts.clear()
         self.counts.update(state["counts"])  # in place: watchers hold this counter
+        self.given_back = Counter(state.get("given_back", {}))  # checkpoints before 0.3 did not keep it
         self._held = [_letter_from(entry) for entry in state["held"]]
         self.sink.truncate(state["written"] if written is None else written)
 

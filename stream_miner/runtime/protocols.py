@@ -82,6 +82,11 @@ class Source(Protocol):
         """Where reading stands, for a person (share of a file read, lag behind a topic)."""
         ...
 
+    def lag(self) -> dict[int, int]:
+        """Messages behind the newest per assigned partition, as of the last fetch (a Kafka
+        topic); empty for a file. Safe to call from any thread."""
+        ...
+
     def commit(self, positions: dict[int, int]) -> tuple[dict[int, int], CommitOutcome]:
         """Record progress outside (a Kafka group's offsets) once a checkpoint covers it: the
         positions this reader may record (a group member: of the partitions it owns) and

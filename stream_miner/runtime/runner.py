@@ -50,7 +50,13 @@ from stream_miner.runtime.health import DeadLetterWatch, plural, summary
 from stream_miner.runtime.ledger import CommitOutcome, PartitionLedger
 from stream_miner.runtime.outbox import DeadLetterOutbox
 from stream_miner.runtime.progress import ProgressLine
-from stream_miner.runtime.protocols import DeadLetterSink, Source, SourceChanged, TickListener, TickReport
+from stream_miner.runtime.protocols import (
+    DeadLetterSink,
+    Source,
+    SourceChanged,
+    TickListener,
+    TickReport,
+)
 from stream_miner.runtime.schedule import TickSchedule
 
 EXIT_OK, EXIT_USAGE = 0, 2
@@ -96,6 +102,28 @@ class RunSettings:
             raise ValueError("--allowed-lateness needs an event-time window (--window-time)")
 
 
+@dataclass(frozen=True)
+class RunFigures:
+    """The loop's counts at one moment, taken together (for metrics, read on another thread).
+    ``consumed`` + ``given_back`` only grows, as does ``rejected`` + ``rejected_given_back``
+    per reason; the other counts only grow. ``watermark`` (event-time windows) and
+    ``checkpointed_at`` (wall clock of the last checkpoint written, across restarts) are None
+    until known; ``lag`` is the source's lag per partition."""
+
+    consumed: int
+    given_back: int
+    duplicates: int
+    dropped_late: int
+    rejected: dict[str, int]
+    rejected_given_back: dict[str, int]
+    ticks: int
+    emerged: int
+    faded: int
+    watermark: float | None
+    checkpointed_at: float | None
+    lag: dict[int, int]
+
+
 class Runner:
     """Runs one source through the window until it ends or :meth:`stop` is called."""
 
@@ -132,6 +160,7 @@ class Runner:
         self.source_identity: dict[str, str] = {}  # the source's identity when the checkpoint was made
         self._resume_at: dict[int, int] = {}  # partitions of a lost or cut log, accepted: read from here
         self.consumed = 0
+        self.checkpointed_at: float | None = None  # wall clock of the last checkpoint written
         self.last_id: str | None = None
         self.newest = -math.inf
         self.watermark = -math.inf  # where an event-time window ends: newest - lateness, or newest at the end
@@ -459,6 +488,8 @@ class Runner:
         the window lets go of it before the next record is taken (:meth:`_withdraw`)."""
         returned = self.ledger.give_back(partition, boundary)
         self.consumed -= returned
+        if returned:
+            self.counts["given back"] += returned
         self.recent.forget(*tags_from(partition, boundary))
         self.waiting = [w for w in self.waiting if not (w[3] == partition and w[4] >= boundary)]
         heapq.heapify(self.waiting)
@@ -501,6 +532,7 @@ class Runner:
             positions = dict(self.ledger.held)
             self.ledger.sent(positions)
             self.sequence += 1
+            saved_at = time.time()
             metadata = {
                 "source": self.source.name,
                 "source_identity": self.source.identity(),
@@ -519,6 +551,7 @@ class Runner:
                 "counts": dict(self.counts),
                 "records": self.watch.records,
                 "earliest": None if self.earliest == math.inf else self.earliest,
+                "saved_at": saved_at,
             }
             if self.detector is not None:
                 metadata["drift"] = self.detector.state()
@@ -532,6 +565,7 @@ class Runner:
                 self._tell_unwritten(str(error))
                 return {}
             self._unsaved = False
+            self.checkpointed_at = saved_at
             self._tell_written(path)
             if self.events is not None:
                 self.events.release(self.settings.checkpoint_dir, self.sequence)
@@ -624,6 +658,7 @@ class Runner:
         earliest = metadata.get("earliest")
         self.earliest = math.inf if earliest is None else float(earliest)
         self._take_drift_state(metadata)
+        self.checkpointed_at = metadata.get("saved_at")  # nor this
         self.schedule.restored(self.miner.next_tick, self.consumed)
 
     def _take_drift_state(self, metadata: dict) -> None:
@@ -650,6 +685,27 @@ class Runner:
         self.dead_letters.restore(metadata["dead_letters"], written)
         self.ledger.outcome(positions, outcome)
         self.dead_letters.release(self.ledger.landed, write=noted is None)  # else written before
+
+    def figures(self) -> RunFigures:
+        """The counts as one consistent set (safe from any thread: taken under the loop's lock,
+        so a call may wait for a checkpoint being written)."""
+        with self._lock:
+            letters = self.dead_letters
+            timed = isinstance(self.settings.window, TimeWindow) and self.watermark > -math.inf
+            return RunFigures(
+                consumed=self.consumed,
+                given_back=self.counts["given back"],
+                duplicates=self.counts["duplicates skipped"],
+                dropped_late=self.counts["dropped as too late"],
+                rejected=dict(letters.counts),
+                rejected_given_back=dict(letters.given_back),
+                ticks=self.schedule.ticks,
+                emerged=self.detector.emerged_total if self.detector else 0,
+                faded=self.detector.faded_total if self.detector else 0,
+                watermark=self.watermark if timed else None,
+                checkpointed_at=self.checkpointed_at,
+                lag=self.source.lag(),
+            )
 
     def _summarise(self) -> None:
         self.progress.close()
