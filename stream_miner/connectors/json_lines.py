@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import os
+import stat
 import sys
 
 
@@ -14,6 +15,7 @@ class JsonLinesFile:
     def __init__(self, path: str | os.PathLike[str]) -> None:
         self.path = path
         self._file = open(path, "a", encoding="utf-8")  # noqa: SIM115 - closed by close()
+        self._regular = stat.S_ISREG(os.fstat(self._file.fileno()).st_mode)  # not a pipe or /dev/null
 
     def write(self, record: dict) -> None:
         """Append ``record`` as one line and flush it."""
@@ -21,14 +23,15 @@ class JsonLinesFile:
         self._file.flush()
 
     def flush(self) -> None:
-        """Make what was written durable (fsync)."""
+        """Make what was written durable (fsync; a pipe or device has nothing to sync)."""
         self._file.flush()
-        os.fsync(self._file.fileno())
+        if self._regular:
+            os.fsync(self._file.fileno())
 
     def position(self) -> int | None:
-        """The file's length in bytes."""
+        """The file's length in bytes (None for a pipe or device: nothing to cut back)."""
         self._file.flush()
-        return os.fstat(self._file.fileno()).st_size
+        return os.fstat(self._file.fileno()).st_size if self._regular else None
 
     def truncate(self, position: int | None) -> None:
         """Cut the file back to ``position`` bytes (never lengthen it: a file shorter than a

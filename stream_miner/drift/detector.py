@@ -51,8 +51,9 @@ from stream_miner.drift.events import (
 )
 from stream_miner.drift.patterns import CountOf, Figures, Names, Thresholds, figures, lift_without, splits
 from stream_miner.drift.significance import DOWN, UP, benjamini_hochberg, odds_ratio_p, proportion_p
-from stream_miner.engine.miner import Tick
+from stream_miner.engine.miner import Tick, WindowMiner
 from stream_miner.engine.rules import Rule
+from stream_miner.engine.window import CountWindow, TimeWindow
 
 STATE_VERSION = 1
 MAX_PATTERN_SIZE = 8  # the hard cap on ``max_size``: checking a pattern's splits costs 2^size
@@ -187,6 +188,29 @@ class DriftDetector:
         moves = self._step(found, enter, leave, window)
         events = self._report(moves, tick.number, window, counts, leave)
         self._remember(recorded, window)
+        return events
+
+    def follow(
+        self,
+        miner: WindowMiner,
+        tick: Tick,
+        *,
+        first_id: str | None = None,
+        last_id: str | None = None,
+        earliest: float | None = None,
+    ) -> list[DriftEvent]:
+        """:meth:`update` for a tick of ``miner``: the window's place, exact counts in the
+        window and in the past baskets, and which past baskets the miner keeps from now on.
+        ``first_id``/``last_id`` name the window's oldest and newest basket in the events;
+        ``earliest`` is the first event time seen (a time window is full once it spans a
+        whole length from there). Nothing while the window is empty."""
+        view = window_view(miner, tick, first_id=first_id, last_id=last_id, earliest=earliest)
+        if view is None:
+            return []
+        events = self.update(tick, view, miner.count, miner.count_past)
+        needed = self.past_needed()
+        if needed is not None:
+            miner.keep_past(*needed)
         return events
 
     def _counts_of(
@@ -519,6 +543,29 @@ class DriftDetector:
             detector._decayed = Decayed.from_state(state["decayed"])
         detector._recent = {(tuple(items), str(kind)): float(end) for items, kind, end in state["recent"]}
         return detector
+
+
+def window_view(
+    miner: WindowMiner,
+    tick: Tick,
+    *,
+    first_id: str | None = None,
+    last_id: str | None = None,
+    earliest: float | None = None,
+) -> WindowView | None:
+    """Where ``miner``'s window lies at ``tick`` (None while it is empty): basket numbers for
+    a count window, event time for a time window."""
+    n = tick.result.n_baskets
+    if not n:
+        return None
+    window = miner.window
+    if isinstance(window, TimeWindow):
+        end = miner.newest_time
+        full = earliest is not None and end - earliest >= window.seconds
+        return WindowView(end - window.seconds, end, full, WindowInfo(n, first_id, last_id, end))
+    full = isinstance(window, CountWindow) and n >= window.size
+    start = miner.left_total
+    return WindowView(start, start + n, full, WindowInfo(n, first_id, last_id, None))
 
 
 def event_id(kind: str, tick: int, items: Names) -> str:

@@ -214,6 +214,11 @@ class WindowMiner:
             self.flush()
         return verdict
 
+    @property
+    def newest_time(self) -> float:
+        """The window's end in event time (-inf before any time is known)."""
+        return self._newest_ts
+
     def advance_time(self, ts: float) -> None:
         """Move an event-time window's end to ``ts`` (if later) even before a basket that new
         arrives: the runtime's watermark. Baskets at or before ``ts - seconds`` expire."""

@@ -37,8 +37,7 @@ from pathlib import Path
 from typing import TextIO
 
 from stream_miner.decoding.records import Basket, DeadLetter
-from stream_miner.drift.detector import DriftDetector, DriftSettings, WindowView
-from stream_miner.drift.events import WindowInfo
+from stream_miner.drift.detector import DriftDetector, DriftSettings
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
 from stream_miner.engine.miner import WindowMiner
@@ -339,37 +338,20 @@ class Runner:
 
     def _detect(self, report: TickReport) -> TickReport:
         """Feed the tick to the drift detector (on the loop's thread, so an abandoned tick
-        never half-updates it); the report with its events and patterns."""
+        never half-updates it); the report with its events and patterns. Event-time windows
+        end at the watermark (baskets given back to another group member shift the numbers
+        of a count window's later baskets, so comparisons across a handover are approximate)."""
         if self.detector is None:
             return report
         with self._lock:
-            view = self._window_view(report)
-            if view is None:
-                return report
-            events = self.detector.update(report.tick, view, self.miner.count, self.miner.count_past)
+            tag = self.miner.oldest_tag()
+            first_id = None if tag is None else self.recent.id_at(tag)
+            earliest = None if self.earliest == math.inf else self.earliest
+            events = self.detector.follow(
+                self.miner, report.tick, first_id=first_id, last_id=self.last_id, earliest=earliest
+            )
             patterns = self.detector.patterns()
-            needed = self.detector.past_needed()
-            if needed is not None:
-                self.miner.keep_past(*needed)
         return replace(report, events=tuple(events), patterns=tuple(patterns))
-
-    def _window_view(self, report: TickReport) -> WindowView | None:
-        """Where the tick's window lies (None while it is empty): in event time for a time
-        window, else in basket numbers (baskets given back to another group member shift the
-        numbers of later ones, so comparisons across a handover are approximate)."""
-        n = report.tick.result.n_baskets
-        if not n:
-            return None
-        tag = self.miner.oldest_tag()
-        first_id = None if tag is None else self.recent.id_at(tag)
-        window = self.settings.window
-        if isinstance(window, TimeWindow):
-            end = self.watermark
-            info = WindowInfo(n, first_id, self.last_id, end)
-            return WindowView(end - window.seconds, end, end - self.earliest >= window.seconds, info)
-        full = window is not None and n >= window.size
-        start = self.miner.left_total  # the number of the oldest basket in the window
-        return WindowView(start, start + n, full, WindowInfo(n, first_id, self.last_id, None))
 
     def _checkpoint_if_due(self) -> None:
         if time.monotonic() - self._last_checkpoint_at >= self.settings.checkpoint_interval:
@@ -713,4 +695,9 @@ class Runner:
         letters, verdicts = self.dead_letters.counts, self.miner.verdicts
         if self.talk_when_clean or letters or self.counts or verdicts[Verdict.TRUNCATED]:
             line = summary(self.consumed, self.schedule.ticks, self.counts, letters, verdicts)
+            if self.detector is not None:
+                line += (
+                    f"; patterns: {self.detector.emerged_total} emerged, {self.detector.faded_total} faded, "
+                    f"{self.detector.active_count} active"
+                )
             print(f"stream-miner: {line}", file=self.log)
