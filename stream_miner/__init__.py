@@ -10,12 +10,15 @@ from __future__ import annotations
 import importlib
 from typing import TYPE_CHECKING, Any
 
-__version__ = "0.2.0"
+__version__ = "0.4.0"
 
 _HOMES = {
     "BasketPolicy": "stream_miner.engine.hygiene",
     "CheckpointError": "stream_miner.runtime.checkpoint",
     "CountWindow": "stream_miner.engine.window",
+    "DriftDetector": "stream_miner.drift.detector",
+    "DriftEvent": "stream_miner.drift.events",
+    "DriftSettings": "stream_miner.drift.detector",
     "MinerState": "stream_miner.engine.miner",
     "MiningInterrupted": "stream_miner.engine.limits",
     "MiningParams": "stream_miner.engine.params",
@@ -37,6 +40,9 @@ __all__ = [
     "BasketPolicy",
     "CheckpointError",
     "CountWindow",
+    "DriftDetector",
+    "DriftEvent",
+    "DriftSettings",
     "MinerState",
     "MiningInterrupted",
     "MiningParams",
@@ -70,6 +76,8 @@ def __dir__() -> list[str]:
 
 
 if TYPE_CHECKING:
+    from stream_miner.drift.detector import DriftDetector, DriftSettings
+    from stream_miner.drift.events import DriftEvent
     from stream_miner.engine.delta import ResultDelta
     from stream_miner.engine.hygiene import BasketPolicy, Oversize, Verdict
     from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge

@@ -34,6 +34,9 @@ PUBLIC = {
     "CheckpointError",
     "ResultTooLarge",
     "MiningInterrupted",
+    "DriftDetector",
+    "DriftSettings",
+    "DriftEvent",
     "__version__",
 }
 
