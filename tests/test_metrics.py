@@ -297,7 +297,7 @@ def summary_counts(stderr: str) -> tuple[int, int, int, dict[str, int]]:
     assert found, stderr
     rest = found.group(3)
     duplicates = re.search(r"; (\d+) duplicates skipped", rest)
-    letters = re.search(r"; dead letters: (.*)$", rest)
+    letters = re.search(r"; dead letters: ([^;]*)", rest)
     by_reason = {}
     if letters:
         for part in letters.group(1).split(", "):
