@@ -1,13 +1,13 @@
-"""Where records leave stream-miner: a Kafka topic, a JSON Lines file, or stdout.
+"""Records leaving stream-miner for a Kafka topic: dead letters and drift events.
 
-Every sink takes JSON-ready dicts (``write``), flushes what it buffers (``flush``) and closes.
-The Kafka sink produces with ``acks="all"`` and ``enable_idempotence=True`` set explicitly, so
-a retried send is not written twice. :class:`KafkaDeadLetters` puts a bad record's raw bytes
+Both produce with ``acks="all"`` and ``enable_idempotence=True`` set explicitly, so a retried
+send is not written twice. :class:`KafkaEvents` sends each drift event's JSON keyed by its
+id. :class:`KafkaDeadLetters` puts a bad record's raw bytes
 on a dead-letter topic unchanged, keyed by the record's deterministic id
 (``SOURCE/PARTITION/OFFSET``), with the reason and origin in message headers; it keeps
-each dead letter until the broker confirmed it and sends again what failed (a broker
-stopped, killed or restarted), so :meth:`KafkaDeadLetters.flush` returns only once all are
-in the topic, or once a stop's time bound is spent (a line then says how many were not sent).
+each record until the broker confirmed it and sends again what failed (a broker stopped,
+killed or restarted), so ``flush`` returns only once all are in the topic, or once a stop's
+time bound is spent (a line then says how many were not sent).
 """
 
 from __future__ import annotations
@@ -51,50 +51,6 @@ def _producer(
     settings = (defaults or {}) | known | SAFE_PRODUCER
     make = lambda: KafkaProducer(bootstrap_servers=servers, **settings)  # noqa: E731
     return connect(servers, make, stop or threading.Event(), sys.stderr), topic
-
-
-class KafkaSink:
-    """JSON records to a Kafka topic (``kafka://HOST:PORT/TOPIC``)."""
-
-    def __init__(self, url: str, options: dict[str, object] | None = None) -> None:
-        self._producer, self.topic = _producer(url, options)
-
-    def write(self, record: dict) -> None:
-        self._producer.send(self.topic, value=json.dumps(record, ensure_ascii=False).encode())
-
-    def flush(self) -> None:
-        self._producer.flush()
-
-    def close(self) -> None:
-        self._producer.flush()
-        self._producer.close()
-
-
-class JsonlSink:
-    """JSON records appended to a file, one per line, flushed per record."""
-
-    def __init__(self, path: str | os.PathLike) -> None:
-        self._out: TextIO = open(path, "a", encoding="utf-8")  # noqa: SIM115
-
-    def write(self, record: dict) -> None:
-        self._out.write(json.dumps(record, ensure_ascii=False) + "\n")
-        self._out.flush()
-
-    def flush(self) -> None:
-        self._out.flush()
-
-    def close(self) -> None:
-        self._out.close()
-
-
-class StdoutSink(JsonlSink):
-    """JSON records on standard output."""
-
-    def __init__(self, out: TextIO | None = None) -> None:
-        self._out = out or sys.stdout
-
-    def close(self) -> None:
-        self._out.flush()
 
 
 class _ConfirmedSends:
