@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 import statistics
 import time
+from collections import Counter
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -60,6 +61,9 @@ def describe_tick(report: TickReport) -> str:
         parts.append(
             f"{plural(len(result.rules), 'rule')} (+{len(delta.rules_added)} -{len(delta.rules_removed)})"
         )
+    if report.events:
+        kinds = Counter(event.kind for event in report.events)
+        parts.append(", ".join(f"{n} {kind}" for kind, n in sorted(kinds.items())))
     parts.append(f"{report.window_update_seconds + report.refresh_seconds:.3f} s")
     return "; ".join(parts)
 
