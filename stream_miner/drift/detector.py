@@ -246,12 +246,10 @@ class DriftDetector:
         for items in [*itemsets, *self._tracked]:
             if not 2 <= len(items) <= self.settings.max_size or items in found:
                 continue
-            left, right = next(splits(items))  # a quick look at one split before all of them
-            expected = floor.numerator * count_of(left) * count_of(right)
-            below = count_of(items) * n * floor.denominator <= expected
-            if below and items not in self._tracked:
-                continue
-            found[items] = figures(items, n, count_of, self.settings.min_confidence)
+            tracked = items in self._tracked  # its exact figures are wanted, pattern or not
+            fig = figures(items, n, count_of, self.settings.min_confidence, None if tracked else floor)
+            if fig.improves or tracked:
+                found[items] = fig
         return found
 
     def _sized(self, itemsets: dict[Names, int]) -> dict[Names, int]:

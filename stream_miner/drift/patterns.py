@@ -17,6 +17,7 @@ from __future__ import annotations
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from fractions import Fraction
+from functools import cache
 from itertools import combinations
 
 from stream_miner.engine.rules import Rule
@@ -70,40 +71,65 @@ class Figures:
 
 
 def splits(items: Names) -> Iterator[tuple[Names, Names]]:
-    """Every split of ``items`` into two non-empty parts, each once (the part holding the
-    first item comes first)."""
-    first, rest = items[0], items[1:]
-    for k in range(len(rest)):
-        for chosen in combinations(rest, k):
-            left = (first, *chosen)
-            yield left, tuple(i for i in items if i not in left)
+    """Every split of ``items`` into two non-empty parts, each once: first the splits that set
+    one item apart, then the others."""
+    for left, right in _split_positions(len(items)):
+        yield tuple(items[i] for i in left), tuple(items[i] for i in right)
 
 
-def figures(items: Names, n_baskets: int, count_of: CountOf, min_confidence: Fraction) -> Figures:
+@cache
+def _split_positions(size: int) -> tuple[tuple[tuple[int, ...], tuple[int, ...]], ...]:
+    """The splits of ``size`` positions (see :func:`splits`), the one-item ones first."""
+    everything = range(size)
+    found = []
+    for k in range(1, size // 2 + 1):
+        for chosen in combinations(everything, k):
+            rest = tuple(i for i in everything if i not in chosen)
+            if 2 * k < size or chosen < rest:  # a half-half split once, not twice
+                found.append((chosen, rest))
+    return tuple(found)
+
+
+def figures(
+    items: Names,
+    n_baskets: int,
+    count_of: CountOf,
+    min_confidence: Fraction,
+    lift_floor: Fraction | None = None,
+) -> Figures:
     """The figures of ``items`` (sorted, two or more) in a window of ``n_baskets``, with
     ``count_of`` giving the exact count of it and of each of its subsets; the rules listed
-    are those with confidence at least ``min_confidence``."""
+    are those with confidence at least ``min_confidence``.
+
+    With ``lift_floor``, an itemset with a split whose lift is below it or at most 1 (no
+    pattern at that bar) is given up at that split: its figures then hold that split's lift and no
+    rules. The weakest split is the one whose parts are most common (same count, same
+    window: the largest n(P) n(Q) gives the lowest lift), the best rule the one with the
+    rarest antecedent, so only integers are compared before the figures are built."""
     count = count_of(items)
-    weakest: tuple[Fraction, Names, Names, int, int] | None = None
-    confidence = Fraction(0)
-    improving: list[Rule] = []
+    parts = []
     for left, right in splits(items):
         n_left, n_right = count_of(left), count_of(right)
-        split_lift = Fraction(count * n_baskets, n_left * n_right) if n_left and n_right else Fraction(0)
-        if weakest is None or split_lift < weakest[0]:
-            weakest = (split_lift, left, right, n_left, n_right)
-        for antecedent, consequent, n_a, n_c in (
-            (left, right, n_left, n_right),
-            (right, left, n_right, n_left),
+        expected = n_left * n_right  # lift = count x n_baskets / expected
+        if lift_floor is not None and (
+            count * n_baskets * lift_floor.denominator < lift_floor.numerator * expected
+            or count * n_baskets <= expected
         ):
-            if n_a:
-                confidence = max(confidence, Fraction(count, n_a))
-                rule = Rule(antecedent, consequent, count, n_a, n_c, n_baskets)
-                if _improves(rule, count_of):
-                    improving.append(rule)
-    assert weakest is not None, "a pattern has two or more items"
-    lift, left, right, n_left, n_right = weakest
-    rules = tuple(r for r in improving if Fraction(r.count, r.antecedent_count) >= min_confidence)
+            lift = Fraction(count * n_baskets, n_left * n_right) if n_left and n_right else Fraction(0)
+            return Figures(count, n_baskets, lift, Fraction(0), (left, right, n_left, n_right), False, ())
+        parts.append((left, right, n_left, n_right))
+    left, right, n_left, n_right = max(parts, key=lambda p: p[2] * p[3])
+    lift = Fraction(count * n_baskets, n_left * n_right) if n_left and n_right else Fraction(0)
+    rarest = min(min(p[2], p[3]) for p in parts)
+    confidence = Fraction(count, rarest) if rarest else Fraction(0)
+    improving = [
+        rule
+        for a, c, n_a, n_c in parts
+        for rule in (Rule(a, c, count, n_a, n_c, n_baskets), Rule(c, a, count, n_c, n_a, n_baskets))
+        if _improves(rule, count_of)
+    ]
+    bar = min_confidence
+    rules = tuple(r for r in improving if r.count * bar.denominator >= bar.numerator * r.antecedent_count)
     return Figures(count, n_baskets, lift, confidence, (left, right, n_left, n_right), bool(improving), rules)
 
 
