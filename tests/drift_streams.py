@@ -8,8 +8,8 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from fractions import Fraction
 
-from stream_miner.drift.detector import DriftDetector, DriftSettings, WindowView
-from stream_miner.drift.events import DriftEvent, WindowInfo
+from stream_miner.drift.detector import DriftDetector, DriftSettings
+from stream_miner.drift.events import DriftEvent
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.window import CountWindow
@@ -46,10 +46,8 @@ def replay(
         if i % T:
             continue
         tick = miner.tick(PARAMS)
-        n = tick.result.n_baskets
-        view = WindowView(i - n, i, n >= W, WindowInfo(n, None, None, None))
         for k, detector in enumerate(detectors):
-            found[k].extend(Seen(i, event) for event in detector.update(tick, view, miner.count))
+            found[k].extend(Seen(i, event) for event in detector.follow(miner, tick))
         if round_trip:
             last = detectors[-1]
             detectors[-1] = DriftDetector.restored(json.loads(json.dumps(last.state())), last.settings)

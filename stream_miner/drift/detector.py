@@ -333,7 +333,7 @@ class DriftDetector:
         if kind == FADED:  # a fade starts above the enter bar in the baseline
             established = exact and was >= self._support_bar
             p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, DOWN) if established else 1.0
-        elif was >= self._support_bar * self.settings.exit_fraction:  # it was there already
+        elif exact and was >= self._support_bar * self.settings.exit_fraction:  # it was there already
             p = 1.0
         else:  # an emergence starts below the exit bar in the baseline
             p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, UP)
@@ -422,7 +422,9 @@ class DriftDetector:
             if larger and not any(moved for _, moved in larger):
                 continue  # a larger pattern is still on its way: this one waits for it
             folded = bool(larger) or any(
-                self._moved(part, kind, moves, window) and not explains(items, part)
+                self._moved(part, kind, moves, window)
+                and not explains(items, part)
+                and self._linked(items, part)
                 for part in self._neighbours(items, kind, moves, bigger=False)
             )
             pattern = self._tracked[items]
@@ -459,6 +461,15 @@ class DriftDetector:
         if bigger:
             return {other for other in known if len(other) > len(items) and mine < set(other)}
         return {other for other in known if 2 <= len(other) < len(items) and set(other) < mine}
+
+    def _linked(self, items: Names, part: Names) -> bool:
+        """Whether every item of ``items`` outside ``part`` already goes with ``part``: an
+        active pattern inside ``items`` holds it and an item of ``part``. Then ``items``
+        moving with ``part`` is ``part``'s change; otherwise an item joined (or left) the
+        bundle, a change of its own."""
+        inside, mine = set(part), set(items)
+        settled = [set(p) for p, t in self._tracked.items() if t.state == ACTIVE and set(p) <= mine]
+        return all(any(x in p and p & inside for p in settled) for x in mine - inside)
 
     def _moved(self, items: Names, kind: str, moves: list[_Move], window: WindowView) -> bool:
         """Whether ``items`` makes the move ``kind`` now or made it within the last window."""

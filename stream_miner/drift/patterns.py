@@ -126,7 +126,7 @@ def figures(
         rule
         for a, c, n_a, n_c in parts
         for rule in (Rule(a, c, count, n_a, n_c, n_baskets), Rule(c, a, count, n_c, n_a, n_baskets))
-        if _improves(rule, count_of)
+        if rule.antecedent_count and _improves(rule, count_of)
     ]
     bar = min_confidence
     rules = tuple(r for r in improving if r.count * bar.denominator >= bar.numerator * r.antecedent_count)
