@@ -1,9 +1,9 @@
 """``stream-miner ops-kit`` and the operations files it writes, checked with the real
 ``promtool`` and a real Prometheus server (tests/prometheus_server.py).
 
-The alert firing path end to end (a real ``run --metrics-port`` scraped by Prometheus) needs
-the metrics of ``run``; the alerts' logic is covered here by ``promtool test rules``, whose
-unit tests are shown to fail when any alert's expression or hold time changes.
+The alerts' logic is covered here by ``promtool test rules``, whose unit tests are shown to
+fail when any alert's expression or hold time changes; the firing path end to end (a real
+``run --metrics-port`` scraped by Prometheus) is tests/test_prometheus_end_to_end.py.
 """
 
 from __future__ import annotations
