@@ -7,7 +7,7 @@ from fractions import Fraction
 from pathlib import Path
 
 from stream_miner.cli.options import UsageError, fraction, positive_int
-from stream_miner.cli.paths import check_output_file
+from stream_miner.cli.paths import check_output_file, open_output
 from stream_miner.drift.baseline import POLICIES
 from stream_miner.drift.detector import MAX_PATTERN_SIZE, DriftSettings
 from stream_miner.runtime.event_outbox import EventSink
@@ -123,14 +123,12 @@ def events_sink(args: argparse.Namespace, stop: StopClock) -> EventSink | None:
         from stream_miner.cli.event_lines import EventLines
 
         return EventLines(as_text=args.events_format == "text")
-    if target.startswith("kafka://"):
+    from stream_miner.connectors.json_lines import JsonLinesFile
+
+    def to_kafka(url: str) -> EventSink:
         from stream_miner.connectors.kafka_source import client_options  # Kafka only when asked for
         from stream_miner.connectors.sinks import KafkaEvents
 
-        return KafkaEvents(target, client_options(args.kafka_option), stop=stop)
-    from stream_miner.connectors.json_lines import JsonLinesFile
+        return KafkaEvents(url, client_options(args.kafka_option), stop=stop)
 
-    try:
-        return JsonLinesFile(target)
-    except OSError as error:
-        raise UsageError(f"--events-out {target!r}: cannot open it ({error.strerror})") from None
+    return open_output(target, "--events-out", to_kafka, JsonLinesFile)

@@ -1,10 +1,14 @@
-"""Checks, before a run starts, that every output path can be written (one-line errors)."""
+"""Output paths: checked before a run starts, and opened (one-line errors)."""
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
+from typing import TypeVar
 
 from stream_miner.cli.options import UsageError
+
+T = TypeVar("T")
 
 
 def check_output_file(path: Path, option: str) -> None:
@@ -37,3 +41,14 @@ def _try_writing_in(directory: Path, option: str, shown: Path) -> None:
             pass
     except OSError as error:
         raise UsageError(f"{option} {str(shown)!r}: cannot write there ({error.strerror})") from None
+
+
+def open_output(target: str, option: str, to_kafka: Callable[[str], T], to_file: Callable[[str], T]) -> T:
+    """The sink ``option`` names: ``to_kafka`` for a kafka:// address, else ``to_file``; a
+    file that cannot be opened is a one-line usage error."""
+    if target.startswith("kafka://"):
+        return to_kafka(target)
+    try:
+        return to_file(target)
+    except OSError as error:
+        raise UsageError(f"{option} {target!r}: cannot open it ({error.strerror})") from None

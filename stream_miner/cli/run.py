@@ -24,7 +24,7 @@ from stream_miner.cli.options import (
     positive_int,
     run_settings,
 )
-from stream_miner.cli.paths import check_directory, check_output_file
+from stream_miner.cli.paths import check_directory, check_output_file, open_output
 from stream_miner.cli.reporting import SnapshotWriter, TickLine
 from stream_miner.cli.signals import stop_on_signals
 from stream_miner.connectors.dead_letters import DeadLetterCounter, DeadLetterFile
@@ -310,15 +310,14 @@ def _dead_letters(args: argparse.Namespace, stop: StopClock) -> DeadLetterSink:
     target = args.dead_letter_out
     if target is None:
         return DeadLetterCounter()
-    if target.startswith("kafka://"):
+
+    def to_kafka(url: str) -> DeadLetterSink:
         from stream_miner.connectors.kafka_source import client_options  # Kafka only when asked for
         from stream_miner.connectors.sinks import KafkaDeadLetters
 
-        return KafkaDeadLetters(target, client_options(args.kafka_option), stop=stop)
-    try:
-        return DeadLetterFile(target)
-    except OSError as error:
-        raise UsageError(f"--dead-letter-out {target!r}: cannot open it ({error.strerror})") from None
+        return KafkaDeadLetters(url, client_options(args.kafka_option), stop=stop)
+
+    return open_output(target, "--dead-letter-out", to_kafka, DeadLetterFile)
 
 
 def _source(args: argparse.Namespace, stop: StopClock) -> Source:

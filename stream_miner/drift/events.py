@@ -11,8 +11,19 @@ EMERGED, FADED = "emerged", "faded"
 RISING, ACTIVE, FALLING = "rising", "active", "falling"
 
 
+class _Share:
+    """A count over a window of ``n_baskets``: ``support`` is its share (0 for no window)."""
+
+    count: int
+    n_baskets: int
+
+    @property
+    def support(self) -> float:
+        return self.count / self.n_baskets if self.n_baskets else 0.0
+
+
 @dataclass(frozen=True)
-class Baseline:
+class Baseline(_Share):
     """A pattern's figures in the baseline window. ``exact`` is False when the itemset was
     below the support threshold there: ``count`` is then the largest count it could have had
     (threshold - 1), and confidence and lift are unknown (None)."""
@@ -22,10 +33,6 @@ class Baseline:
     confidence: float | None
     lift: float | None
     exact: bool
-
-    @property
-    def support(self) -> float:
-        return self.count / self.n_baskets if self.n_baskets else 0.0
 
 
 @dataclass(frozen=True)
@@ -40,7 +47,7 @@ class WindowInfo:
 
 
 @dataclass(frozen=True)
-class DriftEvent:
+class DriftEvent(_Share):
     """One change: the pattern ``items`` emerged or faded at tick ``tick``.
 
     ``rules`` are the pattern's rules that pass the thresholds now (for a faded pattern: its
@@ -58,10 +65,6 @@ class DriftEvent:
     baseline: Baseline
     p_value: float
     window: WindowInfo
-
-    @property
-    def support(self) -> float:
-        return self.count / self.n_baskets if self.n_baskets else 0.0
 
     def as_json(self) -> dict[str, object]:
         """The event as one JSON-ready object (the schema in the README)."""
@@ -101,7 +104,7 @@ class DriftEvent:
 
 
 @dataclass(frozen=True)
-class PatternStatus:
+class PatternStatus(_Share):
     """A tracked pattern now: its lifecycle state (rising, active or falling), its support
     (count over the window) and its best rule's confidence and lift."""
 
@@ -111,7 +114,3 @@ class PatternStatus:
     n_baskets: int
     confidence: float
     lift: float
-
-    @property
-    def support(self) -> float:
-        return self.count / self.n_baskets if self.n_baskets else 0.0
