@@ -17,7 +17,8 @@ in the baseline below the exit bar, a fade needs it at or above the enter bar th
 noise around one threshold is no move. Significance at a tick: a rise needs both the support
 (two-proportion z-test) and the association of the pattern's weakest split (log odds ratio
 test) to grow, so a single item that gets popular raises nothing; a fall needs the support
-to drop (a stock-out that breaks a pairing counts). The p-values of every move tested at the
+to drop (a stock-out that breaks a pairing counts), or, for a pattern still bought as often
+that left the band by confidence or lift, the association to drop. The p-values of every move tested at the
 tick are adjusted together (Benjamini-Hochberg) and compared with ``false_discovery_rate``.
 Successive ticks share most of their baskets, so their tests are not independent: the
 confirmation ticks, the one event per move and the silent completion after a window bound
@@ -157,6 +158,8 @@ class DriftDetector:
     _recent: dict[tuple[Names, str], float] = field(default_factory=dict)  # (items, kind) -> window end
     _count_past: Callable[[Sequence[Names], float, float], list[int]] | None = None
     _support_bar = 1.0  # the enter support threshold at the current tick, as a share
+    _leave_count = 1  # the exit support threshold at the current tick, as a count
+    _candidates = 0  # itemsets that could be patterns at the current tick
 
     # ------------------------------------------------------------------ ticks
     def update(
@@ -185,6 +188,9 @@ class DriftDetector:
         if self.baseline_tick is None:
             self._warm_up(found, enter, window, recorded, tick.number)
             return []
+        self._prune(window)
+        self._leave_count = leave.min_count
+        self._candidates = len(found)
         moves = self._step(found, enter, leave, window)
         events = self._report(moves, tick.number, window, counts, leave)
         self._remember(recorded, window)
@@ -311,11 +317,12 @@ class DriftDetector:
         return self._tested(due, window)
 
     def _tested(self, due: list[tuple[Names, str, Figures]], window: WindowView) -> list[_Move]:
-        """The due moves that are significant at the false discovery rate (Benjamini-Hochberg
-        over all of them). A due move that stayed insignificant for a whole window completes
-        silently."""
+        """The due moves that are significant at the false discovery rate. Benjamini-Hochberg
+        counts every candidate pattern of the tick as a test (the moves due are picked from
+        them by their current counts, so the others count as tested and not significant). A
+        due move that stayed insignificant for a whole window completes silently."""
         tests = [(items, kind, fig, *self._evidence(items, kind, fig)) for items, kind, fig in due]
-        adjusted = benjamini_hochberg([p for *_, p, _ in tests])
+        adjusted = benjamini_hochberg([p for *_, p, _ in tests], self._candidates)
         moves = []
         for (items, kind, fig, _, baseline), p in zip(tests, adjusted, strict=True):
             if p <= self.settings.false_discovery_rate:
@@ -330,14 +337,19 @@ class DriftDetector:
         n0 = self._baseline_size()
         c0, exact = look(items)
         was = c0 / n0 if n0 else 0.0
+        left, right, n_left, n_right = fig.weakest
         if kind == FADED:  # a fade starts above the enter bar in the baseline
             established = exact and was >= self._support_bar
             p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, DOWN) if established else 1.0
+            (l0, l_exact), (r0, r_exact) = look(left), look(right)
+            if established and fig.count >= self._leave_count and l_exact and r_exact:
+                # still bought as often: it is the association that weakened
+                before = (round(c0), round(l0), round(r0), round(n0))
+                p = odds_ratio_p(before, (fig.count, n_left, n_right, fig.n_baskets), DOWN)
         elif exact and was >= self._support_bar * self.settings.exit_fraction:  # it was there already
             p = 1.0
         else:  # an emergence starts below the exit bar in the baseline
             p = proportion_p(round(c0), round(n0), fig.count, fig.n_baskets, UP)
-            left, right, n_left, n_right = fig.weakest
             (l0, l_exact), (r0, r_exact) = look(left), look(right)
             floor = 0 if self.settings.baseline == "decayed" else self._baseline_window().min_count
             if l_exact and r_exact and min(l0, r0) >= floor:  # else a part was rare: nothing to compare
@@ -489,8 +501,14 @@ class DriftDetector:
         """Keep the recorded windows that may still serve as a baseline: the newest one that
         ends at or before the current start, and every later one."""
         self._history.append(recorded)
+        self._prune(window)
+
+    def _prune(self, window: WindowView) -> None:
+        """Fold the recorded windows now disjoint from ``window`` into the decayed history
+        (each after the last folded) and drop those no baseline needs any more: keep the
+        newest one that ends at or before ``window``'s start, and every later one."""
         decayed = self._decayed
-        if decayed is not None:  # fold the disjoint windows in turn, each after the last folded
+        if decayed is not None:
             for old in self._history:
                 if old.end <= window.start and old.start >= decayed.end:
                     decayed.fold(old)
@@ -594,9 +612,11 @@ def _tracked(state: str, streak: int, since: float, fig: Figures) -> _Tracked:
 
 
 def _refresh(pattern: _Tracked, fig: Figures, *, keep_rules: bool) -> None:
+    """Take the pattern's figures now; its rules too unless ``keep_rules`` or none pass now
+    (a faded event lists the rules it last had)."""
     pattern.count, pattern.n_baskets = fig.count, fig.n_baskets
     pattern.confidence, pattern.lift = float(fig.confidence), float(fig.lift)
-    if not keep_rules:
+    if not keep_rules and fig.rules:
         pattern.rules = fig.rules
 
 

@@ -57,17 +57,21 @@ def odds_ratio_p(
     return _one_sided((log2 - log1) / math.sqrt(var1 + var2), direction)
 
 
-def benjamini_hochberg(p_values: Sequence[float]) -> list[float]:
-    """Adjusted p-values (step-up; compare each with the false discovery rate).
+def benjamini_hochberg(p_values: Sequence[float], tests: int | None = None) -> list[float]:
+    """Adjusted p-values (step-up; compare each with the false discovery rate). ``tests``
+    (at least ``len(p_values)``) counts hypotheses tested but not listed, whose p-values are
+    taken as 1 (they never lead to a discovery, but they raise the bar for the rest).
 
     >>> [round(p, 3) for p in benjamini_hochberg([0.01, 0.04, 0.03, 0.2])]
     [0.04, 0.053, 0.053, 0.2]
+    >>> [round(p, 3) for p in benjamini_hochberg([0.01, 0.04], tests=4)]
+    [0.04, 0.08]
     """
-    m = len(p_values)
-    order = sorted(range(m), key=lambda i: p_values[i])
-    adjusted = [1.0] * m
+    m = max(len(p_values), tests or 0)
+    order = sorted(range(len(p_values)), key=lambda i: p_values[i])
+    adjusted = [1.0] * len(p_values)
     running = 1.0
-    for rank in range(m, 0, -1):
+    for rank in range(len(p_values), 0, -1):
         i = order[rank - 1]
         running = min(running, p_values[i] * m / rank)
         adjusted[i] = running
