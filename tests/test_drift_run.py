@@ -228,3 +228,23 @@ def test_events_are_written_exactly_once_across_sigkill(planted, tmp_path, spawn
     )
     assert done.returncode == 0, done.stderr
     assert out.read_text(encoding="utf-8") == straight.read_text(encoding="utf-8")
+
+
+def test_the_readme_example_is_what_the_tool_prints():
+    """The README's drift example (the bundled market's two planted changes) matches a run."""
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parent.parent / "README.md").read_text(encoding="utf-8")
+    shown = readme.split("prints the two changes planted in it:\n\n```\n", 1)[1].split("```", 1)[0]
+    bundled = Path(__file__).resolve().parent.parent / "stream_miner" / "data" / "larkspur_market.jsonl"
+    command = stream_miner(
+        "run", "--source", f"file:{bundled}", "--window-size", "500", "--tick-every", "100",
+        "--min-support", "0.05", "--min-confidence", "0.5", "--min-lift", "1.5",
+        "--events-out", "-", "--events-format", "text", "--quiet",
+    )  # fmt: skip
+    printed = subprocess.run(command, check=True, capture_output=True, text=True, timeout=120).stdout
+    assert printed == shown
+    example = readme.split("this one is the first event of the command above:\n\n```json\n", 1)[1]
+    as_json = command[: command.index("--events-format")] + ["--quiet"]
+    first = subprocess.run(as_json, check=True, capture_output=True, text=True, timeout=120).stdout
+    assert json.loads(example.split("```", 1)[0]) == json.loads(first.splitlines()[0])

@@ -26,7 +26,10 @@ class EventLines:
     def position(self) -> int | None:
         return None
 
-    def truncate(self, position: int | None) -> None:
+    def identity(self) -> str | None:
+        return None
+
+    def truncate(self, position: int | None, identity: str | None = None) -> None:
         """Standard output cannot be cut back: nothing to do."""
 
     def close(self) -> None:

@@ -151,8 +151,11 @@ class StopAtMalformed:
     def position(self) -> int | None:
         return self.inner.position()
 
-    def truncate(self, position: int | None) -> None:
-        self.inner.truncate(position)
+    def identity(self) -> str | None:
+        return self.inner.identity()
+
+    def truncate(self, position: int | None, identity: str | None = None) -> None:
+        self.inner.truncate(position, identity)
 
     def close(self) -> None:
         self.inner.close()

@@ -39,7 +39,11 @@ class DeadLetterCounter:
         """Nothing is written, so there is nothing to cut back."""
         return None
 
-    def truncate(self, position: int | None) -> None:
+    def identity(self) -> str | None:
+        """Nothing is written: no file to name."""
+        return None
+
+    def truncate(self, position: int | None, identity: str | None = None) -> None:
         """Nothing is written, so there is nothing to cut back."""
 
     def close(self) -> None:
@@ -73,9 +77,13 @@ class DeadLetterFile(DeadLetterCounter):
         """The file's length in bytes."""
         return self._lines.position()
 
-    def truncate(self, position: int | None) -> None:
+    def identity(self) -> str | None:
+        """Which file this is (see :meth:`JsonLinesFile.identity`)."""
+        return self._lines.identity()
+
+    def truncate(self, position: int | None, identity: str | None = None) -> None:
         """Cut the file back to ``position`` bytes (see :meth:`JsonLinesFile.truncate`)."""
-        self._lines.truncate(position)
+        self._lines.truncate(position, identity)
 
     def close(self) -> None:
         """Close the file."""

@@ -15,7 +15,9 @@ class JsonLinesFile:
     def __init__(self, path: str | os.PathLike[str]) -> None:
         self.path = path
         self._file = open(path, "a", encoding="utf-8")  # noqa: SIM115 - closed by close()
-        self._regular = stat.S_ISREG(os.fstat(self._file.fileno()).st_mode)  # not a pipe or /dev/null
+        found = os.fstat(self._file.fileno())
+        self._regular = stat.S_ISREG(found.st_mode)  # not a pipe or /dev/null
+        self._identity = f"{found.st_dev}:{found.st_ino}" if self._regular else None
 
     def write(self, record: dict) -> None:
         """Append ``record`` as one line and flush it."""
@@ -33,10 +35,24 @@ class JsonLinesFile:
         self._file.flush()
         return os.fstat(self._file.fileno()).st_size if self._regular else None
 
-    def truncate(self, position: int | None) -> None:
-        """Cut the file back to ``position`` bytes (never lengthen it: a file shorter than a
-        checkpoint says was replaced or cut outside stream-miner, and is left alone)."""
+    def identity(self) -> str | None:
+        """Which file this is (device and inode; None for a pipe or device), so a restart
+        cuts back only the file a checkpoint measured."""
+        return self._identity
+
+    def truncate(self, position: int | None, identity: str | None = None) -> None:
+        """Cut the file back to ``position`` bytes, measured on the file ``identity`` (None:
+        this one). Never another file (a run restarted with another path: a line says so) and
+        never lengthened (a file shorter than a checkpoint says was cut outside stream-miner,
+        and is left alone)."""
         if position is None:
+            return
+        if identity is not None and identity != self._identity:
+            print(
+                f"stream-miner: warning: {self.path} is not the file the checkpoint measured; "
+                "appending to it without cutting anything back",
+                file=sys.stderr,
+            )
             return
         size = self.position() or 0
         if size > position:

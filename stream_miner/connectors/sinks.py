@@ -141,7 +141,11 @@ class _ConfirmedSends:
         """A topic cannot be cut back."""
         return None
 
-    def truncate(self, position: int | None) -> None:
+    def identity(self) -> str | None:
+        """A topic is not cut back: no identity needed."""
+        return None
+
+    def truncate(self, position: int | None, identity: str | None = None) -> None:
         """A topic cannot be cut back: nothing to do."""
 
     def close(self) -> None:

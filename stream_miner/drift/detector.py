@@ -157,6 +157,7 @@ class DriftDetector:
     _decayed: Decayed | None = None
     _recent: dict[tuple[Names, str], float] = field(default_factory=dict)  # (items, kind) -> window end
     _count_past: Callable[[Sequence[Names], float, float], list[int]] | None = None
+    _span: tuple[float, float] | None = None  # where the last tick's window lay
     _support_bar = 1.0  # the enter support threshold at the current tick, as a share
     _leave_count = 1  # the exit support threshold at the current tick, as a count
     _candidates = 0  # itemsets that could be patterns at the current tick
@@ -174,6 +175,9 @@ class DriftDetector:
         left the result); ``count_past`` exact counts over a past window, given as a span of
         positions like ``window``'s (the baskets :meth:`past_needed` asks to keep). Without
         them an itemset below a threshold counts as just below it."""
+        if (window.start, window.end) == self._span:
+            return []  # the window has not moved since the last tick: nothing to learn, no step
+        self._span = (window.start, window.end)
         self._count_past = count_past
         self._support_bar = tick.result.min_count / tick.result.n_baskets if tick.result.n_baskets else 1.0
         result = tick.result
@@ -217,6 +221,8 @@ class DriftDetector:
         needed = self.past_needed()
         if needed is not None:
             miner.keep_past(*needed)
+        elif miner.keeping_past:
+            miner.stop_keeping_past()
         return events
 
     def _counts_of(
@@ -553,6 +559,8 @@ class DriftDetector:
             "reference": None if self._reference is None else self._reference.state(),
             "decayed": None if self._decayed is None else self._decayed.state(),
             "recent": [[list(items), kind, end] for (items, kind), end in self._recent.items()],
+            "span": None if self._span is None else list(self._span),
+            "baseline": self.settings.baseline,
         }
 
     @classmethod
@@ -569,7 +577,24 @@ class DriftDetector:
         if state["decayed"] is not None:
             detector._decayed = Decayed.from_state(state["decayed"])
         detector._recent = {(tuple(items), str(kind)): float(end) for items, kind, end in state["recent"]}
+        span = state.get("span")
+        detector._span = None if span is None else (float(span[0]), float(span[1]))
+        detector._fit_settings(state.get("baseline", settings.baseline))
         return detector
+
+    def _fit_settings(self, baseline_before: str) -> None:
+        """After a restart with other settings: forget patterns larger than the pattern size
+        now allowed, and start or drop the decayed history when the baseline policy changed
+        (a new decayed history starts from the first full window)."""
+        limit = self.settings.max_size
+        self._tracked = {items: p for items, p in self._tracked.items() if len(items) <= limit}
+        self._recent = {key: end for key, end in self._recent.items() if len(key[0]) <= limit}
+        if self.settings.baseline == baseline_before:
+            return
+        self._decayed = None
+        if self.settings.baseline == "decayed" and self._reference is not None:
+            self._decayed = Decayed(0.5 ** (1.0 / self.settings.half_life))
+            self._decayed.fold(self._reference)
 
 
 def window_view(

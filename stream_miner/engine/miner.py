@@ -25,7 +25,7 @@ from stream_miner.engine.fpgrowth import Itemset, check_size, mine_tree
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.limits import stop_if_set
 from stream_miner.engine.params import MiningParams
-from stream_miner.engine.past import PastBaskets
+from stream_miner.engine.past import PastBaskets, in_span
 from stream_miner.engine.result import MiningResult
 from stream_miner.engine.rules import generate_rules
 from stream_miner.engine.tree import PrefixTree, frequency_rank
@@ -354,10 +354,11 @@ class WindowMiner:
         return count_itemsets(self.store.contents()[0], self._ids_of(itemsets))
 
     def count_past(self, itemsets: Sequence[Sequence[str]], low: float, high: float) -> list[int]:
-        """Exact counts over every basket with position in [``low``, ``high``): those kept
-        after they left the window (see :meth:`keep_past`) and those still in it. Positions
-        are basket numbers for a count window (:attr:`left_total` is the oldest one's number
-        in the window), event times for a time window."""
+        """Exact counts over every basket with position in [``low``, ``high``) for a count
+        window (basket numbers; :attr:`left_total` is the oldest one's number in the window)
+        or in (``low``, ``high``] for a time window (event times: a window ending at T holds
+        the baskets of (T - length, T]): those kept after they left the window (see
+        :meth:`keep_past`) and those still in it."""
         self.flush()
         ids = self._ids_of(itemsets)
         baskets, ts, _ = self.store.contents()
@@ -365,16 +366,27 @@ class WindowMiner:
             positions = self.left_total + np.arange(len(baskets), dtype=np.float64)
         else:
             positions = ts
-        inside = np.flatnonzero((positions >= low) & (positions < high))
-        now = count_itemsets(baskets.select(inside), ids)
-        return [a + b for a, b in zip(now, self.past.count(ids, low, high), strict=True)]
+        timed = not isinstance(self.window, CountWindow)
+        now = count_itemsets(baskets.select(np.flatnonzero(in_span(positions, low, high, timed))), ids)
+        return [a + b for a, b in zip(now, self.past.count(ids, low, high, timed=timed), strict=True)]
 
     def keep_past(self, low: float, high: float) -> None:
-        """Keep the baskets that left the window with position in [``low``, ``high``) for
-        :meth:`count_past`, and from now on every basket that leaves (until told again)."""
+        """Keep the baskets that left the window with a position :meth:`count_past` would
+        count in a span from ``low`` to ``high``, and from now on every basket that leaves
+        (until told otherwise)."""
         self.flush()
-        self.past.keep(low, high)
+        self.past.keep(low, high, timed=not isinstance(self.window, CountWindow))
         self._keeping_past = True
+
+    def stop_keeping_past(self) -> None:
+        """Drop the kept past baskets and keep none from now on."""
+        self.past = PastBaskets()
+        self._keeping_past = False
+
+    @property
+    def keeping_past(self) -> bool:
+        """Whether baskets that leave the window are kept (see :meth:`keep_past`)."""
+        return self._keeping_past
 
     def _ids_of(self, itemsets: Sequence[Sequence[str]]) -> list[list[int | None]]:
         return [[self.vocabulary.lookup(name) for name in itemset] for itemset in itemsets]
@@ -392,7 +404,12 @@ class WindowMiner:
         )
 
     def tick(
-        self, params: MiningParams, *, full_remine: bool = False, interrupt: threading.Event | None = None
+        self,
+        params: MiningParams,
+        *,
+        full_remine: bool = False,
+        interrupt: threading.Event | None = None,
+        defer: bool = False,
     ) -> Tick:
         """The current result and what changed since the previous tick.
 
@@ -415,9 +432,17 @@ class WindowMiner:
         result = self._result(found, min_count, params, names, interrupt)
         tick = Tick(self._ticks, result, diff_results(self._last, result))
         stop_if_set(interrupt)  # an abandoned tick must not count: its caller has moved on
-        self._last = result
-        self._ticks += 1
+        if not defer:
+            self.accept(tick)
         return tick
+
+    def accept(self, tick: Tick) -> None:
+        """Count ``tick`` (made with ``defer=True``: uncounted until then) as done: the next
+        tick carries the next number and its delta is taken against this one. A caller that
+        saves the miner from another thread accepts under its own lock, together with what
+        it does with the tick."""
+        self._last = tick.result
+        self._ticks = tick.number + 1
 
     def _track(
         self, params: MiningParams, names: Sequence[str], min_count: int, interrupt: threading.Event | None

@@ -41,17 +41,26 @@ class PastBaskets:
             self._parts = [(baskets, np.concatenate([p for _, p in self._parts]))]
         return self._parts[0]
 
-    def count(self, itemsets: Sequence[Sequence[int | None]], low: float, high: float) -> list[int]:
-        """Exact counts of ``itemsets`` (item ids) over the kept baskets with position in
-        [``low``, ``high``)."""
+    def count(
+        self, itemsets: Sequence[Sequence[int | None]], low: float, high: float, *, timed: bool = False
+    ) -> list[int]:
+        """Exact counts of ``itemsets`` (item ids) over the kept baskets in the span (see
+        :func:`in_span`)."""
         baskets, positions = self.contents()
-        chosen = (positions >= low) & (positions < high)
-        return count_itemsets(baskets.select(np.flatnonzero(chosen)), itemsets)
+        return count_itemsets(baskets.select(np.flatnonzero(in_span(positions, low, high, timed))), itemsets)
 
-    def keep(self, low: float, high: float) -> None:
-        """Drop every basket whose position lies outside [``low``, ``high``)."""
+    def keep(self, low: float, high: float, *, timed: bool = False) -> None:
+        """Drop every basket whose position lies outside the span (see :func:`in_span`)."""
         baskets, positions = self.contents()
-        chosen = (positions >= low) & (positions < high)
+        chosen = in_span(positions, low, high, timed)
         if not chosen.all():
             rows = np.flatnonzero(chosen)
             self._parts = [(baskets.select(rows), positions[rows])] if rows.size else []
+
+
+def in_span(positions: np.ndarray, low: float, high: float, timed: bool) -> np.ndarray:
+    """Which positions lie in a window's span: [low, high) of basket numbers, or with
+    ``timed`` (low, high] of event times (a time window ending at T holds (T - length, T])."""
+    if timed:
+        return (positions > low) & (positions <= high)
+    return (positions >= low) & (positions < high)

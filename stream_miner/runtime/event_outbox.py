@@ -33,8 +33,12 @@ class EventSink(Protocol):
     def position(self) -> int | None:
         """Where the sink stands (a byte offset), None when it cannot be cut back."""
 
-    def truncate(self, position: int | None) -> None:
-        """Cut the sink back to ``position`` (nothing for a sink that cannot be cut back)."""
+    def identity(self) -> str | None:
+        """Which file the sink writes (None for one that cannot be cut back)."""
+
+    def truncate(self, position: int | None, identity: str | None = None) -> None:
+        """Cut the sink back to ``position``, measured on the file ``identity`` (never another
+        one; nothing for a sink that cannot be cut back)."""
 
     def close(self) -> None:
         """Release the sink."""
@@ -59,7 +63,7 @@ class EventOutbox:
 
     def state(self) -> dict:
         """JSON-ready state for a checkpoint: the held events and where the sink stands."""
-        return {"held": list(self._held), "written": self.sink.position()}
+        return {"held": list(self._held), "written": self.sink.position(), "sink": self.sink.identity()}
 
     def release(self, directory: Path, sequence: int) -> int:
         """After checkpoint ``sequence`` is durable: write the held events, make them
@@ -69,7 +73,7 @@ class EventOutbox:
             for event in released:
                 self.sink.write(event)
             self.sink.flush()
-            note = {"sequence": sequence, "written": self.sink.position()}
+            note = {"sequence": sequence, "written": self.sink.position(), "sink": self.sink.identity()}
             write_text_atomically(directory / NOTE_NAME, json.dumps(note))
         return len(released)
 
@@ -78,23 +82,24 @@ class EventOutbox:
         out stay out (the sink is cut back to the end of them); otherwise the sink is cut
         back to where it stood at the checkpoint and the events stay held, for the next
         release."""
-        out, position = _read_note(directory, sequence)
+        out, position, identity = _read_note(directory, sequence)
         if out:
             self._held = []
-            self.sink.truncate(position)
+            self.sink.truncate(position, identity)
         else:
             self._held = list(state["held"])
-            self.sink.truncate(state["written"])
+            self.sink.truncate(state["written"], state.get("sink"))
 
 
-def _read_note(directory: Path, sequence: int) -> tuple[bool, int | None]:
-    """Whether the events of checkpoint ``sequence`` are out, and where the sink stood after
-    them (None for a sink without positions). A missing or unreadable note: not out."""
+def _read_note(directory: Path, sequence: int) -> tuple[bool, int | None, str | None]:
+    """Whether the events of checkpoint ``sequence`` are out, where the sink stood after
+    them (None for a sink without positions) and which file it was. A missing or unreadable
+    note: not out."""
     try:
         note = json.loads((directory / NOTE_NAME).read_text(encoding="utf-8"))
     except (OSError, ValueError):
-        return False, None
+        return False, None, None
     if not isinstance(note, dict) or note.get("sequence") != sequence:
-        return False, None
-    written = note.get("written")
-    return True, written if isinstance(written, int) else None
+        return False, None, None
+    written, sink = note.get("written"), note.get("sink")
+    return True, written if isinstance(written, int) else None, sink if isinstance(sink, str) else None

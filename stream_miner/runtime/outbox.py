@@ -79,6 +79,7 @@ class DeadLetterOutbox:
             "given_back": dict(self.given_back),
             "held": [_letter_state(letter) for letter in self._held],
             "written": self.sink.position(),
+            "sink": self.sink.identity(),
         }
 
     def restore(self, state: dict, written: int | None = None) -> None:
@@ -88,7 +89,7 @@ class DeadLetterOutbox:
         self.counts.update(state["counts"])  # in place: watchers hold this counter
         self.given_back = Counter(state.get("given_back", {}))  # checkpoints before 0.3 did not keep it
         self._held = [_letter_from(entry) for entry in state["held"]]
-        self.sink.truncate(state["written"] if written is None else written)
+        self.sink.truncate(state["written"] if written is None else written, state.get("sink"))
 
 
 def _below(letter: DeadLetter, landed: dict[int, int]) -> bool:

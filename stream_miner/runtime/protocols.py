@@ -116,9 +116,14 @@ class DeadLetterSink(Protocol):
         """Where the sink stands (a file's length), None for a sink that cannot be cut back."""
         ...
 
-    def truncate(self, position: int | None) -> None:
-        """Cut the sink back to ``position`` (from :meth:`position`), dropping what was written
-        after it; nothing for a sink that cannot be cut back."""
+    def identity(self) -> str | None:
+        """Which file the sink writes (None for one that cannot be cut back)."""
+        ...
+
+    def truncate(self, position: int | None, identity: str | None = None) -> None:
+        """Cut the sink back to ``position`` (from :meth:`position`, measured on the file
+        ``identity``: never another one), dropping what was written after it; nothing for a
+        sink that cannot be cut back."""
 
     def close(self) -> None:
         """Release the sink."""

@@ -337,13 +337,15 @@ class Runner:
             self._checkpoint_if_due()
 
     def _detect(self, report: TickReport) -> TickReport:
-        """Feed the tick to the drift detector (on the loop's thread, so an abandoned tick
-        never half-updates it); the report with its events and patterns. Event-time windows
+        """Count the tick in the miner and feed it to the drift detector, together under the
+        lock (on the loop's thread, so an abandoned tick never half-updates them); the report
+        with its events and patterns. Event-time windows
         end at the watermark (baskets given back to another group member shift the numbers
         of a count window's later baskets, so comparisons across a handover are approximate)."""
-        if self.detector is None:
-            return report
         with self._lock:
+            self.miner.accept(report.tick)
+            if self.detector is None:
+                return report
             tag = self.miner.oldest_tag()
             first_id = None if tag is None else self.recent.id_at(tag)
             earliest = None if self.earliest == math.inf else self.earliest
@@ -398,8 +400,8 @@ class Runner:
             self.miner.flush()
         applied = time.perf_counter()
         tick = self.miner.tick(
-            self.settings.params, full_remine=self.settings.full_remine, interrupt=self.interrupt
-        )
+            self.settings.params, full_remine=self.settings.full_remine, interrupt=self.interrupt, defer=True
+        )  # counted by _detect, under the lock with the detector's step: a checkpoint sees both or neither
         done = time.perf_counter()
         window = self.settings.window
         start = end = None
@@ -577,7 +579,14 @@ class Runner:
 
     def _restore(self) -> None:
         directory = self.settings.checkpoint_dir
-        if directory is None or self.settings.start_fresh:
+        if directory is None:
+            return
+        if self.settings.start_fresh:  # the notes describe the checkpoint being discarded
+            from stream_miner.runtime.commit_note import NOTE_NAME as COMMIT_NOTE
+            from stream_miner.runtime.event_outbox import NOTE_NAME as EVENTS_NOTE
+
+            for name in (COMMIT_NOTE, EVENTS_NOTE):
+                (directory / name).unlink(missing_ok=True)
             return
         from stream_miner.runtime.checkpoint import CheckpointError, load_checkpoint  # only with checkpoints
 
@@ -649,6 +658,8 @@ class Runner:
         if self.detector is not None and "drift" in metadata:
             assert self.settings.drift is not None
             self.detector = DriftDetector.restored(metadata["drift"], self.settings.drift)
+        if self.detector is None and self.miner.keeping_past:
+            self.miner.stop_keeping_past()  # kept for a detector this run does not have
         if self.events is not None and "events" in metadata and self.settings.checkpoint_dir is not None:
             self.events.restore(metadata["events"], self.settings.checkpoint_dir, self.sequence)
             self.events.release(self.settings.checkpoint_dir, self.sequence)
