@@ -406,6 +406,26 @@ def test_pair_table_grows_past_its_first_capacity(window, data):
     check_table(table, window, set(np.flatnonzero(first).tolist()), data)
 
 
+def test_pair_table_with_every_slot_taken_reads_no_cell_past_its_end():
+    """Regression: with exactly FIRST_CAPACITY items watched, the last slot paired with itself
+    addressed the cell one past the triangle (IndexError in pairs_with and pairs_among, seen
+    on a dense stream with 64 distinct items)."""
+    rng = np.random.default_rng(4)
+    window = [sorted(rng.choice(FIRST_CAPACITY, size=8, replace=False).tolist()) for _ in range(200)]
+    counts = np.bincount(np.array([i for b in window for i in b]), minlength=FIRST_CAPACITY)
+    table = PairTable()
+    every = np.ones(FIRST_CAPACITY, dtype=bool)
+    table.watch(every, source_of(window), counts)
+    assert table.capacity == FIRST_CAPACITY
+    truth = pair_counts(window, set(range(FIRST_CAPACITY)))
+    expected = sorted(list(p) for p, n in truth.items() if n >= 2)
+    assert table.pairs_among(every, 2).tolist() == expected
+    last = int(np.flatnonzero(table.item_at == table.item_at[-1])[0])  # the item in the last slot
+    item = int(table.item_at[last])
+    with_rows = table.pairs_with(np.array([item]), every, 2).tolist()
+    assert with_rows == [p for p in expected if item in p]
+
+
 def test_pair_table_add_reports_only_pairs_now_at_report_from():
     """add: a pair that enters and leaves in one batch ends at count 0, below report_from 1,
     so it is not reported although it reached 1 during the batch (regression: it was)."""

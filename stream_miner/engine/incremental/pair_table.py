@@ -115,8 +115,9 @@ class PairTable:
         found = [np.empty(0, dtype=np.int64)]
         for first in range(0, slots.size, ROWS_PER_PASS):  # slots[i] < slots[j] for i < j
             rows = np.arange(first, min(first + ROWS_PER_PASS, slots.size))
-            cells = cell_of(slots[rows][:, None], slots)
-            hit = (rows[:, None] < np.arange(slots.size)) & (self.counts[cells] >= at_least)
+            above = rows[:, None] < np.arange(slots.size)
+            cells = np.where(above, cell_of(slots[rows][:, None], slots), 0)  # a slot with itself has no cell
+            hit = above & (self.counts[cells] >= at_least)
             found.append(cells[hit])
         return self._items_of(np.concatenate(found))
 
@@ -127,8 +128,9 @@ class PairTable:
         _check_positive(at_least)
         others = self.slot_of[np.flatnonzero(items)]
         mine = self.slot_of[entering]
-        cells = cell_of(mine[:, None], others)
-        hit = (mine[:, None] != others) & (self.counts[cells] >= at_least)
+        apart = mine[:, None] != others
+        cells = np.where(apart, cell_of(mine[:, None], others), 0)  # a slot with itself has no cell
+        hit = apart & (self.counts[cells] >= at_least)
         return self._items_of(np.unique(cells[hit]))
 
     @property
