@@ -6,8 +6,10 @@ import json
 import sys
 from typing import TextIO
 
+from stream_miner.runtime.protocols import CannotCutBack
 
-class EventLines:
+
+class EventLines(CannotCutBack):
     """Events on stdout, flushed per event; stdout cannot be cut back on a restart."""
 
     def __init__(self, out: TextIO | None = None, *, as_text: bool = False) -> None:
@@ -22,15 +24,6 @@ class EventLines:
 
     def flush(self) -> None:
         self.out.flush()
-
-    def position(self) -> int | None:
-        return None
-
-    def identity(self) -> str | None:
-        return None
-
-    def truncate(self, position: int | None, identity: str | None = None) -> None:
-        """Standard output cannot be cut back: nothing to do."""
 
     def close(self) -> None:
         self.out.flush()

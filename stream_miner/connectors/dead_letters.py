@@ -18,11 +18,12 @@ from typing import Self
 
 from stream_miner.connectors.json_lines import JsonLinesFile
 from stream_miner.decoding.records import DeadLetter
+from stream_miner.runtime.protocols import CannotCutBack
 
 RAW_TEXT_LIMIT = 1000
 
 
-class DeadLetterCounter:
+class DeadLetterCounter(CannotCutBack):
     """Counts dead letters by reason and keeps nothing else (for bad input the user drops)."""
 
     def __init__(self) -> None:
@@ -34,17 +35,6 @@ class DeadLetterCounter:
 
     def flush(self) -> None:
         """Make what was written durable (each write already is, here)."""
-
-    def position(self) -> int | None:
-        """Nothing is written, so there is nothing to cut back."""
-        return None
-
-    def identity(self) -> str | None:
-        """Nothing is written: no file to name."""
-        return None
-
-    def truncate(self, position: int | None, identity: str | None = None) -> None:
-        """Nothing is written, so there is nothing to cut back."""
 
     def close(self) -> None:
         """Release what the sink holds (nothing here)."""

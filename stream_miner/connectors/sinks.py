@@ -25,6 +25,7 @@ from kafka.producer.future import FutureRecordMetadata
 
 from stream_miner.connectors.kafka_source import CLOSE_TIMEOUT, Retry, connect, describe, parse_kafka_url
 from stream_miner.decoding.records import DeadLetter
+from stream_miner.runtime.protocols import CannotCutBack
 from stream_miner.runtime.stop_clock import StopClock
 
 SAFE_PRODUCER = {"acks": "all", "enable_idempotence": True}
@@ -53,7 +54,7 @@ def _producer(
     return connect(servers, make, stop or threading.Event(), sys.stderr), topic
 
 
-class _ConfirmedSends:
+class _ConfirmedSends(CannotCutBack):
     """Records to a Kafka topic, each kept until the broker confirmed it and sent again when a
     send failed in a way that a retry can mend; subclasses say how an item becomes a record."""
 
@@ -136,17 +137,6 @@ class _ConfirmedSends:
             return None
         failure = next((f.exception for _, f in self._unconfirmed if f is not None and f.failed()), None)
         return problem or (describe(failure) if failure is not None else "not handed to the client")
-
-    def position(self) -> int | None:
-        """A topic cannot be cut back."""
-        return None
-
-    def identity(self) -> str | None:
-        """A topic is not cut back: no identity needed."""
-        return None
-
-    def truncate(self, position: int | None, identity: str | None = None) -> None:
-        """A topic cannot be cut back: nothing to do."""
 
     def close(self) -> None:
         """Deliver what is left (see :meth:`flush`), then close within the stop bound."""

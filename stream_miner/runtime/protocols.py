@@ -146,6 +146,20 @@ class TickReport:
     patterns: tuple[PatternStatus, ...] = ()  # tracked patterns after this tick, by support
 
 
+class CannotCutBack:
+    """For a sink that cannot be cut back on a restart (stdout, a topic, a counter): no
+    position, no file identity, nothing to truncate."""
+
+    def position(self) -> int | None:
+        return None
+
+    def identity(self) -> str | None:
+        return None
+
+    def truncate(self, position: int | None, identity: str | None = None) -> None:
+        """Nothing can be cut back: nothing to do."""
+
+
 class TickListener(Protocol):
     """Told about every tick, in order, on the run loop's thread."""
 
