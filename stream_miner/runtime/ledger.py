@@ -49,13 +49,18 @@ class PartitionLedger:
     def counted(self, partition: int, offset: int) -> None:
         """The basket read at ``offset`` entered the window (possibly after later ones, when
         an event-time window held it back)."""
-        if offset < self.landed.get(partition, 0):
+        floor = self.landed.get(partition, 0)
+        if offset < floor:
             return  # below what the group knows: never given back
         segments = self._segments.setdefault(partition, [])
         if not segments or offset < segments[0][0]:
             segments.insert(0, [offset, 0])
         starts = [start for start, _ in segments]
-        segments[bisect.bisect_right(starts, offset) - 1][1] += 1
+        at = bisect.bisect_right(starts, offset) - 1
+        if segments[at][0] < floor:  # that segment began below what the group knows: split it there
+            at += 1
+            segments.insert(at, [floor, 0])
+        segments[at][1] += 1
 
     # --------------------------------------------------------------- commits
     def sent(self, positions: dict[int, int]) -> None:
