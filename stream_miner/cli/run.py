@@ -133,8 +133,8 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
         "--metrics-port",
         type=port_number,
         metavar="PORT",
-        help="serve Prometheus metrics on http://HOST:PORT/metrics for the whole run (0: a free port, "
-        "printed at the start)",
+        help="serve Prometheus metrics on http://HOST:PORT/metrics and a status page on http://HOST:PORT/ "
+        "for the whole run (0: a free port, printed at the start)",
     )
     metrics.add_argument(
         "--metrics-host",
