@@ -37,6 +37,7 @@ from stream_miner.runtime.stop_clock import DEFAULT_STOP_WITHIN, StopClock
 if TYPE_CHECKING:
     from stream_miner.connectors.http_server import HttpServer
     from stream_miner.metrics import RunMetrics
+    from stream_miner.status import StatusBoard
 
 DEFAULT_METRICS_HOST = "127.0.0.1"
 
@@ -132,8 +133,8 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
         "--metrics-port",
         type=port_number,
         metavar="PORT",
-        help="serve Prometheus metrics on http://HOST:PORT/metrics for the whole run (0: a free port, "
-        "printed at the start)",
+        help="serve Prometheus metrics on http://HOST:PORT/metrics and a status page on http://HOST:PORT/ "
+        "for the whole run (0: a free port, printed at the start)",
     )
     metrics.add_argument(
         "--metrics-host",
@@ -204,10 +205,12 @@ def run_run(args: argparse.Namespace) -> int:
     settings = _settings(args)
     _check_outputs(args)
     metrics = _metrics(args)
+    board = _status_board(metrics)
     stop = StopClock(args.stop_within)
     with ExitStack() as resources, stop_on_signals(stop.set):
-        if metrics is not None:  # listening first: a port in use stops the run before anything is read
-            resources.enter_context(closing(_serve_metrics(args, metrics)))
+        if metrics is not None and board is not None:  # listening first: a port in use stops the run
+            server = serve_status(args.metrics_host, args.metrics_port, metrics, board)
+            resources.enter_context(closing(server))
         try:
             source = resources.enter_context(closing(_source(args, stop)))
             dead_letters = resources.enter_context(closing(_dead_letters(args, stop)))
@@ -221,8 +224,8 @@ def run_run(args: argparse.Namespace) -> int:
             listeners.append(SnapshotWriter(args.snapshot_out))
         if not args.quiet:
             listeners.append(TickLine(sys.stderr))
-        if metrics is not None:
-            listeners.append(metrics)
+        if metrics is not None and board is not None:
+            listeners += [metrics, board]
         runner = Runner(settings, source, dead_letters, listeners, events=events)
         if metrics is not None:
             metrics.watch(runner.figures)
@@ -281,17 +284,29 @@ def _metrics(args: argparse.Namespace) -> RunMetrics | None:
     return RunMetrics(TopPatterns(k))
 
 
-def _serve_metrics(args: argparse.Namespace, metrics: RunMetrics) -> HttpServer:
-    """The metrics server, listening; its address is said on stderr."""
-    from stream_miner.connectors.http_server import HttpServer  # only when asked for
+def _status_board(metrics: RunMetrics | None) -> StatusBoard | None:
+    """The status page's listener, beside the metrics (None without them)."""
+    if metrics is None:
+        return None
+    from stream_miner.status import StatusBoard  # only when asked for
 
-    host = args.metrics_host or DEFAULT_METRICS_HOST
+    return StatusBoard()
+
+
+def serve_status(host: str | None, port: int, metrics: RunMetrics, board: StatusBoard) -> HttpServer:
+    """One server for the metrics and the status page, listening; both addresses are said on
+    stderr. A port that cannot be listened on is a usage error."""
+    from stream_miner.connectors.http_server import HttpServer  # only when asked for
+    from stream_miner.status import status_routes
+
+    host = host or DEFAULT_METRICS_HOST
     try:
-        server = HttpServer(host, args.metrics_port, {"/metrics": metrics.exposition})
+        server = HttpServer(host, port, {"/metrics": metrics.exposition, **status_routes(board)})
     except OSError as error:
         cause = error.strerror or str(error)
-        raise UsageError(f"--metrics-port {args.metrics_port}: cannot listen on {host} ({cause})") from None
+        raise UsageError(f"--metrics-port {port}: cannot listen on {host} ({cause})") from None
     print(f"stream-miner: metrics on {server.url('/metrics')}", file=sys.stderr, flush=True)
+    print(f"stream-miner: status page on {server.url('/')}", file=sys.stderr, flush=True)
     return server
 
 

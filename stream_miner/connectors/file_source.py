@@ -9,13 +9,13 @@ from __future__ import annotations
 
 import os
 import sys
-import time
 from collections.abc import Callable, Iterator
 from typing import IO
 
 from stream_miner.decoding.files import FOLLOW_FORMATS, FileLayout, InputError, read_records
 from stream_miner.decoding.records import SourceRecord
 from stream_miner.runtime.ledger import CommitOutcome
+from stream_miner.runtime.pace import Pace
 from stream_miner.runtime.protocols import Handover
 
 
@@ -29,11 +29,11 @@ class FileSource:
             raise InputError(f"--follow works with {' and '.join(FOLLOW_FORMATS)} input, not {layout.fmt}")
         if pace is not None and not pace > 0:
             raise InputError(f"pace must be positive, got {pace}")
+        self._pace = None if pace is None else Pace(pace)
         self.name = "stdin" if path == "-" else f"file:{path}"
         self.shares_partitions = False  # one reader: the checkpoint alone records progress
         self.handover: Handover | None = None  # files are never handed over
         self._follow = follow
-        self._pace = pace
         try:
             self._stream: IO[bytes] = sys.stdin.buffer if path == "-" else open(path, "rb")  # noqa: SIM115
         except OSError as error:
@@ -42,7 +42,6 @@ class FileSource:
         self._held: SourceRecord | None = None  # read but not yet due (pace)
         self._resume_at = 0
         self._done = False
-        self._next_due = time.monotonic()
 
     def _read(self, layout: FileLayout, follow: bool) -> Iterator[SourceRecord | None]:
         yield from read_records(self._stream, layout, self.name, follow=follow)
@@ -67,7 +66,7 @@ class FileSource:
                 break  # nothing more for now
             if record.offset < self._resume_at:
                 continue  # a checkpoint covers it: skipped, and not paced
-            if self._pace is not None and not self._due(self._pace):
+            if self._pace is not None and not self._pace.due():
                 self._held = record
                 break
             out.append(record)
@@ -105,12 +104,3 @@ class FileSource:
     def close(self) -> None:
         if self._stream is not sys.stdin.buffer:
             self._stream.close()
-
-    def _due(self, pace: float) -> bool:
-        """True when the next record is due at ``pace`` records a second (else a short wait)."""
-        now = time.monotonic()
-        if now < self._next_due:
-            time.sleep(min(self._next_due - now, 0.05))
-            return False
-        self._next_due = max(self._next_due, now - 1.0) + 1.0 / pace
-        return True
