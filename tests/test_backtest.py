@@ -258,10 +258,12 @@ def test_recording_stays_bounded(planted):
         assert all(tick % recorder.every == 0 or tick in recorder.event_ticks for tick, *_ in series.points)
 
 
+@pytest.mark.slow
 def test_progress_line_on_a_terminal(tmp_path):
-    """On a terminal, stderr carries the runtime's progress line while the replay runs."""
+    """On a terminal, stderr carries the runtime's progress line while the replay runs (it is
+    redrawn every half second: the replay is long enough for a few)."""
     data = tmp_path / "long.jsonl"
-    write_jsonl(str(data), baskets(60000, PLANTS, seed=SEED))
+    write_jsonl(str(data), baskets(30000, PLANTS, seed=SEED))
     leader, follower = pty.openpty()
     child = subprocess.Popen(
         backtest(data, "--json", str(tmp_path / "r.json")), stdout=subprocess.DEVNULL, stderr=follower

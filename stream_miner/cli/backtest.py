@@ -66,7 +66,7 @@ def add_backtest_parser(commands: argparse._SubParsersAction) -> None:
         type=positive_int,
         default=DEFAULT_CHART_PATTERNS,
         metavar="K",
-        help=f"chart K patterns: those with events first, then the strongest "
+        help=f"chart K patterns: those with events first, then those tracked longest "
         f"(default {DEFAULT_CHART_PATTERNS}, at most {MAX_CHART_PATTERNS})",
     )
 

@@ -135,7 +135,7 @@ def _timeline(data: dict[str, Any]) -> str:
     return (
         "<h2>Timeline</h2>"
         f'<p class="note">Support and lift (of the best rule) of the {len(patterns)} charted patterns '
-        f"(those with events first, then the strongest), at {sampled}; markers: "
+        f"(those with events first, then those tracked longest), at {sampled}; markers: "
         '<span class="emerged">&#9650; emerged</span>, <span class="faded">&#9660; faded</span>.</p>'
         f'<div class="legend">{"".join(legend)}</div>'
         + line_chart(support_lines, markers, y_label="support", y_format=lambda v: f"{100 * v:g}%")

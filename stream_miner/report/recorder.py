@@ -169,9 +169,12 @@ class BacktestRecorder:
 
     def chosen(self, k: int) -> list[Series]:
         """The ``k`` series to chart: patterns with events first (by their first event),
-        then the others by peak support."""
+        then the others by how long they were tracked (points kept), then peak support."""
         order = {event["id"]: i for i, event in enumerate(self.events)}
         with_events = [s for s in self.followed.values() if s.events]
         with_events.sort(key=lambda s: (min(order.get(e, math.inf) for e in s.events), s.items))
-        others = sorted((s for s in self.followed.values() if not s.events), key=lambda s: (-s.peak, s.items))
+        others = sorted(
+            (s for s in self.followed.values() if not s.events),
+            key=lambda s: (-len(s.points), -s.peak, s.items),
+        )
         return (with_events + others)[:k]
