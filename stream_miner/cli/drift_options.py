@@ -16,12 +16,19 @@ from stream_miner.runtime.stop_clock import StopClock
 DEFAULTS = DriftSettings()
 
 
-def add_drift_options(parser: argparse.ArgumentParser) -> None:
-    """Register the drift options of ``run``."""
+def add_drift_options(parser: argparse.ArgumentParser, *, outputs: bool = True) -> None:
+    """Register the drift options of ``run`` (``outputs``: also where events go)."""
+    when = "on with --events-out or --metrics-port; " if outputs else ""
     drift = parser.add_argument_group(
-        "drift events (on with --events-out or --metrics-port; patterns use --min-support, "
-        "--min-confidence and --min-lift as their enter thresholds)"
+        f"drift events ({when}patterns use --min-support, --min-confidence and --min-lift as their "
+        "enter thresholds)"
     )
+    if outputs:
+        _add_event_outputs(drift)
+    _add_detector_options(drift)
+
+
+def _add_event_outputs(drift: argparse._ArgumentGroup) -> None:
     drift.add_argument(
         "--events-out",
         metavar="PATH_OR_KAFKA",
@@ -34,6 +41,9 @@ def add_drift_options(parser: argparse.ArgumentParser) -> None:
         default="json",
         help="with --events-out -: one JSON object per line (default) or one readable line",
     )
+
+
+def _add_detector_options(drift: argparse._ArgumentGroup) -> None:
     drift.add_argument(
         "--exit-fraction",
         type=fraction,
@@ -92,6 +102,11 @@ def drift_settings(args: argparse.Namespace) -> DriftSettings | None:
         raise UsageError("--events-format text is for --events-out - (files and topics get JSON)")
     if not drift_wanted(args):
         return None
+    return detector_settings(args)
+
+
+def detector_settings(args: argparse.Namespace) -> DriftSettings:
+    """The detector's settings the options ask for."""
     try:
         return DriftSettings(
             min_confidence=Fraction(1, 2) if args.min_confidence is None else args.min_confidence,

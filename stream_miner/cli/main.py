@@ -9,6 +9,7 @@ import threading
 from collections.abc import Sequence
 
 from stream_miner import __version__
+from stream_miner.cli.backtest import add_backtest_parser
 from stream_miner.cli.demo import add_demo_parser
 from stream_miner.cli.mine import add_mine_parser
 from stream_miner.cli.ops_kit import add_ops_kit_parser
@@ -63,6 +64,7 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(required=True, metavar="COMMAND")
     add_mine_parser(commands)
     add_run_parser(commands)
+    add_backtest_parser(commands)
     add_ops_kit_parser(commands)
     add_demo_parser(commands)
     return parser

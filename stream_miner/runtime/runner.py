@@ -137,6 +137,7 @@ class Runner:
         events: EventSink | None = None,
         talk_when_clean: bool = True,
         tick_on_stop: bool = True,
+        silent_ticks: bool = False,
     ) -> None:
         self.settings = settings
         self.source = source
@@ -148,6 +149,7 @@ class Runner:
         self.log = log or sys.stderr
         self.talk_when_clean = talk_when_clean  # False: say nothing unless something was set aside
         self.tick_on_stop = tick_on_stop  # False: a stop skips the last tick (mine: no partial result)
+        self.silent_ticks = silent_ticks  # True: listeners print nothing, the progress line stays up
         self.progress = ProgressLine(self.log)
         self.stopping = False
         self.interrupt = threading.Event()  # set to make a mine give up (see ABANDON_AFTER)
@@ -323,7 +325,8 @@ class Runner:
 
     # ------------------------------------------------------------------- ticks
     def _tick(self) -> None:
-        self.progress.close()
+        if not self.silent_ticks:
+            self.progress.close()
         report = self._detect(self._refresh_off_the_main_thread())
         self.schedule.ticked(report.consumed)
         if report.events and self.events is not None:
