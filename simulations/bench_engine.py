@@ -47,12 +47,12 @@ from mlxtend.preprocessing import TransactionEncoder
 
 from simulations.heavy_tailed import heavy_tailed_baskets
 from simulations.naive import NaiveFPTree, naive_fpgrowth
-from simulations.quest import quest_baskets
 from stream_miner.engine.fpgrowth import mine_tree
 from stream_miner.engine.miner import DEFAULT_BATCH, WindowMiner
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.tree import PrefixTree, frequency_rank
 from stream_miner.engine.window import CountWindow
+from stream_miner.simulate.quest import quest_baskets
 
 Baskets = list[list[int]]
 Itemsets = dict[tuple[int, ...], int]

@@ -12,7 +12,7 @@ import time
 from collections.abc import Callable, Sequence
 
 from simulations.heavy_tailed import heavy_tailed_baskets
-from simulations.quest import quest_baskets
+from stream_miner.simulate.quest import quest_baskets
 
 _GENERATORS: dict[str, Callable[..., list[list[int]]]] = {
     "quest": quest_baskets,

@@ -250,7 +250,7 @@ def test_dead_letters_to_a_kafka_topic_keep_raw_bytes_and_reasons(broker, spawn,
 
 @pytest.mark.slow
 def test_a_tick_longer_than_max_poll_interval_keeps_the_group_membership(broker, spawn, tmp_path):
-    from simulations.quest import quest_baskets
+    from stream_miner.simulate.quest import quest_baskets
 
     broker.create_topic("slow", 1)
     first = [

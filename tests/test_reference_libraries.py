@@ -14,11 +14,11 @@ from mlxtend.frequent_patterns import association_rules, fpgrowth
 from mlxtend.preprocessing import TransactionEncoder
 
 from simulations.heavy_tailed import heavy_tailed_baskets
-from simulations.quest import quest_baskets
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.rules import RuleFilter
 from stream_miner.engine.window import CountWindow
+from stream_miner.simulate.quest import quest_baskets
 
 DATASETS = {
     "quest": lambda: quest_baskets(4000, n_items=300, n_patterns=200, seed=11),
