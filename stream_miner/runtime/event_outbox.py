@@ -13,6 +13,7 @@ reader can drop the repeat). Without checkpoints events are written at once.
 from __future__ import annotations
 
 import json
+import sys
 from pathlib import Path
 from typing import Protocol
 
@@ -74,7 +75,14 @@ class EventOutbox:
                 self.sink.write(event)
             self.sink.flush()
             note = {"sequence": sequence, "written": self.sink.position(), "sink": self.sink.identity()}
-            write_text_atomically(directory / NOTE_NAME, json.dumps(note))
+            try:
+                write_text_atomically(directory / NOTE_NAME, json.dumps(note))
+            except OSError as error:  # a restart then cuts the file back and writes them again
+                print(
+                    f"stream-miner: warning: cannot write the events note in {directory} "
+                    f"({error.strerror or error}); a restart writes these events again",
+                    file=sys.stderr,
+                )
         return len(released)
 
     def restore(self, state: dict, directory: Path, sequence: int) -> None:

@@ -429,7 +429,17 @@ class Runner:
                 from stream_miner.runtime.commit_note import write_note  # only with checkpoints
 
                 sink = self.dead_letters.sink
-                write_note(self.settings.checkpoint_dir, self.sequence, positions, outcome, sink.position())
+                try:
+                    write_note(
+                        self.settings.checkpoint_dir, self.sequence, positions, outcome, sink.position()
+                    )
+                except OSError as error:  # a restart then takes the outcome as unknown
+                    print(
+                        "stream-miner: warning: cannot write the commit note in "
+                        f"{self.settings.checkpoint_dir} ({error.strerror or error}); "
+                        "a restart takes this commit's outcome as unknown",
+                        file=self.log,
+                    )
 
     def held_partitions(self) -> set[int]:
         """Partitions this member has read."""
