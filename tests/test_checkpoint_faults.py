@@ -287,7 +287,13 @@ def test_a_running_process_warns_in_one_line_goes_on_and_recovers(make_fault, sp
     child.wait_for_line(r"^stream-miner: tick 2: window 30 baskets")  # all 30 read
     err = child.stop()  # the final checkpoint is written: exit 0
     assert leftovers == []
-    assert "Traceback" not in err and len(re.findall(r"warning|error", err)) == 1, err
+    # one line for the checkpoint; when the fault struck between a checkpoint and the note of
+    # its commit, one more for the note (a restart then takes that commit's outcome as unknown)
+    checkpoint_lines = [
+        line for line in re.findall(r".*(?:warning|error).*", err) if "commit note" not in line
+    ]
+    assert "Traceback" not in err and len(checkpoint_lines) == 1, err
+    assert len(re.findall(r"cannot write the commit note", err)) <= 1, err
 
     resumed = subprocess.run(stream_miner(*run_command(data, ck)), capture_output=True, text=True)
     assert resumed.returncode == 0, resumed.stderr
