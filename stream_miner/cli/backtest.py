@@ -12,6 +12,7 @@ from pathlib import Path
 from stream_miner.cli.drift_options import add_drift_options, detector_settings
 from stream_miner.cli.options import (
     UsageError,
+    add_bad_records_option,
     add_input_options,
     add_mining_options,
     add_window_options,
@@ -48,13 +49,7 @@ def add_backtest_parser(commands: argparse._SubParsersAction) -> None:
     )
     records = backtest.add_argument_group("records")
     add_input_options(records, format_help="from the file name; jsonl for stdin")
-    records.add_argument(
-        "--bad-records",
-        choices=("stop", "skip"),
-        default="stop",
-        help="stop at the first malformed record (exit 2; the default) or set such records aside "
-        "and count them",
-    )
+    add_bad_records_option(records)
     add_window_options(backtest, wall_clock=False)
     add_mining_options(backtest)
     add_drift_options(backtest, outputs=False)

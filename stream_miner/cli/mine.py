@@ -14,6 +14,7 @@ from pathlib import Path
 from stream_miner.cli.options import (
     DeprecatedAlias,
     UsageError,
+    add_bad_records_option,
     add_input_options,
     add_mining_options,
     add_window_options,
@@ -47,13 +48,7 @@ def add_mine_parser(commands: argparse._SubParsersAction) -> None:
     mine.add_argument("input", nargs="?", metavar="INPUT", help="file to mine, or - for stdin")
     records = mine.add_argument_group("input")
     add_input_options(records, format_help="from the file name")
-    records.add_argument(
-        "--bad-records",
-        choices=("stop", "skip"),
-        default="stop",
-        help="stop at the first malformed record (exit 2; the default) or set such records aside "
-        "and count them",
-    )
+    add_bad_records_option(records)
     records.add_argument(
         "--on-bad-input",
         choices=("fail", "skip"),

@@ -39,6 +39,17 @@ class DeprecatedAlias(argparse.Action):
         setattr(namespace, self.dest, self.values_map.get(values, values))
 
 
+def add_bad_records_option(group: argparse._ArgumentGroup) -> None:
+    """``--bad-records stop|skip`` of the commands that replay a file in one go."""
+    group.add_argument(
+        "--bad-records",
+        choices=("stop", "skip"),
+        default="stop",
+        help="stop at the first malformed record (exit 2; the default) or set such records aside "
+        "and count them",
+    )
+
+
 def add_input_options(group: argparse._ArgumentGroup, *, format_help: str) -> None:
     """How records are laid out: file format, CSV columns, JSON message fields, size limits."""
     group.add_argument("--format", choices=FORMATS, help=f"record format (default: {format_help})")

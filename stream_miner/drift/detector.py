@@ -431,12 +431,15 @@ class DriftDetector:
         for move in sorted(moves, key=lambda m: (-len(m.items), m.items)):
             kind, items = move.kind, move.items
             pending = RISING if kind == EMERGED else FALLING
-            larger = [
+            candidates = [
                 (whole, self._moved(whole, kind, moves, window))
                 for whole in self._neighbours(items, kind, moves, bigger=True)
-                if self._moved(whole, kind, moves, window) or self._tracked.get(whole, _IDLE).state == pending
             ]
-            larger = [(whole, moved) for whole, moved in larger if explains(whole, items)]
+            larger = [
+                (whole, moved)
+                for whole, moved in candidates
+                if (moved or self._tracked.get(whole, _IDLE).state == pending) and explains(whole, items)
+            ]
             if larger and not any(moved for _, moved in larger):
                 continue  # a larger pattern is still on its way: this one waits for it
             folded = bool(larger) or any(
