@@ -70,6 +70,7 @@ def _draw(plt, outcome: Outcome):  # matplotlib is optional: untyped
     lift.set_ylabel("lift (log)")
     _alarms(alarms, outcome.detector, 1.0)
     _alarms(alarms, outcome.naive, 0.0)
+    alarms.set_title("alarms: up emerged, down faded; green hit, orange redundant, red false", fontsize=8)
     alarms.set_yticks([0, 1], ["naive", "detector"])
     alarms.set_ylim(-0.6, 1.6)
     alarms.set_xlabel(f"baskets (window {settings.window_size}, a tick every {settings.tick_every})")

@@ -16,7 +16,7 @@ is a false alarm.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 from itertools import combinations
 
 import numpy as np
@@ -81,7 +81,7 @@ class Truth:
             "items": list(self.items),
             "start": self.start,
             "start_time": self.start_time,
-            "crossings": [c.__dict__ for c in self.crossings],
+            "crossings": [asdict(c) for c in self.crossings],
         }
 
 
