@@ -64,7 +64,8 @@ class _Handler(BaseHTTPRequestHandler):
                 status, kind, body = 500, TEXT, f"{type(error).__name__}: {error}\n".encode()
         self.send_response(status)
         self.send_header("Content-Type", kind)
-        self.send_header("Content-Length", str(len(body)))
+        if status != 204:  # a 204 carries no length (RFC 9110, 8.6)
+            self.send_header("Content-Length", str(len(body)))
         self.end_headers()
         self.wfile.write(body)
 

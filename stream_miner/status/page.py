@@ -25,6 +25,17 @@ def page_route() -> tuple[int, str, bytes]:
     return 200, HTML, page()
 
 
+def no_icon_route() -> tuple[int, str, bytes]:
+    """Browsers ask for ``/favicon.ico`` with every page: no content, rather than a 404 in
+    the console."""
+    return 204, HTML, b""
+
+
 def status_routes(board: StatusBoard) -> dict[str, Route]:
     """The status page and its JSON, as routes of :class:`~stream_miner.connectors.http_server.HttpServer`."""
-    return {"/": page_route, "/api/patterns": board.patterns_route, "/api/events": board.events_route}
+    return {
+        "/": page_route,
+        "/favicon.ico": no_icon_route,
+        "/api/patterns": board.patterns_route,
+        "/api/events": board.events_route,
+    }
