@@ -23,7 +23,13 @@ from stream_miner.engine.incremental.itemset_rows import (
     match_rows,
     unique_rows,
 )
-from stream_miner.engine.incremental.kernels import compiled, rows_holding
+from stream_miner.engine.incremental.kernels import (
+    add_pairs,
+    add_pairs_numpy,
+    compiled,
+    rows_holding,
+    rows_holding_numpy,
+)
 from stream_miner.engine.incremental.pair_table import FIRST_CAPACITY, PairTable
 from stream_miner.engine.incremental.tracker import BorderTracker
 
@@ -268,6 +274,7 @@ def test_counts_stay_exact_in_tiny_chunks(counted, slotted):
 
 
 # ---------------------------------------------------------------- kernels
+@pytest.mark.parametrize("version", ["compiled", "numpy"])
 @pytest.mark.parametrize("dtype", [np.uint16, np.int64])
 @SETTINGS
 @given(
@@ -277,7 +284,7 @@ def test_counts_stay_exact_in_tiny_chunks(counted, slotted):
     ),
     st.data(),
 )
-def test_rows_holding_equals_python_loop(dtype, baskets, data):
+def test_rows_holding_equals_python_loop(version, dtype, baskets, data):
     """rows_holding: indices of the live baskets holding a wanted item; items past the end
     of ``wanted`` are not wanted."""
     batch = BasketArrays.from_lists(baskets)
@@ -287,10 +294,38 @@ def test_rows_holding_equals_python_loop(dtype, baskets, data):
     largest = max((i for b in baskets for i in b), default=0)
     size = data.draw(st.integers(0, min(largest, 50)))  # shorter than the largest id
     wanted = np.array(data.draw(st.lists(st.booleans(), min_size=size, max_size=size)), dtype=bool)
-    out = compiled(rows_holding)(batch.items.astype(dtype), batch.start, alive, wanted)
+    loop = compiled(rows_holding) if version == "compiled" else rows_holding_numpy
+    out = loop(batch.items.astype(dtype), batch.start, alive, wanted)
     expected = [r for r, b in enumerate(baskets) if alive[r] and any(i < size and wanted[i] for i in b)]
     assert out.dtype == np.int64
     assert out.tolist() == expected
+
+
+@SETTINGS
+@given(
+    st.lists(st.lists(st.integers(0, 12), unique=True, max_size=8), max_size=30),
+    st.data(),
+)
+def test_pair_loops_in_numpy_and_compiled_count_alike(baskets, data):
+    """add_pairs in numpy and compiled: the same counts from the same start, and the same
+    cells at or above the report bound among those each reports (what callers read)."""
+    batch = BasketArrays.from_lists(baskets)
+    n = len(baskets)
+    signs = np.array(data.draw(st.lists(st.sampled_from([-1, 1]), min_size=n, max_size=n)))
+    slot_of = np.array(data.draw(st.lists(st.integers(-1, 9), min_size=11, max_size=11)), dtype=np.int64)
+    only = data.draw(st.one_of(st.none(), st.lists(st.booleans(), min_size=0, max_size=14)))
+    only = None if only is None else np.array(only, dtype=bool)
+    start = np.array(data.draw(st.lists(st.integers(0, 3), min_size=45, max_size=45)), dtype=np.int32)
+    report_from = data.draw(st.integers(1, 4))
+    found = []
+    for loop in (compiled(add_pairs), add_pairs_numpy):
+        counts, cells = start.copy(), np.empty(2000, dtype=np.int64)
+        n = loop(batch.items, batch.start, signs.astype(np.int32), slot_of, only, counts, report_from, cells)
+        reported = np.unique(cells[:n])
+        found.append((counts, reported[counts[reported] >= report_from].tolist()))
+    (compiled_counts, compiled_cells), (numpy_counts, numpy_cells) = found
+    assert np.array_equal(compiled_counts, numpy_counts)
+    assert compiled_cells == numpy_cells
 
 
 # ------------------------------------------------------------- pair table

@@ -21,7 +21,7 @@ import numpy as np
 
 from stream_miner.engine.arguments import whole_number
 from stream_miner.engine.baskets import BasketArrays
-from stream_miner.engine.incremental.kernels import compiled, rows_holding
+from stream_miner.engine.incremental.kernels import rows_holding, run
 
 MIN_CHUNK = 4096  # a newest chunk smaller than this (in baskets) takes the next batch in
 CHUNKS = 8  # ... and so does one smaller than this fraction of the window
@@ -216,11 +216,11 @@ class WindowStore:
     def baskets_with(self, wanted: np.ndarray) -> BasketArrays:
         """Live baskets holding at least one item whose entry in the boolean ``wanted`` is set.
 
-        O(items in the window), one compiled pass.
+        O(items in the window), one pass (see :func:`~stream_miner.engine.incremental.kernels.run`).
         """
         parts = []
         for chunk in self._chunks:
-            rows = compiled(rows_holding)(chunk.items, chunk.start, chunk.alive, wanted)
+            rows = run(rows_holding, chunk.items, chunk.start, chunk.alive, wanted)
             if rows.size:
                 parts.append(chunk.baskets(rows))
         return BasketArrays.concat(parts)

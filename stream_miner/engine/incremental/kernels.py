@@ -1,29 +1,49 @@
-"""Compiled loops (numba) for the two per-basket hot paths of incremental ticks.
+"""Loops for the two per-basket hot paths of incremental ticks, in numpy and compiled (numba).
 
-Both walk baskets in CSR form (``items[start[r]:start[r + 1]]`` is basket ``r``): a numpy
-version needs one pass over memory per step and many temporary arrays, these need one.
-numba is imported, and each loop compiled, on first use (about 70 MB of memory and 0.3 s
-that a full mine never pays); compiled code is cached on disk next to the package (or in
-numba's user cache).
+Both walk baskets in CSR form (``items[start[r]:start[r + 1]]`` is basket ``r``). The numpy
+versions need a few passes over memory and temporary arrays; the compiled ones need one,
+but numba's start (importing it and loading the cached loops: about 0.5-0.8 s and 100 MB
+in a process) costs more than a short run's whole tracking. So :func:`run` uses numpy
+until the numpy loops have taken ``COMPILE_AFTER`` seconds in this process, and the
+compiled loops from then on (the ski-rental rule: at most about twice the better choice's
+cost). Both versions give the same results.
 """
 
 from __future__ import annotations
 
+import threading
+import time
 from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 
+COMPILE_AFTER = 0.5  # seconds of numpy loops, about numba's start, after which compiling pays
+
 _compiled: dict[Callable[..., Any], Callable[..., Any]] = {}
+_numpy_seconds = [0.0]
+_lock = threading.Lock()
 
 
 def compiled(loop: Callable[..., Any]) -> Callable[..., Any]:
     """``loop`` compiled by numba (nopython mode, GIL released), compiled once per process."""
     if loop not in _compiled:
-        from numba import njit  # deferred: only incremental ticks need it
+        from numba import njit  # deferred: only long incremental runs need it
 
         _compiled[loop] = njit(cache=True, nogil=True)(loop)
     return _compiled[loop]
+
+
+def run(loop: Callable[..., Any], *args: Any) -> Any:
+    """``loop(*args)``: its numpy version until those have cost ``COMPILE_AFTER`` seconds in
+    this process, then the compiled one."""
+    if _numpy_seconds[0] >= COMPILE_AFTER:
+        return compiled(loop)(*args)
+    started = time.perf_counter()
+    out = _IN_NUMPY[loop](*args)
+    with _lock:
+        _numpy_seconds[0] += time.perf_counter() - started
+    return out
 
 
 def add_pairs(
@@ -82,3 +102,66 @@ def rows_holding(items: np.ndarray, start: np.ndarray, alive: np.ndarray, wanted
                 n += 1
                 break
     return out[:n]
+
+
+def add_pairs_numpy(
+    items: np.ndarray,
+    start: np.ndarray,
+    signs: np.ndarray,
+    slot_of: np.ndarray,
+    only: np.ndarray | None,
+    counts: np.ndarray,
+    report_from: int,
+    reported: np.ndarray,
+) -> int:
+    """:func:`add_pairs` in numpy: the same counts; it writes each touched cell whose count
+    is at least ``report_from`` after the whole batch once (all its callers look at the
+    final counts of the cells written)."""
+    items = items.astype(np.int64)
+    inside = items < slot_of.size
+    slots = np.full(items.size, -1, dtype=np.int64)
+    slots[inside] = slot_of[items[inside]]
+    row = np.repeat(np.arange(start.size - 1), np.diff(start))
+    kept = slots >= 0
+    slots, row = slots[kept], row[kept]
+    if only is None:
+        marked = None
+    else:
+        held = items[kept]
+        marked = np.zeros(held.size, dtype=bool)
+        within = held < only.size
+        marked[within] = only[held[within]]
+    lengths = np.bincount(row, minlength=start.size - 1)
+    first_of_row = np.cumsum(lengths) - lengths
+    after = lengths[row] - (np.arange(row.size) - first_of_row[row]) - 1  # partners later in the basket
+    first = np.repeat(np.arange(row.size), after)
+    second = first + np.arange(first.size) - np.repeat(np.cumsum(after) - after, after) + 1
+    if marked is not None:
+        chosen = marked[first] | marked[second]
+        first, second = first[chosen], second[chosen]
+    a, b = slots[first], slots[second]
+    low, high = np.minimum(a, b), np.maximum(a, b)
+    cells = high * (high - 1) // 2 + low
+    np.add.at(counts, cells, signs[row[first]].astype(counts.dtype))
+    touched = np.unique(cells)
+    touched = touched[counts[touched] >= report_from][: reported.size]
+    reported[: touched.size] = touched
+    return int(touched.size)
+
+
+def rows_holding_numpy(
+    items: np.ndarray, start: np.ndarray, alive: np.ndarray, wanted: np.ndarray
+) -> np.ndarray:
+    """:func:`rows_holding` in numpy."""
+    items = items.astype(np.int64)
+    inside = items < wanted.size
+    hit = np.zeros(items.size, dtype=bool)
+    hit[inside] = wanted[items[inside]]
+    rows = np.unique(np.repeat(np.arange(start.size - 1), np.diff(start))[hit])
+    return rows[alive[rows]]
+
+
+_IN_NUMPY: dict[Callable[..., Any], Callable[..., Any]] = {
+    add_pairs: add_pairs_numpy,
+    rows_holding: rows_holding_numpy,
+}

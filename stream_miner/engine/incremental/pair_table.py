@@ -4,7 +4,7 @@ Each watched item holds a slot; the count of the pair in slots ``s < t`` sits at
 ``t * (t - 1) // 2 + s`` of one int32 array, so the layout does not depend on the number
 of slots (growing appends) and the pairs of the most frequent items, which take the lowest
 slots, lie close together. Updating a batch is one scatter-add over the pairs inside its
-baskets (a compiled loop).
+baskets (see :func:`~stream_miner.engine.incremental.kernels.run`).
 """
 
 from __future__ import annotations
@@ -13,11 +13,11 @@ import numpy as np
 
 from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.incremental.bitmaps import BasketSource
-from stream_miner.engine.incremental.kernels import add_pairs, compiled
+from stream_miner.engine.incremental.kernels import add_pairs, run
 
 FIRST_CAPACITY = 64
 ROWS_PER_PASS = 256  # slots scanned at once by pairs_among (bounds its temporary arrays)
-PAIRS_PER_PASS = 1 << 22  # pairs per compiled pass, at most (bounds the report buffer: 32 MiB)
+PAIRS_PER_PASS = 1 << 22  # pairs per pass, at most (bounds the report buffer: 32 MiB)
 
 
 class PairTable:
@@ -72,7 +72,7 @@ class PairTable:
     ) -> np.ndarray:
         """Add each basket's sign to its pairs of watched items that hold an item set in
         ``only``; the touched pairs counted at least ``report_from``, as rows of item ids.
-        Compiled passes over at most ``PAIRS_PER_PASS`` pairs each bound the report buffer."""
+        Passes over at most ``PAIRS_PER_PASS`` pairs each bound the report buffer."""
         lengths = baskets.lengths()
         pairs = np.cumsum(lengths * (lengths - 1) // 2)  # pairs up to and including each basket
         cuts: np.ndarray | list[int] = (
@@ -84,7 +84,8 @@ class PairTable:
             part = baskets.part(first, stop)
             room = 0 if report_from is None else int(pairs[stop - 1] - (pairs[first - 1] if first else 0))
             cells = np.empty(room, dtype=np.int64)
-            n = compiled(add_pairs)(
+            n = run(
+                add_pairs,
                 part.items,
                 part.start,
                 signs[first:stop],
