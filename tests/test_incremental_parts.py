@@ -312,7 +312,9 @@ def test_pair_loops_in_numpy_and_compiled_count_alike(baskets, data):
     batch = BasketArrays.from_lists(baskets)
     n = len(baskets)
     signs = np.array(data.draw(st.lists(st.sampled_from([-1, 1]), min_size=n, max_size=n)))
-    slot_of = np.array(data.draw(st.lists(st.integers(-1, 9), min_size=11, max_size=11)), dtype=np.int64)
+    watched = data.draw(st.lists(st.booleans(), min_size=11, max_size=11))
+    slots = iter(data.draw(st.permutations(range(10))))
+    slot_of = np.array([next(slots) if w else -1 for w in watched[:10]] + [-1], dtype=np.int64)  # distinct
     only = data.draw(st.one_of(st.none(), st.lists(st.booleans(), min_size=0, max_size=14)))
     only = None if only is None else np.array(only, dtype=bool)
     start = np.array(data.draw(st.lists(st.integers(0, 3), min_size=45, max_size=45)), dtype=np.int32)

@@ -143,7 +143,10 @@ def add_pairs_numpy(
     low, high = np.minimum(a, b), np.maximum(a, b)
     cells = high * (high - 1) // 2 + low
     np.add.at(counts, cells, signs[row[first]].astype(counts.dtype))
-    touched = np.unique(cells)
+    if reported.size == 0 or cells.size == 0:
+        return 0
+    cells.sort()
+    touched = cells[np.concatenate([[True], cells[1:] != cells[:-1]])]
     touched = touched[counts[touched] >= report_from][: reported.size]
     reported[: touched.size] = touched
     return int(touched.size)
@@ -157,8 +160,8 @@ def rows_holding_numpy(
     inside = items < wanted.size
     hit = np.zeros(items.size, dtype=bool)
     hit[inside] = wanted[items[inside]]
-    rows = np.unique(np.repeat(np.arange(start.size - 1), np.diff(start))[hit])
-    return rows[alive[rows]]
+    rows = np.repeat(np.arange(start.size - 1), np.diff(start))[hit]
+    return np.flatnonzero((np.bincount(rows, minlength=start.size - 1) > 0) & alive).astype(np.int64)
 
 
 _IN_NUMPY: dict[Callable[..., Any], Callable[..., Any]] = {
