@@ -1,9 +1,12 @@
-"""`mine --every` runs the incremental miner; `--full-remine` must print exactly the same."""
+"""`mine --every` picks per tick between tracking and full mines; `--full-remine` and
+`--always-track` must print exactly the same."""
 
 from __future__ import annotations
 
 import json
 import random
+
+import pytest
 
 from stream_miner.cli.main import main
 
@@ -43,7 +46,8 @@ def test_incremental_and_full_remine_print_identical_ticks(tmp_path, capsys):
     ]
     incremental = run(capsys, "mine", *common)
     full = run(capsys, "mine", *common, "--full-remine")
-    assert incremental == full
+    tracked = run(capsys, "mine", *common, "--always-track")
+    assert incremental == full == tracked
     records = [json.loads(line) for line in incremental.splitlines()]
     ticks = sorted({r["tick"] for r in records})
     assert ticks == list(range(len(ticks))) and len(ticks) > 5
@@ -51,14 +55,24 @@ def test_incremental_and_full_remine_print_identical_ticks(tmp_path, capsys):
     assert emerging and emerging[0] > 0  # found only once the pairing appears
 
 
-def test_full_remine_needs_every(tmp_path, capsys):
+@pytest.mark.parametrize("flag", ["--full-remine", "--always-track"])
+def test_forced_modes_need_every(tmp_path, capsys, flag):
     data = tmp_path / "stream.dat"
     write_stream(data, n=20)
-    assert main(["mine", str(data), "--full-remine"]) == 2
-    assert "--full-remine needs --tick-every" in capsys.readouterr().err
+    assert main(["mine", str(data), flag]) == 2
+    assert f"{flag} needs --tick-every" in capsys.readouterr().err
 
 
-def test_tick_timings_report_every_tick_of_both_modes(tmp_path, capsys):
+def test_forced_modes_exclude_each_other(tmp_path, capsys):
+    data = tmp_path / "stream.dat"
+    write_stream(data, n=20)
+    with pytest.raises(SystemExit) as stopped:
+        main(["mine", str(data), "--tick-every", "5", "--full-remine", "--always-track"])
+    assert stopped.value.code == 2
+    assert "not allowed with argument" in capsys.readouterr().err
+
+
+def test_tick_timings_report_every_tick_of_every_mode(tmp_path, capsys):
     data = tmp_path / "stream.dat"
     write_stream(data)
     common = [
@@ -72,7 +86,7 @@ def test_tick_timings_report_every_tick_of_both_modes(tmp_path, capsys):
         "--json",
         "--tick-timings",
     ]
-    for flag, mode in (([], "incremental"), (["--full-remine"], "full-remine")):
+    for flag, mode in (([], "adaptive"), (["--full-remine"], "full"), (["--always-track"], "tracked")):
         assert main(["mine", *common, *flag]) == 0
         captured = capsys.readouterr()
         ticks = {json.loads(line)["tick"] for line in captured.out.splitlines()}

@@ -19,6 +19,7 @@ from stream_miner.engine.hygiene import BasketPolicy, Oversize, Verdict
 from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
+from stream_miner.engine.refresh import Refresh
 from stream_miner.engine.result import MiningResult
 from stream_miner.engine.rules import RuleFilter, generate_rules
 from stream_miner.engine.window import CountWindow, TimeWindow
@@ -195,7 +196,7 @@ def test_a_combinatorial_blow_up_is_refused_before_listing(how):
     run = {
         "mine": lambda: miner.mine(params),
         "tick": lambda: miner.tick(params),
-        "full remine": lambda: miner.tick(params, full_remine=True),
+        "full remine": lambda: miner.tick(params, refresh=Refresh.FULL),
     }[how]
     tracemalloc.start()
     try:
@@ -234,7 +235,7 @@ def test_the_itemset_cap_refuses_exactly_the_results_over_it(stream, size, min_c
         miner.add(basket)
         if i in checks or i == len(stream):
             expected = frequent_itemsets(stream[:i][-size:], min_count, max_size)
-            for run in (miner.mine, miner.tick, lambda p: miner.tick(p, full_remine=True)):
+            for run in (miner.mine, miner.tick, lambda p: miner.tick(p, refresh=Refresh.FULL)):
                 if len(expected) > cap:
                     with pytest.raises(ResultTooLarge) as info:
                         run(params)

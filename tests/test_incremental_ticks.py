@@ -6,12 +6,14 @@ from __future__ import annotations
 import math
 from fractions import Fraction
 
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
+from stream_miner.engine.refresh import Refresh
 from stream_miner.engine.rules import RuleFilter
 from stream_miner.engine.window import CountWindow, TimeWindow
 
@@ -34,8 +36,11 @@ def restricted(itemsets, params):
 
 
 def check_tick(tick, full, window, params, previous):
+    """``tick`` against brute force and against ``full`` (a full mine; None: brute force only,
+    so that nothing but the ticks reads the miner's tree)."""
     min_count = max(1, math.ceil(params.min_support * len(window)))
     expected = restricted(frequent_itemsets(window, min_count), params)
+    full = full or tick.result
     assert tick.result.itemsets == full.itemsets == expected
     assert {(r.antecedent, r.consequent): r for r in full.rules} == {
         (r.antecedent, r.consequent): r for r in tick.result.rules
@@ -51,14 +56,23 @@ def check_tick(tick, full, window, params, previous):
     assert set(tick.delta.rules_removed) == old_rules - new_rules
 
 
+modes_st = st.lists(st.sampled_from(list(Refresh)), min_size=1, max_size=4)  # cycled, one a tick
+
+
+@pytest.mark.parametrize("mine_too", [True, False])
 @settings(max_examples=120, deadline=None)
 @given(
     st.lists(st.tuples(names_st, st.booleans()), min_size=1, max_size=90),
     st.integers(1, 30),
     st.integers(1, 9),
     st.lists(params_st, min_size=1, max_size=3),
+    modes_st,
 )
-def test_count_window_ticks_equal_full_remine_and_brute_force(stream, size, batch, param_cycle):
+def test_count_window_ticks_equal_full_remine_and_brute_force(
+    mine_too, stream, size, batch, param_cycle, modes
+):
+    """Every refresh mode, switching between them (the tree left behind by tracked ticks is
+    rebuilt for a full one), with and without full mines in between."""
     incremental = WindowMiner(CountWindow(size), batch_size=batch)
     seen, previous, ticks = [], None, 0
     for basket, tick_now in stream:
@@ -66,10 +80,12 @@ def test_count_window_ticks_equal_full_remine_and_brute_force(stream, size, batc
         seen.append(basket)
         if tick_now:
             params = param_cycle[ticks % len(param_cycle)]
-            tick = incremental.tick(params)
+            tick = incremental.tick(params, refresh=modes[ticks % len(modes)])
             assert tick.number == ticks
-            check_tick(tick, incremental.mine(params), seen[-size:], params, previous)
+            full = incremental.mine(params) if mine_too else None
+            check_tick(tick, full, seen[-size:], params, previous)
             previous, ticks = tick.result, ticks + 1
+    incremental.check_invariants()
 
 
 @settings(max_examples=120, deadline=None)
@@ -78,8 +94,11 @@ def test_count_window_ticks_equal_full_remine_and_brute_force(stream, size, batc
     st.integers(1, 20),
     st.integers(1, 6),
     params_st,
+    modes_st,
 )
-def test_time_window_ticks_stay_exact_as_the_window_and_threshold_change(stream, seconds, batch, params):
+def test_time_window_ticks_stay_exact_as_the_window_and_threshold_change(
+    stream, seconds, batch, params, modes
+):
     incremental = WindowMiner(TimeWindow(seconds), batch_size=batch)
     arrived, previous = [], None
     for basket, ts, tick_now in stream:
@@ -88,9 +107,10 @@ def test_time_window_ticks_stay_exact_as_the_window_and_threshold_change(stream,
         if tick_now:
             newest = max(t for _, t in arrived)
             window = [b for b, t in arrived if t > newest - seconds]
-            tick = incremental.tick(params)
-            check_tick(tick, incremental.mine(params), window, params, previous)
+            tick = incremental.tick(params, refresh=modes[len(arrived) % len(modes)])
+            check_tick(tick, None, window, params, previous)
             previous = tick.result
+    incremental.check_invariants()
 
 
 def test_full_remine_ticks_give_the_same_results_and_deltas():
@@ -101,6 +121,6 @@ def test_full_remine_ticks_give_the_same_results_and_deltas():
         fast.add(basket)
         full.add(basket)
         if i % 4 == 0:
-            a, b = fast.tick(params), full.tick(params, full_remine=True)
+            a, b = fast.tick(params, refresh=Refresh.TRACKED), full.tick(params, refresh=Refresh.FULL)
             assert a.result.itemsets == b.result.itemsets
             assert a.delta == b.delta

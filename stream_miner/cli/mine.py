@@ -29,6 +29,7 @@ from stream_miner.connectors.dead_letters import DeadLetterCounter, DeadLetterFi
 from stream_miner.connectors.file_source import FileSource
 from stream_miner.decoding.files import InputError, detect_format
 from stream_miner.decoding.records import REFUSED_BASKETS, DeadLetter
+from stream_miner.engine.refresh import Refresh
 from stream_miner.runtime.protocols import TickListener
 from stream_miner.runtime.runner import Runner
 
@@ -70,11 +71,18 @@ def add_mine_parser(commands: argparse._SubParsersAction) -> None:
     window.add_argument(
         "--every", type=positive_int, action=DeprecatedAlias, new="--tick-every", dest="tick_every"
     )
-    window.add_argument(
+    forced = window.add_mutually_exclusive_group()
+    forced.add_argument(
         "--full-remine",
         action="store_true",
-        help="with --tick-every: mine the whole window at every tick instead of updating the "
-        "previous result (same output; for comparison)",
+        help="with --tick-every: mine the whole window at every tick instead of choosing per "
+        "tick by measured cost (same output; for comparison)",
+    )
+    forced.add_argument(
+        "--always-track",
+        action="store_true",
+        help="with --tick-every: update the tracked itemsets and their border at every tick, "
+        "never mining in full (same output; for comparison)",
     )
     window.add_argument(
         "--tick-timings",
@@ -89,13 +97,21 @@ def add_mine_parser(commands: argparse._SubParsersAction) -> None:
 
 def run_mine(args: argparse.Namespace) -> int:
     """The ``mine`` command."""
-    for flag, given in (("--full-remine", args.full_remine), ("--tick-timings", args.tick_timings)):
+    for flag, given in (
+        ("--full-remine", args.full_remine),
+        ("--always-track", args.always_track),
+        ("--tick-timings", args.tick_timings),
+    ):
         if given and args.tick_every is None:
             raise UsageError(f"{flag} needs --tick-every")
     if args.dead_letter_out is not None:
         check_output_file(args.dead_letter_out, "--dead-letter-out")
     # without --tick-every there is one result: a full mine, no tracking
-    settings = run_settings(args, full_remine=args.full_remine or args.tick_every is None)
+    if args.full_remine or args.tick_every is None:
+        refresh = Refresh.FULL
+    else:
+        refresh = Refresh.TRACKED if args.always_track else Refresh.ADAPTIVE
+    settings = run_settings(args, refresh=refresh)
     timings = TickTimings()
     listeners: list[TickListener] = [
         ResultPrinter(
@@ -117,7 +133,7 @@ def run_mine(args: argparse.Namespace) -> int:
             source.close()
             letters.close()
     if args.tick_timings:
-        print("stream-miner: tick timings " + json.dumps(timings.summary(args.full_remine)), file=sys.stderr)
+        print("stream-miner: tick timings " + json.dumps(timings.summary(refresh)), file=sys.stderr)
     if received:
         print("stream-miner: interrupted", file=sys.stderr)
         return 128 + received[0]

@@ -110,12 +110,12 @@ class TickTimings:
         self.window.append(report.window_update_seconds)
         self.refresh.append(report.refresh_seconds)
 
-    def summary(self, full_remine: bool) -> dict[str, Any]:
+    def summary(self, mode: str) -> dict[str, Any]:
         """Tick count and median, mean and 90th percentile in milliseconds; the first tick
-        (which starts the tracking) is left out of the refresh figures and shown apart."""
+        (which may start the tracking) is left out of the refresh figures and shown apart."""
         steady = self.refresh[1:] or self.refresh
         return {
-            "mode": "full-remine" if full_remine else "incremental",
+            "mode": mode,
             "ticks": len(self.refresh),
             "first_refresh_ms": round(1e3 * self.refresh[0], 3) if self.refresh else None,
             "refresh_ms": _spread(steady),

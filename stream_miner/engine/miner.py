@@ -1,8 +1,10 @@
 """The window miner: basket hygiene, item vocabulary, window store and prefix tree together.
 
-Baskets are buffered and applied to the tree in batches (the tree's batch update is
-vectorised); every read (mining, size, checks) applies the buffer first, so results are
-always those of the exact current window.
+Baskets are buffered and applied to the store and the tree in batches (the tree's batch
+update is vectorised); every read (mining, size, checks) applies the buffer first, so results
+are always those of the exact current window. While ticks are served by the tracked border,
+nothing reads the tree, so it is left behind and rebuilt from the store when a full mine or
+a check needs it (the lazy tree); its item order is kept up to date either way.
 """
 
 from __future__ import annotations
@@ -10,6 +12,7 @@ from __future__ import annotations
 import math
 import numbers
 import threading
+import time
 from collections import Counter
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
@@ -26,6 +29,7 @@ from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.limits import stop_if_set
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.past import PastBaskets, in_span
+from stream_miner.engine.refresh import Refresh, RefreshChooser
 from stream_miner.engine.result import MiningResult
 from stream_miner.engine.rules import generate_rules
 from stream_miner.engine.tree import PrefixTree, frequency_rank
@@ -105,6 +109,7 @@ class WindowMiner:
         self.batch_size = batch_size
         self.vocabulary = ItemVocabulary()
         self.tree = PrefixTree()
+        self._tree_behind = False  # the tree does not hold the window (see _tree_up_to_date)
         self.store = WindowStore()
         self.verdicts: Counter[Verdict] = Counter()
         self._pending: list[list[int]] = []
@@ -115,6 +120,7 @@ class WindowMiner:
         self._applied_since_order = 0
         self._tracker: BorderTracker | None = None
         self._tracker_key: tuple | None = None
+        self._chooser = RefreshChooser()
         self._changes: list[tuple[BasketArrays, int]] = []
         self._last: MiningResult | None = None
         self._ticks = 0
@@ -251,7 +257,10 @@ class WindowMiner:
         if not self._ranked and pending:
             self._rank_from(pending)
         paths = self.tree.paths_of(pending)
-        handles = self.tree.update(paths, expired.handles)
+        if self._tree_behind:
+            handles = np.zeros(len(paths), dtype=np.int64)  # no node: rebuilt with the tree
+        else:
+            handles = self.tree.update(paths, expired.handles)
         self.store.append(paths, pending_ts, handles, pending_tags)
         self._note_changes((expired.baskets, -1), (paths, 1))
         self._applied_since_order += len(paths)
@@ -282,7 +291,8 @@ class WindowMiner:
         self.flush()
         withdrawn = self.store.withdraw(low, high)
         if len(withdrawn.handles):
-            self.tree.update(BasketArrays.empty(), withdrawn.handles)
+            if not self._tree_behind:
+                self.tree.update(BasketArrays.empty(), withdrawn.handles)
             self._note_changes((withdrawn.baskets, -1))
         return len(withdrawn.handles)
 
@@ -319,10 +329,22 @@ class WindowMiner:
         self._rebuild(baskets, ts, tags, rank)
 
     def _rebuild(self, baskets: BasketArrays, ts: np.ndarray, tags: np.ndarray, rank: np.ndarray) -> None:
-        self.tree = PrefixTree(rank, capacity_hint=self.tree.node_count() + 16)
+        """Put the window in item order ``rank`` (a tree left behind stays behind, empty)."""
+        self.tree = PrefixTree(rank, capacity_hint=16 if self._tree_behind else self.tree.node_count() + 16)
         paths = self.tree.order_paths(baskets)
-        self.store.replace(paths, ts, self.tree.update(paths, ()), tags)
+        handles = np.zeros(len(paths), dtype=np.int64) if self._tree_behind else self.tree.update(paths, ())
+        self.store.replace(paths, ts, handles, tags)
         self._applied_since_order = 0
+
+    def _tree_up_to_date(self) -> PrefixTree:
+        """The tree, rebuilt from the store (in the same item order) if it was left behind.
+        Only the tree and the store's tree handles change, never what a checkpoint reads."""
+        if self._tree_behind:
+            baskets = self.store.contents()[0]  # already in the tree's path order
+            tree = PrefixTree(self.tree.rank, capacity_hint=baskets.items.size + 16)
+            self.store.set_handles(tree.update(baskets, ()))
+            self.tree, self._tree_behind = tree, False
+        return self.tree
 
     # ------------------------------------------------------------------ reads
     def __len__(self) -> int:
@@ -395,7 +417,7 @@ class WindowMiner:
         self, params: MiningParams, names: Sequence[str], min_count: int, interrupt: threading.Event | None
     ) -> dict[Itemset, int]:
         return mine_tree(
-            self.tree.arrays(),
+            self._tree_up_to_date().arrays(),
             min_count,
             max_size=params.max_size,
             allowed=self._allowed_mask(params, names),
@@ -407,28 +429,46 @@ class WindowMiner:
         self,
         params: MiningParams,
         *,
-        full_remine: bool = False,
+        refresh: Refresh = Refresh.ADAPTIVE,
         interrupt: threading.Event | None = None,
         defer: bool = False,
     ) -> Tick:
         """The current result and what changed since the previous tick.
 
-        Incremental by default: only the baskets that entered or left the window since the
-        previous tick are looked at (see :mod:`stream_miner.engine.incremental.tracker`); the
-        first tick, and any tick whose item lists or size limit differ from the previous one,
-        starts the tracking from the window. ``full_remine`` mines the whole window instead
-        (same result). Raises like :meth:`mine`; a tick that raised counts for nothing (the
-        next tick has its number and its delta is against the last tick that returned).
+        ``refresh`` says how (the same result in every mode): ``TRACKED`` looks only at the
+        baskets that entered or left the window since the previous tick (see
+        :mod:`stream_miner.engine.incremental.tracker`; a tick whose item lists or size limit
+        differ from the previous one starts the tracking from the window), ``FULL`` mines
+        the whole window, ``ADAPTIVE`` picks per tick from measured costs (see
+        :mod:`stream_miner.engine.refresh`). Raises like :meth:`mine`; a tick that raised
+        counts for nothing (the next tick has its number and its delta is against the last
+        tick that returned).
         """
         self.flush()
         names = self.vocabulary.names()
-        min_count = params.threshold(len(self.store))
-        if full_remine:
-            self._tracker, found = None, None
-        else:
+        n = len(self.store)
+        min_count = params.threshold(n)
+        tracking = self._tracker is not None
+        if refresh == Refresh.ADAPTIVE:
+            tracking = self._chooser.track(tracking, n)
+        elif refresh == Refresh.TRACKED:
+            tracking = True
+        found = None
+        started = time.perf_counter()
+        if tracking:
+            starting = self._tracker is None
             found = self._track(params, names, min_count, interrupt)  # None: too many items to track
+            if found is not None:
+                self._tree_behind = True
+                keep = self._chooser.tracked_tick(time.perf_counter() - started, starting, n)
+                if refresh == Refresh.ADAPTIVE and not keep:
+                    self._tracker, self._changes = None, []
+        else:
+            self._tracker, self._changes = None, []
         if found is None:
+            started = time.perf_counter()
             found = self._mine_tree(params, names, min_count, interrupt)
+            self._chooser.full_mined(time.perf_counter() - started, n)
         result = self._result(found, min_count, params, names, interrupt)
         tick = Tick(self._ticks, result, diff_results(self._last, result))
         stop_if_set(interrupt)  # an abandoned tick must not count: its caller has moved on
@@ -476,7 +516,7 @@ class WindowMiner:
         self._changes = []
         allowed = self._allowed_mask(params, names)
         allowed = np.ones(len(names), dtype=bool) if allowed is None else allowed
-        if params.max_itemsets is not None:
+        if params.max_itemsets is not None and not self._tree_behind:  # else the tracker's own cap
             self._check_size(
                 self._tracker.item_counts, min_count, allowed, params.max_size, params.max_itemsets
             )
@@ -530,7 +570,7 @@ class WindowMiner:
     def check_invariants(self) -> None:
         """Raise AssertionError unless the tree holds exactly the stored window."""
         self.flush()
-        self.tree.check_invariants()
+        self._tree_up_to_date().check_invariants()
         assert self.tree.n_baskets == len(self.store), "tree and window sizes differ"
 
 

@@ -245,6 +245,15 @@ class WindowStore:
             return BasketArrays.empty(), np.empty(0), np.empty(0, dtype=np.int64)
         return BasketArrays.concat(parts), np.concatenate(ts), np.concatenate(tags)
 
+    def set_handles(self, handles: np.ndarray) -> None:
+        """Give the live baskets, oldest first, new tree handles (after the tree was rebuilt
+        in the same item order); nothing :meth:`contents` returns changes."""
+        first = 0
+        for chunk in self._chunks:
+            rows = np.flatnonzero(chunk.alive)
+            chunk.handle[rows] = handles[first : first + rows.size]
+            first += rows.size
+
     def replace(self, paths: BasketArrays, ts: np.ndarray, handles: np.ndarray, tags: np.ndarray) -> None:
         """Replace the whole content (after the tree was rebuilt in a new item order)."""
         self._chunks.clear()

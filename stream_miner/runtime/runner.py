@@ -42,6 +42,7 @@ from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
+from stream_miner.engine.refresh import Refresh
 from stream_miner.engine.window import CountWindow, TimeWindow
 from stream_miner.runtime.dedup import RecentIds
 from stream_miner.runtime.event_outbox import EventOutbox, EventSink
@@ -87,7 +88,7 @@ class RunSettings:
     drop_late: bool = False
     tick_every: int | None = None
     tick_interval: float | None = None
-    full_remine: bool = False
+    refresh: Refresh = Refresh.ADAPTIVE
     checkpoint_dir: Path | None = None
     checkpoint_interval: float = 30.0
     start_fresh: bool = False
@@ -403,7 +404,7 @@ class Runner:
             self.miner.flush()
         applied = time.perf_counter()
         tick = self.miner.tick(
-            self.settings.params, full_remine=self.settings.full_remine, interrupt=self.interrupt, defer=True
+            self.settings.params, refresh=self.settings.refresh, interrupt=self.interrupt, defer=True
         )  # counted by _detect, under the lock with the detector's step: a checkpoint sees both or neither
         done = time.perf_counter()
         window = self.settings.window
