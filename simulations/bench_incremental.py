@@ -1,6 +1,7 @@
 """Incremental tick benchmark: refresh cost per tick against full re-mining, in one run.
 
     python -m simulations.bench_incremental [--ticks 30] [--quick]
+    python -m simulations.bench_incremental --modes [--repeats 3]
 
 For each scenario a window is filled, the first tick starts the tracking, and then every
 tick adds one batch of baskets (the slide) and refreshes the result. Beside the refresh, the
@@ -13,6 +14,12 @@ slide sizes of 1,000 and 10,000 baskets; the heavy-tailed data set at 0.5 %; and
 setting of the command line (window 10,000, a tick every 500 baskets, 1 %) on both data sets.
 The refresh is what ``mine --tick-every --tick-timings`` reports as ``refresh_ms``. The first
 refresh in a process also pays numba's one-off start (loading the compiled loops).
+
+``--modes`` instead times whole ``stream-miner mine --tick-every`` processes in the default
+(adaptive) mode beside ``--full-remine`` and ``--always-track``, interleaved, on Quest-like,
+heavy-tailed (with large baskets), sparse real-like (a grocery-sized generated set) and the
+dense supermarket set (Weka's supermarket.arff, when found at ``--dense``), and prints the
+medians and the default's ratio to the better forced mode.
 """
 
 from __future__ import annotations
@@ -20,14 +27,17 @@ from __future__ import annotations
 import argparse
 import json
 import statistics
+import subprocess
 import sys
 import time
 from collections.abc import Sequence
 from fractions import Fraction
+from pathlib import Path
 
 import fim
 
-from simulations.bench_engine import environment, load_baskets, log
+from simulations.bench_engine import CACHE_DIR, environment, load_baskets, log
+from simulations.heavy_tailed import heavy_tailed_baskets
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.window import CountWindow
@@ -41,6 +51,14 @@ SCENARIOS = {
     "heavy_w10k_s500_cli_setting": ("heavy", 10_000, 500, "0.01"),
 }
 QUICK = ("quest_w100k_s1k", "quest_w10k_s500_cli_setting")
+DENSE = "/tmp/realdata/weka/usr/share/doc/weka/examples/supermarket.arff"
+MODE_SETS = {  # data, baskets, window, tick every, support
+    "quest": ("quest", 30_000, 10_000, 500, "0.01"),
+    "heavy_big_baskets": ("heavy", 30_000, 10_000, 500, "0.01"),
+    "sparse_grocery_like": ("grocery", 9_835, 3_000, 200, "0.01"),
+    "dense_supermarket": ("dense", 4_627, 2_000, 200, "0.15"),
+}
+MODES = {"default": [], "full_remine": ["--full-remine"], "always_track": ["--always-track"]}
 
 
 def run_scenario(
@@ -113,6 +131,60 @@ def warm_up() -> float:
     return round(time.perf_counter() - started, 4)
 
 
+def mode_file(data: str, n: int, seed: int, dense: str) -> str | None:
+    """A FIMI file of the named set (None: the dense file is missing)."""
+    if data == "dense":
+        from simulations.drift_on_real_data import read_arff
+
+        source = Path(dense)
+        if not source.exists():
+            return None
+        baskets = [[name.replace(" ", "_") for name in b] for b in read_arff(source)]
+    elif data == "grocery":
+        ids = heavy_tailed_baskets(n, n_items=169, avg_size=4.4, zipf_exponent=1.0, n_patterns=30, seed=seed)
+        baskets = [[str(i) for i in b] for b in ids]
+    else:
+        baskets = [[str(i) for i in b] for b in load_baskets(data, n, seed=seed)]
+    path = CACHE_DIR / f"modes-{data}-n{n}-seed{seed}.dat"
+    CACHE_DIR.mkdir(parents=True, exist_ok=True)
+    path.write_text("".join(" ".join(b) + "\n" for b in baskets if b))
+    return str(path)
+
+
+def compare_modes(repeats: int, seed: int, dense: str) -> dict:
+    """Whole-process seconds of ``mine --tick-every`` per mode (medians of interleaved runs),
+    with identical output checked, and the default over the better forced mode."""
+    out: dict = {}
+    for name, (data, n, window, every, support) in MODE_SETS.items():
+        path = mode_file(data, n, seed, dense)
+        if path is None:
+            log(f"{name}: {dense} not found, skipped")
+            continue
+        log(f"modes on {name}")
+        command = [sys.executable, "-m", "stream_miner", "mine", path, "--format", "fimi", "--json"]
+        command += ["--window-size", str(window), "--tick-every", str(every), "--min-support", support]
+        seconds: dict[str, list[float]] = {mode: [] for mode in MODES}
+        outputs = set()
+        for _ in range(repeats):
+            for mode, flags in MODES.items():
+                started = time.perf_counter()
+                done = subprocess.run(command + flags, capture_output=True, check=True)
+                seconds[mode].append(time.perf_counter() - started)
+                outputs.add(hash(done.stdout))
+        if len(outputs) != 1:
+            raise AssertionError(f"{name}: the modes printed different results")
+        medians = {mode: round(statistics.median(times), 3) for mode, times in seconds.items()}
+        best = min(medians["full_remine"], medians["always_track"])
+        out[name] = {
+            "window": window,
+            "tick_every": every,
+            "min_support": support,
+            "whole_process_s": medians,
+            "default_over_better_forced": round(medians["default"] / best, 2),
+        }
+    return out
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m simulations.bench_incremental", description=__doc__)
     parser.add_argument("--ticks", type=int, default=30, help="timed ticks per scenario")
@@ -120,7 +192,19 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help=f"only {', '.join(QUICK)}")
     parser.add_argument("--only", choices=sorted(SCENARIOS), action="append")
     parser.add_argument("--seed", type=int, default=1, help="data seed (another seed gives held-out data)")
+    parser.add_argument("--modes", action="store_true", help="whole processes: default vs forced modes")
+    parser.add_argument("--repeats", type=int, default=3, help="with --modes: runs per mode")
+    parser.add_argument("--dense", default=DENSE, help="with --modes: the supermarket ARFF file")
     args = parser.parse_args(argv)
+    if args.modes:
+        modes = {
+            "environment": environment(),
+            "seed": args.seed,
+            "modes": compare_modes(args.repeats, args.seed, args.dense),
+        }
+        json.dump(modes, sys.stdout, indent=1)
+        print()
+        return 0
     chosen = args.only or (QUICK if args.quick else list(SCENARIOS))
     report: dict = {
         "environment": environment(),

@@ -15,7 +15,7 @@ from __future__ import annotations
 from enum import StrEnum
 
 SMOOTHING = 0.3  # weight of the newest measurement in the moving averages
-FIRST_START_IN_FULL_MINES = 2.0  # expected start before one was measured, in full mines
+FIRST_START_IN_FULL_MINES = 1.0  # expected start before one was measured, in full mines
 
 
 class Refresh(StrEnum):
