@@ -61,7 +61,7 @@ from stream_miner.connectors.kafka_join_fix import keep_finished_joins
 from stream_miner.connectors.kafka_log_check import Accept, LogWatch, look, problems, refusal, restart_offsets
 from stream_miner.decoding.files import InputError
 from stream_miner.decoding.messages import MessageFormat, decode_message
-from stream_miner.decoding.records import DeadLetter, SourceRecord
+from stream_miner.decoding.records import Basket, DeadLetter, SourceRecord
 from stream_miner.runtime.ledger import CommitOutcome
 from stream_miner.runtime.protocols import Handover, SourceChanged, StoppedWaiting
 from stream_miner.runtime.stop_clock import StopClock
@@ -453,20 +453,25 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             self._consumer.resume(*(paused & set(self._consumer.assignment())))
 
     def _records(self, batches: dict) -> list[SourceRecord]:
+        records: list[SourceRecord] = []
+        fmt, name = self._format, self.name
         for tp, messages in batches.items():
-            if messages:
-                self._next_offsets[tp.partition] = messages[-1].offset + 1
-                self._watch.advance(tp.partition, messages[-1].offset + 1)
-        return [
-            SourceRecord(
-                self._decode(message.value, tp.partition, message.offset),
-                tp.partition,
-                message.offset,
-                message.offset < self._learn_until.get(tp.partition, -1),
-            )
-            for tp, messages in batches.items()
-            for message in messages
-        ]
+            if not messages:
+                continue
+            partition = tp.partition
+            self._next_offsets[partition] = messages[-1].offset + 1
+            self._watch.advance(partition, messages[-1].offset + 1)
+            learn_until = self._learn_until.get(partition, -1)
+            for message in messages:
+                value, offset = message.value, message.offset
+                if value is None:
+                    payload: Basket | DeadLetter = DeadLetter(
+                        b"", "empty message", "a message without a value", name, partition, offset
+                    )
+                else:
+                    payload = decode_message(value, fmt, source=name, partition=partition, offset=offset)
+                records.append(SourceRecord(payload, partition, offset, offset < learn_until))
+        return records
 
     def exhausted(self) -> bool:
         return False  # a topic has no end; stop with SIGTERM
@@ -534,11 +539,6 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             self._consumer.close(autocommit=False, timeout_ms=int(self._stop.budget(CLOSE_TIMEOUT) * 1000))
         except KafkaError as error:
             print(f"stream-miner: warning: closing the Kafka consumer: {describe(error)}", file=self._log)
-
-    def _decode(self, value: bytes | None, partition: int, offset: int):
-        if value is None:
-            return DeadLetter(b"", "empty message", "a message without a value", self.name, partition, offset)
-        return decode_message(value, self._format, source=self.name, partition=partition, offset=offset)
 
 
 def _offset(committed: OffsetAndMetadata | int | None) -> int | None:
