@@ -30,7 +30,6 @@ from stream_miner.connectors.file_source import FileSource
 from stream_miner.decoding.files import InputError, detect_format
 from stream_miner.decoding.records import REFUSED_BASKETS, DeadLetter
 from stream_miner.runtime.protocols import TickListener
-from stream_miner.runtime.runner import Runner
 
 DEMO_FILE = "larkspur_market.jsonl"
 
@@ -89,6 +88,8 @@ def add_mine_parser(commands: argparse._SubParsersAction) -> None:
 
 def run_mine(args: argparse.Namespace) -> int:
     """The ``mine`` command."""
+    from stream_miner.runtime.runner import Runner  # numpy and the engine: only to mine
+
     for flag, given in (("--full-remine", args.full_remine), ("--tick-timings", args.tick_timings)):
         if given and args.tick_every is None:
             raise UsageError(f"{flag} needs --tick-every")

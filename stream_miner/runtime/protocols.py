@@ -6,12 +6,14 @@ from __future__ import annotations
 from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Protocol
+from typing import TYPE_CHECKING, Protocol
 
 from stream_miner.decoding.records import DeadLetter, SourceRecord
-from stream_miner.drift.events import DriftEvent, PatternStatus
-from stream_miner.engine.miner import Tick
 from stream_miner.runtime.ledger import CommitOutcome
+
+if TYPE_CHECKING:  # the engine and drift packages load only when a command mines
+    from stream_miner.drift.events import DriftEvent, PatternStatus
+    from stream_miner.engine.miner import Tick
 
 
 class StoppedWaiting(Exception):
