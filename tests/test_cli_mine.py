@@ -736,3 +736,31 @@ def test_bundled_demo_without_input(capsys):
     expected = frequent(baskets, threshold)
     assert expected and all(r["type"] == "itemset" for r in records)
     assert itemsets_of(records) == expected
+
+
+def test_json_lines_through_both_decoding_paths_mine_like_brute_force(capsys, tmp_path):
+    # Short messages of string items take the fast (orjson) path; objects as items, a
+    # byte-order mark, huge integer ids and long messages take the full path. Both must
+    # give the same baskets, so the counts are the brute force's.
+    rng = random.Random(12)
+    names = [f"sku-{k}" for k in range(12)] + ["caf\u00e9", "tea \\ jam", "\U0001f34e"]
+    baskets, lines = [], []
+    for i in range(300):
+        basket = rng.sample(names, rng.randint(1, 6))
+        repeated = basket + basket[:1]
+        kind = i % 5
+        if kind == 0:
+            message = {"id": f"t{i}", "items": repeated}
+        elif kind == 1:
+            message = {"id": 10**30 + i, "items": [{"sku": name, "qty": 2} for name in repeated]}
+        elif kind == 2:
+            message = {"id": i, "ts": 1_700_000_000 + i, "items": repeated, "note": "x" * 1100}
+        else:
+            message = {"items": repeated, "ts": f"2024-03-01T12:00:{i % 60:02d}Z"}
+        line = json.dumps(message, ensure_ascii=kind != 3)
+        lines.append(("\ufeff" + line) if kind == 4 else line)
+        baskets.append(basket)
+    path = tmp_path / "mixed.jsonl"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    records, _ = run_json(capsys, path, "--min-count", "6")
+    assert itemsets_of(records) == frequent(baskets, 6)

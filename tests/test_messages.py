@@ -349,3 +349,88 @@ def test_never_raises_on_random_bytes(raw, fmt):
 @given(message=MESSAGES, fmt=FORMATS)
 def test_never_raises_on_json_values(message, fmt):
     check_outcome(json.dumps(message).encode("utf-8"), fmt)
+
+
+# ------------------------------------------------------------- fast path = full path
+def full_path(raw: bytes, fmt: MessageFormat) -> Basket | tuple[str, str]:
+    """What the full (standard json) path alone makes of ``raw``."""
+    try:
+        return messages._basket(messages._json_object(raw, fmt), fmt, raw)
+    except messages._Refused as refusal:
+        return refusal.reason, refusal.detail
+
+
+def assert_same_as_full_path(raw: bytes, fmt: MessageFormat = DEFAULT) -> None:
+    found, expected = decode_message(raw, fmt, source="s"), full_path(raw, fmt)
+    if isinstance(expected, Basket):
+        assert isinstance(found, Basket), (raw, found)
+        assert (found.items, found.id, found.ts, found.segment, found.raw) == (
+            expected.items,
+            expected.id,
+            expected.ts,
+            expected.segment,
+            expected.raw,
+        )
+        assert type(found.id) is type(expected.id) and type(found.ts) is type(expected.ts)
+    else:
+        assert isinstance(found, DeadLetter), (raw, found)
+        assert (found.reason, found.detail) == expected
+
+
+EDGE_MESSAGES = [
+    b'{"items": ["a", "b", "a"], "id": "x", "ts": 1709294400}',
+    b'{"items": ["a"], "id": 123456789012345678901234567890}',  # beyond 64 bits: orjson reads a float
+    b'{"items": ["a"], "id": -9223372036854775809}',
+    b'{"items": ["a"], "id": 18446744073709551615}',
+    b'{"items": ["a"], "ts": 123456789012345678901234567890}',
+    b'{"items": ["a"], "ts": 1e400}',
+    b'{"items": ["a"], "ts": NaN}',
+    b'{"items": ["a"], "ts": 1709294400.123456789}',
+    b'{"items": ["a"], "ts": 1709294400123}',
+    b'{"items": ["a"], "ts": -0.0}',
+    b'{"items": ["a"], "ts": "2024-03-01T12:00:00Z"}',
+    b'{"items": ["a"], "ts": true}',
+    b'{"items": ["a"], "id": true}',
+    b'{"items": ["a"], "id": 1.5}',
+    b'{"items": ["\\ud800"]}',  # a lone surrogate: the full path refuses it
+    b'{"items": ["\\ud83d\\ude00"]}',
+    b'\xef\xbb\xbf{"items": ["a"]}',  # a byte-order mark
+    b'{"items": ["a"], "items": ["b"]}',
+    b'{"items": ["a", {"sku": "b"}]}',
+    b'{"items": [["a"]]}',
+    b'{"items": []}',
+    b'{"items": "a"}',
+    b'{"items": ["a"], "store": 3}',
+    b'{"items": ["a"], "store": "north"}',
+    b'{"items": ["a"], "other": ' + b"9" * 5000 + b"}",  # json refuses over 4,300 digits
+    b'{"items": ["a"], "other": ' + b"[" * 600 + b"]" * 600 + b"}",
+    b'{"items": ["a\\u0000b", "caf\\u00e9"]}',
+    b'{"items": ["a"]} ',
+    b'{"items": ["a"]}x',
+    b'["a"]',
+    b'{"items": ["\xff"]}',
+]
+
+
+@pytest.mark.parametrize("raw", EDGE_MESSAGES)
+@pytest.mark.parametrize(
+    "fmt", [DEFAULT, MessageFormat(segment_field="store", time_unit="s"), MessageFormat(time_unit="ms")]
+)
+def test_fast_path_agrees_with_full_path(raw, fmt):
+    assert_same_as_full_path(raw, fmt)
+
+
+@settings(max_examples=500)
+@given(message=MESSAGES, fmt=FORMATS)
+def test_fast_path_agrees_with_full_path_on_json_values(message, fmt):
+    assert_same_as_full_path(json.dumps(message).encode("utf-8"), fmt)
+
+
+@settings(max_examples=200)
+@given(
+    items=st.lists(st.text(max_size=6), min_size=1, max_size=8),
+    ts=st.floats(allow_nan=False) | st.integers(),
+)
+def test_fast_path_agrees_on_times_and_texts(items, ts):
+    raw = json.dumps({"items": items, "ts": ts, "id": ts if isinstance(ts, int) else None}).encode()
+    assert_same_as_full_path(raw)

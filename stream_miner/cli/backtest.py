@@ -25,8 +25,7 @@ from stream_miner.cli.signals import stop_on_signals
 from stream_miner.connectors.dead_letters import DeadLetterCounter
 from stream_miner.connectors.file_source import FileSource
 from stream_miner.decoding.files import InputError, detect_format
-from stream_miner.drift.detector import DriftSettings
-from stream_miner.runtime.runner import Runner
+from stream_miner.drift.settings import DriftSettings
 
 DEFAULT_CHART_PATTERNS, MAX_CHART_PATTERNS = 8, 20
 
@@ -71,6 +70,7 @@ def run_backtest(args: argparse.Namespace) -> int:
     from stream_miner.cli.mine import StopAtMalformed
     from stream_miner.report.data import backtest_data
     from stream_miner.report.recorder import BacktestRecorder
+    from stream_miner.runtime.runner import Runner  # numpy and the engine: only to mine
 
     settings = run_settings(args, drift=_checked(args))
     label = "stdin" if args.input == "-" else args.input

@@ -9,7 +9,7 @@ from pathlib import Path
 from stream_miner.cli.options import UsageError, fraction, positive_int
 from stream_miner.cli.paths import check_output_file, open_output
 from stream_miner.drift.baseline import POLICIES
-from stream_miner.drift.detector import MAX_PATTERN_SIZE, DriftSettings
+from stream_miner.drift.settings import MAX_PATTERN_SIZE, DriftSettings
 from stream_miner.runtime.event_outbox import EventSink
 from stream_miner.runtime.stop_clock import StopClock
 

@@ -14,7 +14,6 @@ from stream_miner.cli.demo import add_demo_parser
 from stream_miner.cli.mine import add_mine_parser
 from stream_miner.cli.ops_kit import add_ops_kit_parser
 from stream_miner.cli.run import add_run_parser, apply_config
-from stream_miner.runtime.runner import TICK_THREAD
 
 EXIT_FAILURE, EXIT_USAGE = 1, 2
 
@@ -46,7 +45,10 @@ def entry() -> None:
     the interpreter in a long numpy call on its worker thread; the process then ends at once
     (output flushed) instead of waiting for it."""
     code = main()
-    if any(thread.name == TICK_THREAD and thread.is_alive() for thread in threading.enumerate()):
+    runner = sys.modules.get("stream_miner.runtime.runner")  # loaded only by commands that mine
+    if runner is not None and any(
+        thread.name == runner.TICK_THREAD and thread.is_alive() for thread in threading.enumerate()
+    ):
         sys.stdout.flush()
         sys.stderr.flush()
         os._exit(code)

@@ -31,7 +31,6 @@ from stream_miner.decoding.files import InputError, detect_format
 from stream_miner.decoding.records import REFUSED_BASKETS, DeadLetter
 from stream_miner.engine.refresh import Refresh
 from stream_miner.runtime.protocols import TickListener
-from stream_miner.runtime.runner import Runner
 
 DEMO_FILE = "larkspur_market.jsonl"
 
@@ -97,6 +96,8 @@ def add_mine_parser(commands: argparse._SubParsersAction) -> None:
 
 def run_mine(args: argparse.Namespace) -> int:
     """The ``mine`` command."""
+    from stream_miner.runtime.runner import Runner  # numpy and the engine: only to mine
+
     for flag, given in (
         ("--full-remine", args.full_remine),
         ("--always-track", args.always_track),

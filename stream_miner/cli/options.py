@@ -8,7 +8,7 @@ import re
 import sys
 from collections.abc import Sequence
 from fractions import Fraction
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from stream_miner.decoding.files import FORMATS, FileLayout
 from stream_miner.decoding.messages import TIME_UNITS, MessageFormat
@@ -16,8 +16,10 @@ from stream_miner.engine.hygiene import DEFAULT_MAX_BASKET_ITEMS, BasketPolicy, 
 from stream_miner.engine.limits import DEFAULT_MAX_ITEMSETS
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.rules import RANK_MEASURES, RuleFilter
-from stream_miner.engine.window import CountWindow, TimeWindow
-from stream_miner.runtime.runner import RunSettings
+
+if TYPE_CHECKING:  # numpy and the run loop load only when a command mines, not for --help
+    from stream_miner.engine.window import CountWindow, TimeWindow
+    from stream_miner.runtime.runner import RunSettings
 
 
 class UsageError(ValueError):
@@ -206,6 +208,8 @@ def basket_policy(args: argparse.Namespace) -> BasketPolicy:
 
 def window_of(args: argparse.Namespace) -> CountWindow | TimeWindow | None:
     """The window the options ask for (None: every basket of the input)."""
+    from stream_miner.engine.window import CountWindow, TimeWindow
+
     if args.window_size is not None:
         return CountWindow(args.window_size)
     if args.window_time is not None:
@@ -215,6 +219,8 @@ def window_of(args: argparse.Namespace) -> CountWindow | TimeWindow | None:
 
 def run_settings(args: argparse.Namespace, **more: Any) -> RunSettings:
     """The loop settings the shared options ask for; ``more`` adds a command's own."""
+    from stream_miner.runtime.runner import RunSettings
+
     return RunSettings(
         window=window_of(args),
         params=mining_params(args, drift=more.get("drift") is not None),

@@ -31,12 +31,12 @@ from stream_miner.connectors.dead_letters import DeadLetterCounter, DeadLetterFi
 from stream_miner.connectors.file_source import FileSource
 from stream_miner.decoding.files import detect_format
 from stream_miner.runtime.protocols import DeadLetterSink, Source, StoppedWaiting, TickListener
-from stream_miner.runtime.runner import Runner, RunSettings
 from stream_miner.runtime.stop_clock import DEFAULT_STOP_WITHIN, StopClock
 
 if TYPE_CHECKING:
     from stream_miner.connectors.http_server import HttpServer
     from stream_miner.metrics import RunMetrics
+    from stream_miner.runtime.runner import RunSettings
     from stream_miner.status import StatusBoard
 
 DEFAULT_METRICS_HOST = "127.0.0.1"
@@ -202,6 +202,8 @@ def _scalar(value: object) -> bool:
 
 def run_run(args: argparse.Namespace) -> int:
     """The ``run`` command."""
+    from stream_miner.runtime.runner import Runner  # numpy and the engine: only to mine
+
     settings = _settings(args)
     _check_outputs(args)
     metrics = _metrics(args)

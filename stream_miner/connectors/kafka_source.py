@@ -16,9 +16,9 @@
   fetch and commit calls (kafka-python 3.x internals, pinned in pyproject) instead of the
   blocking consumer methods.
 - Mining is kept off the poll path: while a tick runs on the loop's worker thread,
-  :meth:`KafkaSource.while_busy` keeps polling with every partition paused, so a slow tick
-  never exceeds ``max_poll_interval_ms``; records of partitions assigned meanwhile are kept
-  for the next :meth:`poll`.
+  :meth:`KafkaSource.while_busy` keeps polling, so a slow tick never exceeds
+  ``max_poll_interval_ms``. Up to ``READ_AHEAD`` records are read and decoded meanwhile and
+  kept for the next :meth:`poll`; then every partition is paused until the tick ends.
 - Broker errors while reading (the broker stopped, killed or restarting) are retried with a
   growing pause and one line per attempt; the stream resumes by itself when the broker is
   back. Commits end within ``COMMIT_TIMEOUT`` (a failed one is retried at the next
@@ -61,7 +61,7 @@ from stream_miner.connectors.kafka_join_fix import keep_finished_joins
 from stream_miner.connectors.kafka_log_check import Accept, LogWatch, look, problems, refusal, restart_offsets
 from stream_miner.decoding.files import InputError
 from stream_miner.decoding.messages import MessageFormat, decode_message
-from stream_miner.decoding.records import DeadLetter, SourceRecord
+from stream_miner.decoding.records import Basket, DeadLetter, SourceRecord
 from stream_miner.runtime.ledger import CommitOutcome
 from stream_miner.runtime.protocols import Handover, SourceChanged, StoppedWaiting
 from stream_miner.runtime.stop_clock import StopClock
@@ -82,6 +82,7 @@ CLOSE_TIMEOUT = 10.0  # seconds the consumer may take to leave its group (less o
 READ_RETRY_MAX = 5.0  # seconds: polls are retried more often, so a stream resumes soon after its broker
 COORDINATOR_GRACE = 3.0  # seconds of polls without a group coordinator before reading counts as failed
 DETAIL = 160  # characters of a client error's text shown in a line
+READ_AHEAD = 20_000  # records read (and decoded) while a tick runs, at most
 # answers that mean the broker did not record a commit
 REFUSALS = (
     CommitFailedError,
@@ -440,33 +441,43 @@ class KafkaSource(AsyncConsumerRebalanceListener):
                 f"auto_offset_reset is {self._reset_to!r}; use earliest or latest"
             )
 
-    def while_busy(self, busy: Callable[[], bool]) -> None:
+    def while_busy(self, busy: Callable[..., bool]) -> None:
         """Keep the group membership alive while ``busy()`` (a tick on a worker thread) says
-        so, by polling with every partition paused; records of partitions assigned meanwhile
-        are kept for the next :meth:`poll`."""
-        paused = set(self._consumer.assignment())
-        self._consumer.pause(*paused)
+        so, by polling: the records read meanwhile are kept for the next :meth:`poll`. Once
+        ``READ_AHEAD`` are kept, every partition is paused until the tick ends."""
+        paused: set[TopicPartition] = set()
+        reading = True  # records came with the last poll: poll again at once
         try:
-            while busy():
-                self._backlog += self._records(self._fetch(timeout_ms=100))
+            while busy(0 if reading else None):
+                if not paused and len(self._backlog) >= READ_AHEAD:
+                    paused = set(self._consumer.assignment())
+                    self._consumer.pause(*paused)
+                records = self._records(self._fetch(timeout_ms=0))
+                self._backlog += records
+                reading = bool(records) and not paused
         finally:
             self._consumer.resume(*(paused & set(self._consumer.assignment())))
 
     def _records(self, batches: dict) -> list[SourceRecord]:
+        records: list[SourceRecord] = []
+        fmt, name = self._format, self.name
         for tp, messages in batches.items():
-            if messages:
-                self._next_offsets[tp.partition] = messages[-1].offset + 1
-                self._watch.advance(tp.partition, messages[-1].offset + 1)
-        return [
-            SourceRecord(
-                self._decode(message.value, tp.partition, message.offset),
-                tp.partition,
-                message.offset,
-                message.offset < self._learn_until.get(tp.partition, -1),
-            )
-            for tp, messages in batches.items()
-            for message in messages
-        ]
+            if not messages:
+                continue
+            partition = tp.partition
+            self._next_offsets[partition] = messages[-1].offset + 1
+            self._watch.advance(partition, messages[-1].offset + 1)
+            learn_until = self._learn_until.get(partition, -1)
+            for message in messages:
+                value, offset = message.value, message.offset
+                if value is None:
+                    payload: Basket | DeadLetter = DeadLetter(
+                        b"", "empty message", "a message without a value", name, partition, offset
+                    )
+                else:
+                    payload = decode_message(value, fmt, source=name, partition=partition, offset=offset)
+                records.append(SourceRecord(payload, partition, offset, offset < learn_until))
+        return records
 
     def exhausted(self) -> bool:
         return False  # a topic has no end; stop with SIGTERM
@@ -534,11 +545,6 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             self._consumer.close(autocommit=False, timeout_ms=int(self._stop.budget(CLOSE_TIMEOUT) * 1000))
         except KafkaError as error:
             print(f"stream-miner: warning: closing the Kafka consumer: {describe(error)}", file=self._log)
-
-    def _decode(self, value: bytes | None, partition: int, offset: int):
-        if value is None:
-            return DeadLetter(b"", "empty message", "a message without a value", self.name, partition, offset)
-        return decode_message(value, self._format, source=self.name, partition=partition, offset=offset)
 
 
 def _offset(committed: OffsetAndMetadata | int | None) -> int | None:

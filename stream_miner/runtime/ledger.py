@@ -53,6 +53,9 @@ class PartitionLedger:
         if offset < floor:
             return  # below what the group knows: never given back
         segments = self._segments.setdefault(partition, [])
+        if segments and offset >= segments[-1][0] >= floor:  # in order: the last segment grows
+            segments[-1][1] += 1
+            return
         if not segments or offset < segments[0][0]:
             segments.insert(0, [offset, 0])
         starts = [start for start, _ in segments]

@@ -6,12 +6,14 @@ from __future__ import annotations
 from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Protocol
+from typing import TYPE_CHECKING, Protocol
 
 from stream_miner.decoding.records import DeadLetter, SourceRecord
-from stream_miner.drift.events import DriftEvent, PatternStatus
-from stream_miner.engine.miner import Tick
 from stream_miner.runtime.ledger import CommitOutcome
+
+if TYPE_CHECKING:  # the engine and drift packages load only when a command mines
+    from stream_miner.drift.events import DriftEvent, PatternStatus
+    from stream_miner.engine.miner import Tick
 
 
 class StoppedWaiting(Exception):
@@ -74,9 +76,10 @@ class Source(Protocol):
         """True once a finite source has nothing more."""
         ...
 
-    def while_busy(self, busy: Callable[[], bool]) -> None:
-        """Return once ``busy()`` (which waits a little for a tick on a worker thread) says
-        False; a source that must keep talking to a broker meanwhile does so between calls."""
+    def while_busy(self, busy: Callable[..., bool]) -> None:
+        """Return once ``busy()`` (which waits a little for a tick on a worker thread, or
+        ``busy(seconds)`` that long) says False; a source that must keep talking to a broker
+        meanwhile does so between calls."""
 
     def position(self) -> str | None:
         """Where reading stands, for a person (share of a file read, lag behind a topic)."""

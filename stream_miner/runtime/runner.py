@@ -34,10 +34,10 @@ from collections import Counter
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import TextIO
+from typing import TYPE_CHECKING, TextIO
 
 from stream_miner.decoding.records import Basket, DeadLetter
-from stream_miner.drift.detector import DriftDetector, DriftSettings
+from stream_miner.drift.settings import DriftSettings
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
 from stream_miner.engine.miner import WindowMiner
@@ -58,6 +58,9 @@ from stream_miner.runtime.protocols import (
     TickReport,
 )
 from stream_miner.runtime.schedule import TickSchedule
+
+if TYPE_CHECKING:
+    from stream_miner.drift.detector import DriftDetector
 
 EXIT_OK, EXIT_USAGE = 0, 2
 IDLE_WAIT = 0.05  # seconds to wait after a poll that returned nothing
@@ -144,7 +147,11 @@ class Runner:
         self.source = source
         self.dead_letters = DeadLetterOutbox(dead_letters, hold=settings.checkpoint_dir is not None)
         self.listeners = list(listeners)
-        self.detector = DriftDetector(settings.drift) if settings.drift is not None else None
+        self.detector: DriftDetector | None = None
+        if settings.drift is not None:
+            from stream_miner.drift.detector import DriftDetector  # only with drift detection
+
+            self.detector = DriftDetector(settings.drift)
         held = settings.checkpoint_dir is not None
         self.events = None if events is None else EventOutbox(events, hold=held)
         self.log = log or sys.stderr
@@ -380,8 +387,8 @@ class Runner:
         worker.start()
         stopped_at: list[float] = []
 
-        def busy() -> bool:
-            worker.join(BUSY_WAIT)
+        def busy(wait: float | None = None) -> bool:
+            worker.join(BUSY_WAIT if wait is None else wait)
             if self.stopping and worker.is_alive():
                 stopped_at[:] = stopped_at or [time.monotonic()]
                 if time.monotonic() - stopped_at[0] >= ABANDON_AFTER:
@@ -671,6 +678,8 @@ class Runner:
         not show as written are written now (that checkpoint is durable)."""
         if self.detector is not None and "drift" in metadata:
             assert self.settings.drift is not None
+            from stream_miner.drift.detector import DriftDetector
+
             self.detector = DriftDetector.restored(metadata["drift"], self.settings.drift)
         if self.detector is None and self.miner.keeping_past:
             self.miner.stop_keeping_past()  # kept for a detector this run does not have
