@@ -122,13 +122,20 @@ _ARENAS = (
     ("r_start", "rows"),
     ("r_len", "rows"),
     ("r_weight", "rows"),
+    ("r_mult", "rows"),
     ("o_row", "codes"),
     ("o_pos", "codes"),
     ("f_info", "frames"),
     ("fc_code", "frequent"),
     ("fc_olo", "frequent"),
     ("fc_ohi", "frequent"),
+    ("table", "table"),
 )
+
+
+_OUT = ("out_items", "out_start", "out_count")
+# first size of each group of arrays: per tree node (per frequent item for "frequent"), plus a constant
+_FIRST_SIZES = {"codes": (4, 1024), "rows": (2, 1024), "frequent": (4, 64), "out": (0, 1 << 16)}
 
 
 class _Growth:
@@ -146,15 +153,21 @@ class _Growth:
         whole = lambda a: np.ascontiguousarray(a, dtype=np.int64)  # noqa: E731  one compiled signature
         self.tree = (whole(tree.parent), whole(tree.count), whole(tree.item), whole(code_of))
         self.links = (whole(nodes), whole(bounds), whole(items))
-        sizes = {"codes": 4 * nodes.size + 1024, "rows": 2 * nodes.size + 1024, "frequent": 4 * n_codes + 64}
+        first = _FIRST_SIZES
+        sizes = {
+            group: per * (nodes.size if group != "frequent" else n_codes) + fixed
+            for group, (per, fixed) in first.items()
+            if group != "out"
+        }
+        sizes["table"] = 2 * sizes["rows"]
         frames = (n_codes + 1, growth_kernel.FRAME_COLUMNS)
         self.arenas = {
             name: np.zeros(frames if group == "frames" else sizes[group], dtype=np.int64)
             for name, group in _ARENAS
         }
         self.scratch = tuple(np.zeros(n_codes + 2, dtype=np.int64) for _ in range(5))
-        self.out = {"out_items": np.zeros(1 << 18, np.int64), "out_start": np.zeros(1 << 16, np.int64)}
-        self.out["out_count"] = np.zeros(1 << 16, np.int64)
+        out = first["out"][1]
+        self.out = {name: np.zeros(out * (4 if name == "out_items" else 1), np.int64) for name in _OUT}
 
     def run(
         self,
@@ -211,6 +224,7 @@ class _Growth:
             kernel.ROWS: "rows",
             kernel.FRAMES: "frames",
             kernel.FREQUENT: "frequent",
+            kernel.TABLE: "table",
         }
         if what in group:
             names = [name for name, g in _ARENAS if g == group[what]]

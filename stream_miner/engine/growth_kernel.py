@@ -27,7 +27,7 @@ DONE, PAUSED, GROW, TOO_MANY = 0, 1, 2, 3
 DEPTH, A_TOP, R_TOP, O_TOP, F_TOP, NEXT_TOP, N_OUT, I_TOP, NEED_WHAT, NEED_SIZE, FOUND = range(11)
 N_REGISTERS = 11
 # what a GROW status asks for (reg[NEED_WHAT]); reg[NEED_SIZE] is the size needed
-CODES, ROWS, FRAMES, FREQUENT, OUT, OUT_ITEMS = range(6)
+CODES, ROWS, FRAMES, FREQUENT, OUT, OUT_ITEMS, TABLE = range(7)
 # columns of a frame
 F_A_LO, F_R_LO, F_O_LO, F_F_LO, F_F_HI, F_NEXT, F_CODE, F_KIND, F_SIZE, F_ROOM, F_COUNT = range(11)
 FRAME_COLUMNS = 11
@@ -84,6 +84,46 @@ def _write_itemset(buf, n, extra, extra_n, out_items, at):
 
 
 @njit(cache=True, nogil=True)
+def _table_size(n_rows: int) -> int:
+    """Slots of the hash table for merging ``n_rows`` rows: a power of two, at least twice as many."""
+    size = 1
+    while size < 2 * n_rows:
+        size *= 2
+    return size
+
+
+@njit(cache=True, nogil=True)
+def _merge_rows(a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, table):
+    """Fold every row of ``r_lo..r_hi`` equal to an earlier one into it (weights and
+    multiplicities added; the later row's length set to -1), through a hash table."""
+    size = _table_size(r_hi - r_lo)
+    table[:size] = -1
+    for r in range(r_lo, r_hi):
+        begin, length = r_start[r], r_len[r]
+        h = length
+        for i in range(begin, begin + length):
+            h = h * 1000003 ^ a_codes[i]
+        slot = (h ^ (h >> 29)) & (size - 1)
+        while True:
+            q = table[slot]
+            if q < 0:
+                table[slot] = r
+                break
+            if r_len[q] == length:
+                same = True
+                for i in range(length):
+                    if a_codes[r_start[q] + i] != a_codes[begin + i]:
+                        same = False
+                        break
+                if same:
+                    r_weight[q] += r_weight[r]
+                    r_mult[q] += r_mult[r]
+                    r_len[r] = -1
+                    break
+            slot = (slot + 1) & (size - 1)
+
+
+@njit(cache=True, nogil=True)
 def grow(
     parent,
     node_count,
@@ -102,12 +142,14 @@ def grow(
     r_start,
     r_len,
     r_weight,
+    r_mult,
     o_row,
     o_pos,
     f_info,
     fc_code,
     fc_olo,
     fc_ohi,
+    table,
     counts,
     touched,
     local,
@@ -215,6 +257,7 @@ def grow(
                     j -= 1
                 row = r_top + k - lo
                 r_start[row], r_len[row], r_weight[row] = begin, a - begin, node_count[node]
+                r_mult[row] = 1
             r_hi, a_hi = r_top + (hi - lo), a
         else:
             fr = depth - 1
@@ -242,6 +285,7 @@ def grow(
                 for i in range(length):
                     a_codes[a + i] = a_codes[begin + i]
                 r_start[row], r_len[row], r_weight[row] = a, length, r_weight[src]
+                r_mult[row] = r_mult[src]
                 a += length
                 row += 1
             work += a - a_top + 1
@@ -255,7 +299,9 @@ def grow(
             status = NOTHING
         else:
             nt = 0
+            n_rows = 0  # the base's rows before any were merged
             for r in range(r_lo, r_hi):
+                n_rows += r_mult[r]
                 w = r_weight[r]
                 for i in range(r_start[r], r_start[r] + r_len[r]):
                     c = a_codes[i]
@@ -274,7 +320,7 @@ def grow(
                 else:
                     counts[touched[t]] = 0
             status = NOTHING
-            if nf > 0 and r_hi - r_lo == 1:
+            if nf > 0 and n_rows == 1:
                 room = nf if max_size == 0 else min(nf, max_size - new_depth)
                 more = _combinations(nf, room)
                 if cap >= 0 and emitted_before + n_out + more > cap:
@@ -312,6 +358,8 @@ def grow(
                     status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, FREQUENT, f_top + nf
                 elif deeper and new_depth > f_info.shape[0]:
                     status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, FRAMES, new_depth
+                elif deeper and _table_size(r_hi - r_lo) > table.size:
+                    status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, TABLE, _table_size(r_hi - r_lo)
                 else:
                     n_suffix = _suffix_items(f_info, new_depth, code, items_of_code, buf)
                     for t in range(nf):
@@ -333,16 +381,19 @@ def grow(
                                 c = a_codes[i]
                                 if counts[c] >= min_count:
                                     a_codes[a] = c
-                                    fc_ohi[f_top + local[c]] += 1
                                     a += 1
                             r_start[r], r_len[r] = begin, a - begin
+                        _merge_rows(a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, table)
+                        for r in range(r_lo, r_hi):
+                            for i in range(r_start[r], r_start[r] + max(r_len[r], 0)):
+                                fc_ohi[f_top + local[a_codes[i]]] += 1
                         at = o_top
                         for t in range(nf):
                             fc_olo[f_top + t] = at
                             at += fc_ohi[f_top + t]
                             fc_ohi[f_top + t] = fc_olo[f_top + t]
                         for r in range(r_lo, r_hi):
-                            for i in range(r_start[r], r_start[r] + r_len[r]):
+                            for i in range(r_start[r], r_start[r] + max(r_len[r], 0)):
                                 slot = f_top + local[a_codes[i]]
                                 o_row[fc_ohi[slot]], o_pos[fc_ohi[slot]] = r, i
                                 fc_ohi[slot] += 1
