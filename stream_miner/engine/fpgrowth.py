@@ -4,8 +4,11 @@ Han, Pei, Yin, "Mining Frequent Patterns without Candidate Generation", SIGMOD 2
 top-level conditional pattern base of each frequent item is read off the tree: for every
 node of the item (its node links in the header table, :func:`header_table`), the path of
 frequent ancestors up to the root, weighted by the node's count. Deeper bases are projected
-from their parent base. Bases are held as arrays (items of all rows, row starts, row weights) and projected
-with numpy, so the Python work per step is constant and the data work is vectorised.
+from their parent base. Bases are held as arrays (items of all rows, row starts, row weights).
+Small mines project them with numpy (:mod:`stream_miner.engine.growth_numpy`, no compiled
+code to load); once that has spent ``NUMPY_BUDGET`` steps, the compiled loop
+(:mod:`stream_miner.engine.growth_kernel`) grows the remaining top codes, with the same
+itemsets in the same order.
 
 Items are recoded by tree order (0 = nearest the root), so every row lists its items in
 increasing code order and the conditional base of code ``j`` inside a base is, for every
@@ -28,6 +31,7 @@ from types import ModuleType
 import numpy as np
 
 from stream_miner.engine.baskets import offsets
+from stream_miner.engine.growth_numpy import grow_in_numpy
 from stream_miner.engine.limits import stop_if_set, too_many_itemsets
 from stream_miner.engine.tree import ROOT, TreeArrays, header_table, most_flagged_on_a_path
 
@@ -87,8 +91,23 @@ def mine_tree(
     links = np.diff(header.start)[by_tree_order]
     bounds = offsets(links)
     nodes = header.nodes[np.repeat(header.start[by_tree_order] - bounds[:-1], links) + np.arange(bounds[-1])]
+    start = grow_in_numpy(
+        tree,
+        code_of,
+        nodes,
+        bounds,
+        by_tree_order,
+        out,
+        min_count=min_count,
+        max_size=max_size,
+        max_itemsets=max_itemsets,
+        interrupt=interrupt,
+        budget=0 if _Growth.loaded else NUMPY_BUDGET,
+    )
+    if start == by_tree_order.size:
+        return out
     grown = _Growth(tree, code_of, nodes, bounds, by_tree_order)
-    items, starts, counts = grown.run(min_count, max_size, max_itemsets, len(out), interrupt)
+    items, starts, counts = grown.run(min_count, max_size, max_itemsets, len(out), start, interrupt)
     flat = items.tolist()
     keys = map(tuple, map(flat.__getitem__, map(slice, starts[:-1], starts[1:])))
     out.update(zip(keys, counts, strict=True))
@@ -115,6 +134,10 @@ def sure_count(n_frequent: int, path_items: int, max_size: int | None) -> int:
     return n_frequent + sum(math.comb(path_items, size) for size in range(2, largest + 1))
 
 
+# steps of the numpy path (projections, or 64 itemsets of a single path; 40-90 us each) before the
+# compiled loop takes over: about what importing numba and loading the loop costs (0.75 s), so a
+# mine never takes more than about twice its best. Once the loop is loaded, it does every mine.
+NUMPY_BUDGET = 10_000
 _WORK_PER_STEP = 1 << 20  # codes handled by the compiled loop between two interrupt checks
 # the arrays the compiled loop works in, in its argument order, by the group it enlarges together
 _ARENAS = (
@@ -142,6 +165,8 @@ class _Growth:
     """One run of the compiled FP-growth loop (:mod:`stream_miner.engine.growth_kernel`)
     over the tree's conditional pattern bases, with the arrays it works in, enlarged when
     it asks."""
+
+    loaded = False  # the loop has run in this process: its start is paid
 
     def __init__(
         self, tree: TreeArrays, code_of: np.ndarray, nodes: np.ndarray, bounds: np.ndarray, items: np.ndarray
@@ -175,12 +200,15 @@ class _Growth:
         max_size: int | None,
         max_itemsets: int | None,
         emitted_before: int,
+        first_code: int,
         interrupt: threading.Event | None,
     ) -> tuple[np.ndarray, list[int], list[int]]:
-        """Every itemset of two or more items: their sorted item ids, end to end, where each
-        one starts (and the end), and their counts, in the order found."""
+        """Every itemset of two or more items whose largest code is ``first_code`` or more:
+        their sorted item ids, end to end, where each one starts (and the end), and their
+        counts, in the order found."""
         kernel = self.kernel
         reg = np.zeros(kernel.N_REGISTERS, dtype=np.int64)
+        reg[kernel.NEXT_TOP] = first_code
         cap = -1 if max_itemsets is None else max_itemsets
         while True:
             stop_if_set(interrupt)
@@ -209,6 +237,7 @@ class _Growth:
                 raise too_many_itemsets(found, max_itemsets)
             if status == kernel.GROW:
                 self._enlarge(int(reg[kernel.NEED_WHAT]), int(reg[kernel.NEED_SIZE]))
+        _Growth.loaded = True
         n = int(reg[kernel.N_OUT])
         return (
             self.out["out_items"][: reg[kernel.I_TOP]],
