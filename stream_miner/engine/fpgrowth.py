@@ -4,8 +4,11 @@ Han, Pei, Yin, "Mining Frequent Patterns without Candidate Generation", SIGMOD 2
 top-level conditional pattern base of each frequent item is read off the tree: for every
 node of the item (its node links in the header table, :func:`header_table`), the path of
 frequent ancestors up to the root, weighted by the node's count. Deeper bases are projected
-from their parent base. Bases are held as arrays (items of all rows, row starts, row weights) and projected
-with numpy, so the Python work per step is constant and the data work is vectorised.
+from their parent base. Bases are held as arrays (items of all rows, row starts, row weights).
+Small mines project them with numpy (:mod:`stream_miner.engine.growth_numpy`, no compiled
+code to load); once that has spent ``NUMPY_BUDGET`` steps, the compiled loop
+(:mod:`stream_miner.engine.growth_kernel`) grows the remaining top codes, with the same
+itemsets in the same order.
 
 Items are recoded by tree order (0 = nearest the root), so every row lists its items in
 increasing code order and the conditional base of code ``j`` inside a base is, for every
@@ -23,28 +26,16 @@ from __future__ import annotations
 
 import math
 import threading
-from dataclasses import dataclass
-from itertools import combinations
+from types import ModuleType
 
 import numpy as np
 
 from stream_miner.engine.baskets import offsets
+from stream_miner.engine.growth_numpy import grow_in_numpy
 from stream_miner.engine.limits import stop_if_set, too_many_itemsets
 from stream_miner.engine.tree import ROOT, TreeArrays, header_table, most_flagged_on_a_path
 
 Itemset = tuple[int, ...]
-
-_ROWS_PER_BLOCK = 1 << 20
-_EMITTED_PER_CHECK = 4096  # itemsets of one single path listed between two interrupt checks
-
-
-@dataclass
-class _Base:
-    """A conditional pattern base: row ``r`` is ``codes[start[r]:start[r + 1]]``, weight ``weight[r]``."""
-
-    codes: np.ndarray
-    start: np.ndarray
-    weight: np.ndarray
 
 
 def mine_tree(
@@ -92,26 +83,34 @@ def mine_tree(
     code_of[by_tree_order] = np.arange(by_tree_order.size)
 
     out: dict[Itemset, int] = {}
-    miner = _Grower(min_count, max_size, by_tree_order, out, max_itemsets, interrupt)
     for code in range(by_tree_order.size):
-        out[miner.itemset((code,))] = int(item_count[by_tree_order[code]])
+        out[(int(by_tree_order[code]),)] = int(item_count[by_tree_order[code]])
     if max_size == 1:
         return out
-    # the node links of the frequent items, in tree order: row block of code c = bounds[c:c+2]
+    # the node links of the frequent items, in tree order: nodes of code c = nodes[bounds[c]:bounds[c+1]]
     links = np.diff(header.start)[by_tree_order]
     bounds = offsets(links)
     nodes = header.nodes[np.repeat(header.start[by_tree_order] - bounds[:-1], links) + np.arange(bounds[-1])]
-    first = 0
-    while first < by_tree_order.size:
-        last = first + 1
-        while last < by_tree_order.size and bounds[last + 1] - bounds[first] <= _ROWS_PER_BLOCK:
-            last += 1
-        block = nodes[bounds[first] : bounds[last]]
-        base = _ancestor_base(tree, block, code_of, interrupt)
-        for code in range(first, last):
-            rows = np.arange(bounds[code], bounds[code + 1]) - bounds[first]
-            miner.grow((code,), _select_rows(base, rows))
-        first = last
+    start = grow_in_numpy(
+        tree,
+        code_of,
+        nodes,
+        bounds,
+        by_tree_order,
+        out,
+        min_count=min_count,
+        max_size=max_size,
+        max_itemsets=max_itemsets,
+        interrupt=interrupt,
+        budget=0 if _Growth.loaded else NUMPY_BUDGET,
+    )
+    if start == by_tree_order.size:
+        return out
+    grown = _Growth(tree, code_of, nodes, bounds, by_tree_order)
+    items, starts, counts = grown.run(min_count, max_size, max_itemsets, len(out), start, interrupt)
+    flat = items.tolist()
+    keys = map(tuple, map(flat.__getitem__, map(slice, starts[:-1], starts[1:])))
+    out.update(zip(keys, counts, strict=True))
     return out
 
 
@@ -135,127 +134,135 @@ def sure_count(n_frequent: int, path_items: int, max_size: int | None) -> int:
     return n_frequent + sum(math.comb(path_items, size) for size in range(2, largest + 1))
 
 
-def _ancestor_base(
-    tree: TreeArrays, nodes: np.ndarray, code_of: np.ndarray, interrupt: threading.Event | None
-) -> _Base:
-    """One row per node: the codes of its frequent ancestors, root first; weight = node count."""
-    depth_rows: list[np.ndarray] = []
-    depth_codes: list[np.ndarray] = []
-    rows = np.arange(nodes.size)
-    current = tree.parent[nodes].astype(np.int64)
-    while rows.size:
-        stop_if_set(interrupt)
-        keep = current != ROOT
-        rows, current = rows[keep], current[keep]
-        codes = code_of[tree.item[current]]
-        hit = codes >= 0
-        depth_rows.append(rows[hit])
-        depth_codes.append(codes[hit])
-        current = tree.parent[current].astype(np.int64)
-    start = offsets(np.bincount(np.concatenate(depth_rows), minlength=nodes.size))
-    codes_out = np.empty(int(start[-1]), dtype=np.int64)
-    filled = np.zeros(nodes.size, dtype=np.int64)
-    for rows_k, codes_k in zip(depth_rows, depth_codes, strict=False):
-        # climbing visits codes from the leaf end; fill each row from its end backwards
-        codes_out[start[rows_k + 1] - 1 - filled[rows_k]] = codes_k
-        filled[rows_k] += 1
-    return _Base(codes=codes_out, start=start, weight=tree.count[nodes].astype(np.int64))
+# steps of the numpy path (projections, or 64 itemsets of a single path; 40-90 us each) before the
+# compiled loop takes over: about what importing numba and loading the loop costs (0.75 s), so a
+# mine never takes more than about twice its best. Once the loop is loaded, it does every mine.
+NUMPY_BUDGET = 10_000
+_WORK_PER_STEP = 1 << 20  # codes handled by the compiled loop between two interrupt checks
+# the arrays the compiled loop works in, in its argument order, by the group it enlarges together
+_ARENAS = (
+    ("a_codes", "codes"),
+    ("r_start", "rows"),
+    ("r_len", "rows"),
+    ("r_weight", "rows"),
+    ("r_mult", "rows"),
+    ("o_row", "codes"),
+    ("o_pos", "codes"),
+    ("f_info", "frames"),
+    ("fc_code", "frequent"),
+    ("fc_olo", "frequent"),
+    ("fc_ohi", "frequent"),
+    ("table", "table"),
+)
 
 
-def _select_rows(base: _Base, rows: np.ndarray) -> _Base:
-    """The sub-base made of the given (consecutive) rows."""
-    lo, hi = base.start[rows[0]], base.start[rows[-1] + 1]
-    return _Base(
-        codes=base.codes[lo:hi],
-        start=base.start[rows[0] : rows[-1] + 2] - lo,
-        weight=base.weight[rows],
-    )
+_OUT = ("out_items", "out_start", "out_count")
+# first size of each group of arrays: per tree node (per frequent item for "frequent"), plus a constant
+_FIRST_SIZES = {"codes": (4, 1024), "rows": (2, 1024), "frequent": (4, 64), "out": (0, 1 << 16)}
 
 
-class _Grower:
-    """Depth-first FP-growth over array-held conditional pattern bases."""
+class _Growth:
+    """One run of the compiled FP-growth loop (:mod:`stream_miner.engine.growth_kernel`)
+    over the tree's conditional pattern bases, with the arrays it works in, enlarged when
+    it asks."""
+
+    loaded = False  # the loop has run in this process: its start is paid
 
     def __init__(
+        self, tree: TreeArrays, code_of: np.ndarray, nodes: np.ndarray, bounds: np.ndarray, items: np.ndarray
+    ) -> None:
+        from stream_miner.engine import growth_kernel  # deferred: numba is slow to import
+
+        self.kernel: ModuleType = growth_kernel
+        n_codes = items.size
+        whole = lambda a: np.ascontiguousarray(a, dtype=np.int64)  # noqa: E731  one compiled signature
+        self.tree = (whole(tree.parent), whole(tree.count), whole(tree.item), whole(code_of))
+        self.links = (whole(nodes), whole(bounds), whole(items))
+        first = _FIRST_SIZES
+        sizes = {
+            group: per * (nodes.size if group != "frequent" else n_codes) + fixed
+            for group, (per, fixed) in first.items()
+            if group != "out"
+        }
+        sizes["table"] = 2 * sizes["rows"]
+        frames = (n_codes + 1, growth_kernel.FRAME_COLUMNS)
+        self.arenas = {
+            name: np.zeros(frames if group == "frames" else sizes[group], dtype=np.int64)
+            for name, group in _ARENAS
+        }
+        self.scratch = tuple(np.zeros(n_codes + 2, dtype=np.int64) for _ in range(5))
+        out = first["out"][1]
+        self.out = {name: np.zeros(out * (4 if name == "out_items" else 1), np.int64) for name in _OUT}
+
+    def run(
         self,
         min_count: int,
         max_size: int | None,
-        items: np.ndarray,
-        out: dict[Itemset, int],
         max_itemsets: int | None,
+        emitted_before: int,
+        first_code: int,
         interrupt: threading.Event | None,
-    ) -> None:
-        self.min_count = min_count
-        self.max_size = max_size
-        self.items = items.tolist()
-        self.out = out
-        self.max_itemsets = max_itemsets
-        self.interrupt = interrupt
+    ) -> tuple[np.ndarray, list[int], list[int]]:
+        """Every itemset of two or more items whose largest code is ``first_code`` or more:
+        their sorted item ids, end to end, where each one starts (and the end), and their
+        counts, in the order found."""
+        kernel = self.kernel
+        reg = np.zeros(kernel.N_REGISTERS, dtype=np.int64)
+        reg[kernel.NEXT_TOP] = first_code
+        cap = -1 if max_itemsets is None else max_itemsets
+        while True:
+            stop_if_set(interrupt)
+            status = kernel.grow(
+                *self.tree,
+                *self.links,
+                min_count,
+                max_size or 0,
+                cap,
+                emitted_before,
+                _WORK_PER_STEP,
+                reg,
+                *self.arenas.values(),
+                *self.scratch,
+                *self.out.values(),
+            )
+            if status == kernel.DONE:
+                break
+            if status == kernel.TOO_MANY:
+                assert max_itemsets is not None
+                found = int(reg[kernel.FOUND])
+                if found < 0:  # a single path too long to count in 64 bits
+                    n, room = int(reg[kernel.NEED_WHAT]), int(reg[kernel.NEED_SIZE])
+                    more = sum(math.comb(n, size) for size in range(1, room + 1))
+                    found = emitted_before + int(reg[kernel.N_OUT]) + more
+                raise too_many_itemsets(found, max_itemsets)
+            if status == kernel.GROW:
+                self._enlarge(int(reg[kernel.NEED_WHAT]), int(reg[kernel.NEED_SIZE]))
+        _Growth.loaded = True
+        n = int(reg[kernel.N_OUT])
+        return (
+            self.out["out_items"][: reg[kernel.I_TOP]],
+            self.out["out_start"][: n + 1].tolist(),
+            self.out["out_count"][:n].tolist(),
+        )
 
-    def itemset(self, codes: tuple[int, ...]) -> Itemset:
-        items = self.items
-        return tuple(sorted(items[c] for c in codes))
-
-    def grow(self, suffix: tuple[int, ...], base: _Base) -> None:
-        """Emit every frequent extension of ``suffix`` found in ``base`` and recurse."""
-        stack = [(suffix, base)]
-        while stack:
-            stop_if_set(self.interrupt)
-            suffix, base = stack.pop()
-            self._expand(suffix, base, stack)
-
-    def _expand(self, suffix: tuple[int, ...], base: _Base, stack: list) -> None:
-        codes, start, weight = base.codes, base.start, base.weight
-        if codes.size == 0:
-            return
-        lengths = np.diff(start)
-        row_of = np.repeat(np.arange(weight.size), lengths)
-        counts = np.bincount(codes, weights=weight[row_of])
-        frequent = counts >= self.min_count
-        freq_codes = np.flatnonzero(frequent)
-        if freq_codes.size == 0:
-            return
-        deeper = self.max_size is None or len(suffix) + 1 < self.max_size
-        if weight.size == 1:
-            self._emit_single_path(suffix, freq_codes.tolist(), int(weight[0]))
-            return
-        self._check_room(freq_codes.size)
-        for code in freq_codes.tolist():
-            self.out[self.itemset(suffix + (code,))] = int(counts[code])
-        if not deeper:
-            return
-        keep = frequent[codes]
-        codes, row_of = codes[keep], row_of[keep]
-        start = offsets(np.bincount(row_of, minlength=weight.size))
-        order = np.argsort(codes, kind="stable")
-        bounds = np.searchsorted(codes[order], freq_codes)
-        ends = np.append(bounds[1:], codes.size)
-        for code, lo, hi in zip(freq_codes.tolist(), bounds.tolist(), ends.tolist(), strict=False):
-            positions = order[lo:hi]
-            rows = row_of[positions]
-            row_start = start[rows]
-            prefix = positions - row_start
-            nonempty = prefix > 0
-            if not nonempty.any():
-                continue
-            rows, row_start, prefix = rows[nonempty], row_start[nonempty], prefix[nonempty]
-            new_start = offsets(prefix)
-            gather = np.repeat(row_start - new_start[:-1], prefix) + np.arange(new_start[-1])
-            stack.append((suffix + (code,), _Base(codes=codes[gather], start=new_start, weight=weight[rows])))
-
-    def _emit_single_path(self, suffix: tuple[int, ...], path: list[int], count: int) -> None:
-        """A base of one row: every combination of its frequent items has the row's count.
-        How many that is is known before any is listed."""
-        room = len(path) if self.max_size is None else min(len(path), self.max_size - len(suffix))
-        self._check_room(sum(math.comb(len(path), size) for size in range(1, room + 1)))
-        listed = 0
-        for size in range(1, room + 1):
-            for combo in combinations(path, size):
-                self.out[self.itemset(suffix + combo)] = count
-                listed += 1
-                if listed % _EMITTED_PER_CHECK == 0:
-                    stop_if_set(self.interrupt)
-
-    def _check_room(self, more: int) -> None:
-        """Raise ``ResultTooLarge`` when ``more`` new itemsets would exceed the cap."""
-        if self.max_itemsets is not None and len(self.out) + more > self.max_itemsets:
-            raise too_many_itemsets(len(self.out) + more, self.max_itemsets)
+    def _enlarge(self, what: int, need: int) -> None:
+        """Make the arrays of group ``what`` (a kernel constant) hold at least ``need``."""
+        kernel = self.kernel
+        group = {
+            kernel.CODES: "codes",
+            kernel.ROWS: "rows",
+            kernel.FRAMES: "frames",
+            kernel.FREQUENT: "frequent",
+            kernel.TABLE: "table",
+        }
+        if what in group:
+            names = [name for name, g in _ARENAS if g == group[what]]
+            arrays = self.arenas
+        else:
+            names = ["out_items"] if what == kernel.OUT_ITEMS else ["out_start", "out_count"]
+            arrays = self.out
+        for name in names:
+            old = arrays[name]
+            new = np.zeros((max(need, 2 * len(old)), *old.shape[1:]), dtype=old.dtype)
+            new[: len(old)] = old
+            arrays[name] = new

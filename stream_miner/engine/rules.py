@@ -15,15 +15,14 @@ import threading
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from fractions import Fraction
-from itertools import combinations
 from typing import cast
 
 from stream_miner.engine.arguments import Exact, bounded_fraction, item_names, optional_whole_number
-from stream_miner.engine.limits import DEFAULT_MAX_RULES_TOTAL, stop_if_set, too_many_rules
+from stream_miner.engine.limits import DEFAULT_MAX_RULES_TOTAL
+from stream_miner.engine.rule_splits import SplitFilter, passing_splits
 
 Names = tuple[str, ...]
 RANK_MEASURES = ("confidence", "lift", "leverage", "conviction", "support", "count")
-SPLITS_PER_CHECK = 4096  # antecedent/consequent splits looked at between two interrupt checks
 
 
 @dataclass(frozen=True)
@@ -117,41 +116,24 @@ def generate_rules(
 
     ``itemsets`` (sorted tuples of item names) must be downward closed (every subset of a
     member is a member), as mining output is. Raises ``ResultTooLarge`` past the filter's
-    ``max_total`` and ``MiningInterrupted`` once ``interrupt`` is set.
-    Cost: O(sum over itemsets of 2^size).
+    ``max_total`` and ``MiningInterrupted`` once ``interrupt`` is set. Splits are checked with
+    numpy (:mod:`stream_miner.engine.rule_splits`); only the rules that pass are built.
+    Cost: O(sum over itemsets of 2^size) array work.
     """
     f = rule_filter
-    left, right = cast(frozenset | None, f.antecedent_items), cast(frozenset | None, f.consequent_items)
-    confidence, lift = cast(Fraction, f.min_confidence), cast(Fraction | None, f.min_lift)
-    conf_num, conf_den = confidence.numerator, confidence.denominator
-    rules: list[Rule] = []
-    splits = 0
-    for itemset, count in itemsets.items():
-        size = len(itemset)
-        if size < 2:
-            continue
-        largest = size - 1 if f.max_antecedent is None else min(size - 1, f.max_antecedent)
-        for k in range(1, largest + 1):
-            if f.max_consequent is not None and size - k > f.max_consequent:
-                continue
-            for antecedent in combinations(itemset, k):
-                splits += 1
-                if splits % SPLITS_PER_CHECK == 0:
-                    stop_if_set(interrupt)
-                if left is not None and not left.issuperset(antecedent):
-                    continue
-                consequent = tuple(i for i in itemset if i not in antecedent)
-                if right is not None and not right.issuperset(consequent):
-                    continue
-                n_a = itemsets[antecedent]
-                if count * conf_den < conf_num * n_a:
-                    continue
-                n_c = itemsets[consequent]
-                if lift is not None and count * n_baskets * lift.denominator < lift.numerator * n_a * n_c:
-                    continue
-                rules.append(Rule(antecedent, consequent, count, n_a, n_c, n_baskets))
-                if f.max_total is not None and len(rules) > f.max_total:
-                    raise too_many_rules(len(rules), f.max_total)
+    splits = SplitFilter(
+        min_confidence=cast(Fraction, f.min_confidence),
+        min_lift=cast(Fraction | None, f.min_lift),
+        max_antecedent=f.max_antecedent,
+        max_consequent=f.max_consequent,
+        antecedent_items=cast(frozenset | None, f.antecedent_items),
+        consequent_items=cast(frozenset | None, f.consequent_items),
+        max_total=f.max_total,
+    )
+    rules = [
+        Rule(antecedent, consequent, count, n_a, n_c, n_baskets)
+        for antecedent, consequent, count, n_a, n_c in passing_splits(itemsets, n_baskets, splits, interrupt)
+    ]
     if f.max_rules is not None and len(rules) > f.max_rules:
         rules = best_rules(rules, f.max_rules, f.rank_by)
     return rules

@@ -1,0 +1,238 @@
+"""The antecedent/consequent splits of frequent itemsets that pass a rule filter, found with
+numpy over the itemsets as arrays: only the splits that pass become Python objects.
+
+Items are numbered in name order, so an itemset (a sorted tuple of names) is a sorted row of
+ids. The itemsets of each size form a level; an itemset's key is the rank of its prefix (all
+but the last item) in the level below, times the number of items, plus its last item, so the
+count of any subset is found by one binary search per item (the itemsets must be downward
+closed). Splits are handled a block at a time, either one split pattern (which positions go
+to the antecedent) over every itemset of a size, or every pattern over one itemset when the
+patterns outnumber the itemsets. Thresholds are compared exactly, in integers (Python
+integers where int64 could overflow).
+"""
+
+from __future__ import annotations
+
+import threading
+from collections.abc import Callable, Iterator, Mapping
+from dataclasses import dataclass
+from fractions import Fraction
+from functools import lru_cache
+from itertools import combinations
+from operator import itemgetter
+
+import numpy as np
+
+from stream_miner.engine.limits import stop_if_set, too_many_rules
+
+Names = tuple[str, ...]
+_FITS = 1 << 62  # products below this are compared in int64
+
+
+@dataclass(frozen=True)
+class SplitFilter:
+    """The thresholds of a rule filter, ready to check splits with."""
+
+    min_confidence: Fraction
+    min_lift: Fraction | None
+    max_antecedent: int | None
+    max_consequent: int | None
+    antecedent_items: frozenset[str] | None
+    consequent_items: frozenset[str] | None
+    max_total: int | None
+
+
+def passing_splits(
+    itemsets: Mapping[Names, int],
+    n_baskets: int,
+    f: SplitFilter,
+    interrupt: threading.Event | None,
+) -> Iterator[tuple[Names, Names, int, int, int]]:
+    """(antecedent, consequent, count, antecedent count, consequent count) of every passing
+    split, in the order of the itemsets, then antecedent size, then antecedent positions
+    (lexicographic). Raises ``ResultTooLarge`` past ``f.max_total`` before listing any."""
+    keys = list(itemsets)
+    names = sorted({name for key in keys if len(key) == 1 for name in key})
+    id_of = {name: i for i, name in enumerate(names)}
+    levels = _Levels(keys, list(itemsets.values()), id_of, len(names))
+    left = _mask(f.antecedent_items, id_of, len(names))
+    right = _mask(f.consequent_items, id_of, len(names))
+    found: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
+    total = 0
+    for ante, cons, count, at, pattern in _blocks(levels, f):
+        stop_if_set(interrupt)
+        kept = _passes(ante, cons, count, n_baskets, levels, left, right, f)
+        if kept is None:
+            continue
+        chosen, n_a, n_c = kept
+        total += int(chosen.size)
+        if f.max_total is not None and total > f.max_total:
+            raise too_many_rules(total, f.max_total)
+        found.append((at[chosen], pattern[chosen], n_a, n_c))
+    if not found:
+        return
+    at = np.concatenate([b[0] for b in found])
+    pattern = np.concatenate([b[1] for b in found])
+    n_a = np.concatenate([b[2] for b in found]).tolist()
+    n_c = np.concatenate([b[3] for b in found]).tolist()
+    order = np.lexsort((pattern, at)).tolist()
+    at_list, pattern_list = at.tolist(), pattern.tolist()
+    getters: dict[tuple[int, int], tuple[Callable, Callable]] = {}
+    for i in order:
+        itemset = keys[at_list[i]]
+        size = len(itemset)
+        got = getters.get((size, pattern_list[i]))
+        if got is None:
+            a, c = _pattern(size, f, pattern_list[i])
+            got = getters[(size, pattern_list[i])] = (_getter(a), _getter(c))
+        yield got[0](itemset), got[1](itemset), itemsets[itemset], n_a[i], n_c[i]
+
+
+def _getter(positions: tuple[int, ...]) -> Callable[[Names], Names]:
+    """A getter of the tuple of the items at ``positions``."""
+    if len(positions) == 1:
+        return lambda itemset: (itemset[positions[0]],)
+    return itemgetter(*positions)
+
+
+class _Levels:
+    """The itemsets by size: rows of item ids, counts, input indexes, and sorted keys."""
+
+    def __init__(self, keys: list[Names], counts: list[int], id_of: dict[str, int], n_items: int) -> None:
+        self.n_items = n_items
+        by_size: dict[int, list[int]] = {}
+        for i, key in enumerate(keys):
+            by_size.setdefault(len(key), []).append(i)
+        self.largest = max(by_size, default=0)
+        all_counts = np.array(counts, dtype=np.int64)
+        self.rows: dict[int, np.ndarray] = {}
+        self.counts: dict[int, np.ndarray] = {}
+        self.index: dict[int, np.ndarray] = {}
+        self.sorted_keys: dict[int, np.ndarray] = {}
+        self.sorted_counts: dict[int, np.ndarray] = {}
+        for size in range(1, self.largest + 1):
+            where = np.array(by_size.get(size, []), dtype=np.int64)
+            flat = [id_of[name] for i in where.tolist() for name in keys[i]]
+            rows = np.array(flat, dtype=np.int64).reshape(len(where), size)
+            self.rows[size], self.counts[size], self.index[size] = rows, all_counts[where], where
+            level_keys = self._key(rows)
+            order = np.argsort(level_keys, kind="stable")
+            self.sorted_keys[size], self.sorted_counts[size] = level_keys[order], self.counts[size][order]
+
+    def _key(self, rows: np.ndarray) -> np.ndarray:
+        key = rows[:, 0].copy()
+        for j in range(1, rows.shape[1]):
+            rank = np.searchsorted(self.sorted_keys[j], key) if j > 1 else key
+            key = rank * self.n_items + rows[:, j]
+        return key
+
+    def count_of(self, rows: np.ndarray) -> np.ndarray:
+        """The counts of the itemsets (rows of sorted item ids, all of one size)."""
+        size = rows.shape[1]
+        return self.sorted_counts[size][np.searchsorted(self.sorted_keys[size], self._key(rows))]
+
+
+def _mask(items: frozenset[str] | None, id_of: dict[str, int], n_items: int) -> np.ndarray | None:
+    if items is None:
+        return None
+    mask = np.zeros(n_items, dtype=bool)
+    mask[[id_of[name] for name in items if name in id_of]] = True
+    return mask
+
+
+def _patterns(size: int, f: SplitFilter) -> list[tuple[int, np.ndarray, np.ndarray]]:
+    """The split patterns of an itemset of ``size`` by antecedent size: (index of the first,
+    antecedent positions, consequent positions), one row per pattern, lexicographically."""
+    return _patterns_of(size, f.max_antecedent, f.max_consequent)
+
+
+@lru_cache(maxsize=64)
+def _patterns_of(
+    size: int, max_antecedent: int | None, max_consequent: int | None
+) -> list[tuple[int, np.ndarray, np.ndarray]]:
+    largest = size - 1 if max_antecedent is None else min(size - 1, max_antecedent)
+    out = []
+    first = 0
+    for k in range(1, largest + 1):
+        if max_consequent is not None and size - k > max_consequent:
+            continue
+        ante = np.array(list(combinations(range(size), k)), dtype=np.int64).reshape(-1, k)
+        cons = np.array(
+            [[p for p in range(size) if p not in row] for row in ante.tolist()], dtype=np.int64
+        ).reshape(len(ante), size - k)
+        out.append((first, ante, cons))
+        first += len(ante)
+    return out
+
+
+def _pattern(size: int, f: SplitFilter, index: int) -> tuple[tuple[int, ...], tuple[int, ...]]:
+    """The antecedent and consequent positions of pattern ``index`` of an itemset of ``size``."""
+    for first, ante, cons in _patterns(size, f):
+        if index < first + len(ante):
+            return tuple(ante[index - first].tolist()), tuple(cons[index - first].tolist())
+    raise IndexError(index)
+
+
+Block = tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]
+
+
+def _blocks(levels: _Levels, f: SplitFilter) -> Iterator[Block]:
+    """Splits a block at a time: (antecedents, consequents, itemset counts, itemset indexes,
+    pattern indexes), one row per split, every antecedent of a block of one size."""
+    for size in range(2, levels.largest + 1):
+        rows, counts, where = levels.rows[size], levels.counts[size], levels.index[size]
+        patterns = _patterns(size, f)
+        n_patterns = sum(len(ante) for _, ante, _ in patterns)
+        if n_patterns <= len(where):  # one pattern over every itemset of this size
+            for first, ante, cons in patterns:
+                for p in range(len(ante)):
+                    yield rows[:, ante[p]], rows[:, cons[p]], counts, where, np.full(len(where), first + p)
+        else:  # every pattern over one itemset
+            for r in range(len(where)):
+                for first, ante, cons in patterns:
+                    n = len(ante)
+                    yield (
+                        rows[r][ante],
+                        rows[r][cons],
+                        np.full(n, counts[r]),
+                        np.full(n, where[r]),
+                        first + np.arange(n),
+                    )
+
+
+def _passes(
+    ante: np.ndarray,
+    cons: np.ndarray,
+    count: np.ndarray,
+    n_baskets: int,
+    levels: _Levels,
+    left: np.ndarray | None,
+    right: np.ndarray | None,
+    f: SplitFilter,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """The rows of a block that pass, with their antecedent and consequent counts."""
+    chosen = np.arange(len(count))
+    if left is not None:
+        chosen = chosen[left[ante].all(axis=1)]
+    if right is not None:
+        chosen = chosen[right[cons[chosen]].all(axis=1)]
+    if chosen.size == 0:
+        return None
+    n_a = levels.count_of(ante[chosen])
+    conf = f.min_confidence
+    big = n_baskets * max(conf.numerator, conf.denominator) >= _FITS
+    c, a = (x.astype(object) if big else x for x in (count[chosen], n_a))
+    ok = c * conf.denominator >= conf.numerator * a
+    chosen, n_a = chosen[ok], n_a[ok]
+    if chosen.size == 0:
+        return None
+    n_c = levels.count_of(cons[chosen])
+    lift = f.min_lift
+    if lift is not None:
+        big = n_baskets * n_baskets * max(lift.numerator, lift.denominator) >= _FITS
+        c, a, b = (x.astype(object) if big else x for x in (count[chosen], n_a, n_c))
+        ok = c * n_baskets * lift.denominator >= lift.numerator * a * b
+        chosen, n_a, n_c = chosen[ok], n_a[ok], n_c[ok]
+        if chosen.size == 0:
+            return None
+    return chosen, n_a, n_c

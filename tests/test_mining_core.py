@@ -1,0 +1,118 @@
+"""The mining core: the numpy path, the compiled FP-growth loop and a hand-over between them
+find the same itemsets in the same order; the loop is exact whatever sizes its arrays start at
+(every enlargement path taken), with the guards of ``mine_tree`` (size limit, allowed items,
+itemset cap)."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from brute_force import frequent_itemsets
+from stream_miner.engine import fpgrowth
+from stream_miner.engine.fpgrowth import mine_tree
+from stream_miner.engine.limits import ResultTooLarge
+from stream_miner.engine.tree import PrefixTree, frequency_rank
+
+# many copies of few items: deep projections, merged rows and single paths
+baskets_st = st.lists(
+    st.lists(st.integers(0, 11), min_size=1, max_size=9, unique=True), min_size=1, max_size=40
+)
+TINY = {"codes": (0, 1), "rows": (0, 1), "frequent": (0, 1), "out": (0, 1)}
+NUMPY_ONLY, KERNEL_ONLY, HAND_OVER = 10**12, 0, 3  # work budgets of the numpy path
+
+
+@contextmanager
+def numpy_budget(budget: int) -> Iterator[None]:
+    """Mine with this budget of the numpy path, as in a process where the loop never ran."""
+    saved = fpgrowth.NUMPY_BUDGET, fpgrowth._Growth.loaded
+    fpgrowth.NUMPY_BUDGET, fpgrowth._Growth.loaded = budget, False
+    try:
+        yield
+    finally:
+        fpgrowth.NUMPY_BUDGET, fpgrowth._Growth.loaded = saved
+
+
+def mine_with(budget: int, *args, **kwargs) -> dict:
+    with numpy_budget(budget):
+        return mine_tree(*args, **kwargs)
+
+
+def tree_of(baskets: list[list[int]]) -> PrefixTree:
+    counts = np.bincount([i for b in baskets for i in b], minlength=12)
+    return PrefixTree.build(baskets, frequency_rank(counts))
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    baskets_st,
+    st.integers(1, 5),
+    st.one_of(st.none(), st.integers(1, 4)),
+    st.one_of(st.none(), st.lists(st.booleans(), min_size=12, max_size=12)),
+)
+def test_the_compiled_mine_is_exact_from_the_smallest_arrays(baskets, min_count, max_size, allowed):
+    tree = tree_of(baskets).arrays()
+    mask = None if allowed is None else np.array(allowed)
+    roomy = mine_with(KERNEL_ONLY, tree, min_count, max_size=max_size, allowed=mask)
+    saved = fpgrowth._FIRST_SIZES
+    fpgrowth._FIRST_SIZES = TINY
+    try:
+        tiny = mine_with(KERNEL_ONLY, tree, min_count, max_size=max_size, allowed=mask)
+    finally:
+        fpgrowth._FIRST_SIZES = saved
+    kept = baskets if mask is None else [[i for i in b if allowed[i]] for b in baskets]
+    assert roomy == frequent_itemsets([b for b in kept if b], min_count, max_size)
+    assert list(tiny.items()) == list(roomy.items())  # same itemsets, counts and order
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    baskets_st,
+    st.integers(1, 5),
+    st.one_of(st.none(), st.integers(1, 4)),
+    st.one_of(st.none(), st.lists(st.booleans(), min_size=12, max_size=12)),
+)
+def test_numpy_path_and_hand_over_match_the_loop_in_order(baskets, min_count, max_size, allowed):
+    tree = tree_of(baskets).arrays()
+    mask = None if allowed is None else np.array(allowed)
+    found = [
+        list(mine_with(budget, tree, min_count, max_size=max_size, allowed=mask).items())
+        for budget in (NUMPY_ONLY, KERNEL_ONLY, HAND_OVER)
+    ]
+    kept = baskets if mask is None else [[i for i in b if allowed[i]] for b in baskets]
+    assert dict(found[0]) == frequent_itemsets([b for b in kept if b], min_count, max_size)
+    assert found[1] == found[0]
+    assert found[2] == found[0]
+
+
+@settings(max_examples=80, deadline=None)
+@given(
+    baskets_st,
+    st.integers(1, 3),
+    st.integers(1, 60),
+    st.sampled_from([NUMPY_ONLY, KERNEL_ONLY, HAND_OVER]),
+)
+def test_the_itemset_cap_holds_exactly(baskets, min_count, cap, budget):
+    expected = frequent_itemsets(baskets, min_count)
+    tree = tree_of(baskets).arrays()
+    if len(expected) > cap:
+        with pytest.raises(ResultTooLarge) as info:
+            mine_with(budget, tree, min_count, max_itemsets=cap)
+        assert cap < info.value.found <= len(expected)
+    else:
+        assert mine_with(budget, tree, min_count, max_itemsets=cap) == expected
+
+
+def test_mining_the_bundled_example_does_not_import_numba() -> None:
+    command = [sys.executable, "-X", "importtime", "-m", "stream_miner", "mine", "--json", "--rules"]
+    done = subprocess.run(command, capture_output=True, text=True, check=True)
+    imported = [line.rsplit("|", 1)[-1].strip() for line in done.stderr.splitlines()]
+    assert "stream_miner.engine.fpgrowth" in imported and '"type": "rule"' in done.stdout
+    assert not [name for name in imported if name.split(".")[0] == "numba"]

@@ -1,0 +1,99 @@
+"""Rules from splits checked with numpy: the same rules, counts and order as a plain loop over
+every split, whichever way a size's splits are blocked, with exact thresholds (also past int64)."""
+
+from __future__ import annotations
+
+import threading
+from fractions import Fraction
+from itertools import combinations
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from brute_force import frequent_itemsets
+from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
+from stream_miner.engine.rules import RuleFilter, generate_rules
+
+NAMES = ["apricot", "bap", "chard", "damson", "endive", "fennel", "gherkin", "hummus", "icing"]
+baskets_st = st.lists(
+    st.lists(st.sampled_from(NAMES), min_size=1, max_size=8, unique=True), min_size=1, max_size=30
+)
+fractions_st = st.one_of(
+    st.fractions(0, 1, max_denominator=20),
+    st.just(Fraction(1, 3) + Fraction(1, 10**30)),
+    st.just(Fraction(0)),
+)
+lifts_st = st.one_of(st.none(), st.fractions(0, 3, max_denominator=20), st.just(Fraction(10**25 + 1, 10**25)))
+sides_st = st.one_of(st.none(), st.sets(st.sampled_from(NAMES), min_size=1))
+
+
+def plain_rules(itemsets: dict, n: int, f: RuleFilter) -> list[tuple]:
+    """Every split of every itemset, in order, checked with Fractions."""
+    out = []
+    for itemset, count in itemsets.items():
+        for k in range(1, len(itemset)):
+            if (f.max_antecedent is not None and k > f.max_antecedent) or (
+                f.max_consequent is not None and len(itemset) - k > f.max_consequent
+            ):
+                continue
+            for ante in combinations(itemset, k):
+                cons = tuple(i for i in itemset if i not in ante)
+                if f.antecedent_items is not None and not set(ante) <= set(f.antecedent_items):
+                    continue
+                if f.consequent_items is not None and not set(cons) <= set(f.consequent_items):
+                    continue
+                n_a, n_c = itemsets[ante], itemsets[cons]
+                if Fraction(count, n_a) < f.min_confidence:
+                    continue
+                if f.min_lift is not None and Fraction(count * n, n_a * n_c) < f.min_lift:
+                    continue
+                out.append((ante, cons, count, n_a, n_c))
+    return out
+
+
+def named_itemsets(baskets: list[list[str]], min_count: int) -> dict:
+    found = frequent_itemsets(baskets, min_count)
+    return {key: found[key] for key in sorted(found, key=lambda k: (len(k), k[::-1]))}  # any order
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    baskets_st,
+    st.integers(1, 4),
+    fractions_st,
+    lifts_st,
+    st.one_of(st.none(), st.integers(1, 3)),
+    st.one_of(st.none(), st.integers(1, 3)),
+    sides_st,
+    sides_st,
+)
+def test_rules_match_a_plain_loop_in_order(baskets, min_count, confidence, lift, max_a, max_c, left, right):
+    itemsets = named_itemsets(baskets, min_count)
+    f = RuleFilter(
+        min_confidence=confidence,
+        min_lift=lift,
+        max_antecedent=max_a,
+        max_consequent=max_c,
+        antecedent_items=left,
+        consequent_items=right,
+        max_total=None,
+    )
+    found = [
+        (r.antecedent, r.consequent, r.count, r.antecedent_count, r.consequent_count)
+        for r in generate_rules(itemsets, len(baskets), f)
+    ]
+    assert found == plain_rules(itemsets, len(baskets), f)
+
+
+def test_past_the_cap_and_when_interrupted() -> None:
+    baskets = [NAMES[:6]] * 3 + [NAMES[2:8]] * 2
+    itemsets = named_itemsets(baskets, 2)
+    every = len(plain_rules(itemsets, len(baskets), RuleFilter()))
+    assert len(generate_rules(itemsets, len(baskets), RuleFilter(max_total=every))) == every
+    with pytest.raises(ResultTooLarge):
+        generate_rules(itemsets, len(baskets), RuleFilter(max_total=every - 1))
+    stop = threading.Event()
+    stop.set()
+    with pytest.raises(MiningInterrupted):
+        generate_rules(itemsets, len(baskets), RuleFilter(), interrupt=stop)
