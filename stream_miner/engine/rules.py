@@ -19,7 +19,6 @@ from typing import cast
 
 from stream_miner.engine.arguments import Exact, bounded_fraction, item_names, optional_whole_number
 from stream_miner.engine.limits import DEFAULT_MAX_RULES_TOTAL
-from stream_miner.engine.rule_splits import SplitFilter, passing_splits
 
 Names = tuple[str, ...]
 RANK_MEASURES = ("confidence", "lift", "leverage", "conviction", "support", "count")
@@ -121,6 +120,8 @@ def generate_rules(
     Cost: O(sum over itemsets of 2^size) array work.
     """
     f = rule_filter
+    from stream_miner.engine.rule_splits import SplitFilter, passing_splits  # numpy: only to make rules
+
     splits = SplitFilter(
         min_confidence=cast(Fraction, f.min_confidence),
         min_lift=cast(Fraction | None, f.min_lift),
