@@ -45,18 +45,22 @@ def mine_with(budget: int, *args, **kwargs) -> dict:
         return mine_tree(*args, **kwargs)
 
 
+# baskets, min_count, max_size, allowed items
+MINE_CASES = (
+    baskets_st,
+    st.integers(1, 5),
+    st.one_of(st.none(), st.integers(1, 4)),
+    st.one_of(st.none(), st.lists(st.booleans(), min_size=12, max_size=12)),
+)
+
+
 def tree_of(baskets: list[list[int]]) -> PrefixTree:
     counts = np.bincount([i for b in baskets for i in b], minlength=12)
     return PrefixTree.build(baskets, frequency_rank(counts))
 
 
 @settings(max_examples=150, deadline=None)
-@given(
-    baskets_st,
-    st.integers(1, 5),
-    st.one_of(st.none(), st.integers(1, 4)),
-    st.one_of(st.none(), st.lists(st.booleans(), min_size=12, max_size=12)),
-)
+@given(*MINE_CASES)
 def test_the_compiled_mine_is_exact_from_the_smallest_arrays(baskets, min_count, max_size, allowed):
     tree = tree_of(baskets).arrays()
     mask = None if allowed is None else np.array(allowed)
@@ -73,12 +77,7 @@ def test_the_compiled_mine_is_exact_from_the_smallest_arrays(baskets, min_count,
 
 
 @settings(max_examples=150, deadline=None)
-@given(
-    baskets_st,
-    st.integers(1, 5),
-    st.one_of(st.none(), st.integers(1, 4)),
-    st.one_of(st.none(), st.lists(st.booleans(), min_size=12, max_size=12)),
-)
+@given(*MINE_CASES)
 def test_numpy_path_and_hand_over_match_the_loop_in_order(baskets, min_count, max_size, allowed):
     tree = tree_of(baskets).arrays()
     mask = None if allowed is None else np.array(allowed)
