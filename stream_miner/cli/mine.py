@@ -70,19 +70,6 @@ def add_mine_parser(commands: argparse._SubParsersAction) -> None:
     window.add_argument(
         "--every", type=positive_int, action=DeprecatedAlias, new="--tick-every", dest="tick_every"
     )
-    forced = window.add_mutually_exclusive_group()
-    forced.add_argument(
-        "--full-remine",
-        action="store_true",
-        help="with --tick-every: mine the whole window at every tick instead of choosing per "
-        "tick by measured cost (same output; for comparison)",
-    )
-    forced.add_argument(
-        "--always-track",
-        action="store_true",
-        help="with --tick-every: update the tracked itemsets and their border at every tick, "
-        "never mining in full (same output; for comparison)",
-    )
     window.add_argument(
         "--tick-timings",
         action="store_true",

@@ -125,6 +125,19 @@ def add_window_options(parser: argparse.ArgumentParser, *, wall_clock: bool) -> 
     tick.add_argument("--tick-every", type=positive_int, metavar="N", help="refresh after every N baskets")
     if wall_clock:
         tick.add_argument("--tick-interval", type=duration, metavar="DURATION", help="refresh every DURATION")
+    forced = window.add_mutually_exclusive_group()
+    forced.add_argument(
+        "--full-remine",
+        action="store_true",
+        help="mine the whole window at every tick instead of choosing per tick by measured cost "
+        "(same output; for comparison)",
+    )
+    forced.add_argument(
+        "--always-track",
+        action="store_true",
+        help="update the tracked itemsets and their border at every tick, never mining in full "
+        "(same output; for comparison)",
+    )
     return window
 
 
@@ -219,8 +232,12 @@ def window_of(args: argparse.Namespace) -> CountWindow | TimeWindow | None:
 
 def run_settings(args: argparse.Namespace, **more: Any) -> RunSettings:
     """The loop settings the shared options ask for; ``more`` adds a command's own."""
+    from stream_miner.engine.refresh import Refresh
     from stream_miner.runtime.runner import RunSettings
 
+    if "refresh" not in more:
+        forced = Refresh.FULL if args.full_remine else Refresh.TRACKED if args.always_track else None
+        more["refresh"] = forced or Refresh.ADAPTIVE
     return RunSettings(
         window=window_of(args),
         params=mining_params(args, drift=more.get("drift") is not None),

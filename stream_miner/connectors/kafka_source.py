@@ -16,9 +16,9 @@
   fetch and commit calls (kafka-python 3.x internals, pinned in pyproject) instead of the
   blocking consumer methods.
 - Mining is kept off the poll path: while a tick runs on the loop's worker thread,
-  :meth:`KafkaSource.while_busy` keeps polling, so a slow tick never exceeds
-  ``max_poll_interval_ms``. Up to ``READ_AHEAD`` records are read and decoded meanwhile and
-  kept for the next :meth:`poll`; then every partition is paused until the tick ends.
+  :meth:`KafkaSource.while_busy` keeps polling with every partition paused, so a slow tick
+  never exceeds ``max_poll_interval_ms``; records of partitions assigned meanwhile are kept
+  for the next :meth:`poll`.
 - Broker errors while reading (the broker stopped, killed or restarting) are retried with a
   growing pause and one line per attempt; the stream resumes by itself when the broker is
   back. Commits end within ``COMMIT_TIMEOUT`` (a failed one is retried at the next
@@ -82,7 +82,6 @@ CLOSE_TIMEOUT = 10.0  # seconds the consumer may take to leave its group (less o
 READ_RETRY_MAX = 5.0  # seconds: polls are retried more often, so a stream resumes soon after its broker
 COORDINATOR_GRACE = 3.0  # seconds of polls without a group coordinator before reading counts as failed
 DETAIL = 160  # characters of a client error's text shown in a line
-READ_AHEAD = 20_000  # records read (and decoded) while a tick runs, at most
 # answers that mean the broker did not record a commit
 REFUSALS = (
     CommitFailedError,
@@ -441,20 +440,15 @@ class KafkaSource(AsyncConsumerRebalanceListener):
                 f"auto_offset_reset is {self._reset_to!r}; use earliest or latest"
             )
 
-    def while_busy(self, busy: Callable[..., bool]) -> None:
+    def while_busy(self, busy: Callable[[], bool]) -> None:
         """Keep the group membership alive while ``busy()`` (a tick on a worker thread) says
-        so, by polling: the records read meanwhile are kept for the next :meth:`poll`. Once
-        ``READ_AHEAD`` are kept, every partition is paused until the tick ends."""
-        paused: set[TopicPartition] = set()
-        reading = True  # records came with the last poll: poll again at once
+        so, by polling with every partition paused; records of partitions assigned meanwhile
+        are kept for the next :meth:`poll`."""
+        paused = set(self._consumer.assignment())
+        self._consumer.pause(*paused)
         try:
-            while busy(0 if reading else None):
-                if not paused and len(self._backlog) >= READ_AHEAD:
-                    paused = set(self._consumer.assignment())
-                    self._consumer.pause(*paused)
-                records = self._records(self._fetch(timeout_ms=0))
-                self._backlog += records
-                reading = bool(records) and not paused
+            while busy():
+                self._backlog += self._records(self._fetch(timeout_ms=100))
         finally:
             self._consumer.resume(*(paused & set(self._consumer.assignment())))
 

@@ -76,10 +76,9 @@ class Source(Protocol):
         """True once a finite source has nothing more."""
         ...
 
-    def while_busy(self, busy: Callable[..., bool]) -> None:
-        """Return once ``busy()`` (which waits a little for a tick on a worker thread, or
-        ``busy(seconds)`` that long) says False; a source that must keep talking to a broker
-        meanwhile does so between calls."""
+    def while_busy(self, busy: Callable[[], bool]) -> None:
+        """Return once ``busy()`` (which waits a little for a tick on a worker thread) says
+        False; a source that must keep talking to a broker meanwhile does so between calls."""
 
     def position(self) -> str | None:
         """Where reading stands, for a person (share of a file read, lag behind a topic)."""

@@ -387,8 +387,8 @@ class Runner:
         worker.start()
         stopped_at: list[float] = []
 
-        def busy(wait: float | None = None) -> bool:
-            worker.join(BUSY_WAIT if wait is None else wait)
+        def busy() -> bool:
+            worker.join(BUSY_WAIT)
             if self.stopping and worker.is_alive():
                 stopped_at[:] = stopped_at or [time.monotonic()]
                 if time.monotonic() - stopped_at[0] >= ABANDON_AFTER:
