@@ -20,6 +20,7 @@ from stream_miner.cli.options import (
     add_window_options,
     file_layout,
     positive_int,
+    refresh_mode,
     run_settings,
 )
 from stream_miner.cli.paths import check_output_file
@@ -95,10 +96,7 @@ def run_mine(args: argparse.Namespace) -> int:
     if args.dead_letter_out is not None:
         check_output_file(args.dead_letter_out, "--dead-letter-out")
     # without --tick-every there is one result: a full mine, no tracking
-    if args.full_remine or args.tick_every is None:
-        refresh = Refresh.FULL
-    else:
-        refresh = Refresh.TRACKED if args.always_track else Refresh.ADAPTIVE
+    refresh = Refresh.FULL if args.tick_every is None else refresh_mode(args)
     settings = run_settings(args, refresh=refresh)
     timings = TickTimings()
     listeners: list[TickListener] = [

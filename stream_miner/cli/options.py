@@ -18,6 +18,7 @@ from stream_miner.engine.params import MiningParams
 from stream_miner.engine.rules import RANK_MEASURES, RuleFilter
 
 if TYPE_CHECKING:  # numpy and the run loop load only when a command mines, not for --help
+    from stream_miner.engine.refresh import Refresh
     from stream_miner.engine.window import CountWindow, TimeWindow
     from stream_miner.runtime.runner import RunSettings
 
@@ -230,14 +231,20 @@ def window_of(args: argparse.Namespace) -> CountWindow | TimeWindow | None:
     return None
 
 
+def refresh_mode(args: argparse.Namespace) -> Refresh:
+    """How ticks refresh their result: forced by --full-remine or --always-track, else adaptive."""
+    from stream_miner.engine.refresh import Refresh
+
+    if args.full_remine:
+        return Refresh.FULL
+    return Refresh.TRACKED if args.always_track else Refresh.ADAPTIVE
+
+
 def run_settings(args: argparse.Namespace, **more: Any) -> RunSettings:
     """The loop settings the shared options ask for; ``more`` adds a command's own."""
-    from stream_miner.engine.refresh import Refresh
     from stream_miner.runtime.runner import RunSettings
 
-    if "refresh" not in more:
-        forced = Refresh.FULL if args.full_remine else Refresh.TRACKED if args.always_track else None
-        more["refresh"] = forced or Refresh.ADAPTIVE
+    more.setdefault("refresh", refresh_mode(args))
     return RunSettings(
         window=window_of(args),
         params=mining_params(args, drift=more.get("drift") is not None),
