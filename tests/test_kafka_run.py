@@ -199,6 +199,25 @@ def test_two_consumers_in_one_group_lose_and_double_count_nothing(broker, spawn,
 
 
 @pytest.mark.slow
+def test_a_member_killed_before_its_first_tick_starts_again_after_others_committed(broker, spawn, tmp_path):
+    """A run that starts with an empty window checkpoints it at once: killed before its first
+    tick, it starts again with the same command although the group has committed meanwhile
+    (else it would refuse, as for a lost checkpoint, and a service manager would loop)."""
+    broker.create_topic("early", 2)
+    early, other = tmp_path / "early", tmp_path / "other"
+    settings = ["--window-size", "5000", "--tick-interval", "0.2s"]
+    no_tick = ["--window-size", "5000", "--tick-every", "999"]
+    victim = start_run(spawn, broker, "early", "g-early", early, *no_tick)
+    victim.kill()  # no tick yet: before the change, no checkpoint either
+    run = start_run(spawn, broker, "early", "g-early", other, *settings)
+    broker.produce("early", checkouts(100, seed=8, prefix="e"), partition_of=lambda n: n % 2)
+    wait_until(lambda: consumed(other) == 100, what="100 baskets consumed by the other member", child=run)
+    run.stop()  # its last checkpoint and commit: the group has offsets committed
+    again = start_run(spawn, broker, "early", "g-early", early, *settings)
+    assert f"resumed from {early / 'ck'} at tick 0, 0 baskets consumed" in again.stop()
+
+
+@pytest.mark.slow
 def test_a_broker_paused_for_15_seconds_loses_nothing(broker, spawn, tmp_path):
     broker.create_topic("paused", 2)
     baskets = checkouts(1000, seed=5, prefix="p")

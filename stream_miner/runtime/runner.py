@@ -608,6 +608,7 @@ class Runner:
 
             for name in (COMMIT_NOTE, EVENTS_NOTE):
                 (directory / name).unlink(missing_ok=True)
+            self._save()  # the old window is gone now, also for a restart without the option
             return
         from stream_miner.runtime.checkpoint import CheckpointError, load_checkpoint  # only with checkpoints
 
@@ -622,6 +623,7 @@ class Runner:
                     "pass --start-fresh to start with an empty window"
                 )
             print(f"stream-miner: no checkpoint in {directory}: starting with an empty window", file=self.log)
+            self._save()  # a member stopped before its first tick's checkpoint starts again as it began
             return
         self.miner, metadata = restored
 
