@@ -124,3 +124,25 @@ def test_full_remine_ticks_give_the_same_results_and_deltas():
             a, b = fast.tick(params, refresh=Refresh.TRACKED), full.tick(params, refresh=Refresh.FULL)
             assert a.result.itemsets == b.result.itemsets
             assert a.delta == b.delta
+
+
+def test_a_last_tick_never_starts_the_tracking_but_keeps_a_running_tracker():
+    """At a run's stop (``last``) a start of the tracking cannot pay off: the adaptive tick
+    mines in full instead, with the same result; a tracker already running serves it."""
+    stream = [["a", "b"], ["a", "c"], ["b", "c", "d"], ["a", "b", "d"], ["c"], ["a", "b"]] * 5
+    params = MiningParams(min_count=3, rules=RuleFilter())
+    miners = [WindowMiner(CountWindow(10), batch_size=3) for _ in range(3)]
+    for miner in miners:
+        for basket in stream:
+            miner.add(basket)
+        miner.tick(params)  # a full mine measured: the chooser knows what a start costs
+        miner._chooser.credit = math.inf  # the next adaptive tick would start the tracking
+    stopping, going_on, tracking = miners
+    tracking.tick(params, refresh=Refresh.TRACKED)
+    last = stopping.tick(params, last=True)
+    assert stopping._tracker is None
+    assert going_on.tick(params).result.itemsets == last.result.itemsets
+    assert going_on._tracker is not None
+    tracking._chooser.credit = 0.0
+    assert tracking.tick(params, last=True).result.itemsets == last.result.itemsets
+    assert tracking._tracker is not None

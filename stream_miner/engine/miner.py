@@ -432,6 +432,7 @@ class WindowMiner:
         refresh: Refresh = Refresh.ADAPTIVE,
         interrupt: threading.Event | None = None,
         defer: bool = False,
+        last: bool = False,
     ) -> Tick:
         """The current result and what changed since the previous tick.
 
@@ -440,7 +441,8 @@ class WindowMiner:
         :mod:`stream_miner.engine.incremental.tracker`; a tick whose item lists or size limit
         differ from the previous one starts the tracking from the window), ``FULL`` mines
         the whole window, ``ADAPTIVE`` picks per tick from measured costs (see
-        :mod:`stream_miner.engine.refresh`). Raises like :meth:`mine`; a tick that raised
+        :mod:`stream_miner.engine.refresh`) and never starts the tracking at a ``last`` tick
+        (a run's stop), where the start would not pay off. Raises like :meth:`mine`; a tick that raised
         counts for nothing (the next tick has its number and its delta is against the last
         tick that returned).
         """
@@ -450,7 +452,7 @@ class WindowMiner:
         min_count = params.threshold(n)
         tracking = self._tracker is not None
         if refresh == Refresh.ADAPTIVE:
-            tracking = self._chooser.track(tracking, n)
+            tracking = self._chooser.track(tracking, n) and (tracking or not last)
         elif refresh == Refresh.TRACKED:
             tracking = True
         found = None

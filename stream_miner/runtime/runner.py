@@ -411,7 +411,11 @@ class Runner:
             self.miner.flush()
         applied = time.perf_counter()
         tick = self.miner.tick(
-            self.settings.params, refresh=self.settings.refresh, interrupt=self.interrupt, defer=True
+            self.settings.params,
+            refresh=self.settings.refresh,
+            interrupt=self.interrupt,
+            defer=True,
+            last=self.stopping,
         )  # counted by _detect, under the lock with the detector's step: a checkpoint sees both or neither
         done = time.perf_counter()
         window = self.settings.window
