@@ -37,7 +37,7 @@ from pathlib import Path
 import fim
 
 from simulations.bench_engine import CACHE_DIR, environment, load_baskets, log
-from simulations.heavy_tailed import heavy_tailed_baskets
+from simulations.real_like import grocery_like_baskets, supermarket_like_baskets
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
 from stream_miner.engine.window import CountWindow
@@ -58,6 +58,7 @@ MODE_SETS = {  # data, baskets, window, tick every, support
     "sparse_grocery_like": ("grocery", 9_835, 3_000, 200, "0.01"),
     "dense_supermarket": ("dense", 4_627, 2_000, 200, "0.15"),
 }
+REAL_LIKE = {"grocery": grocery_like_baskets, "supermarket": supermarket_like_baskets}
 MODES = {"default": [], "full_remine": ["--full-remine"], "always_track": ["--always-track"]}
 
 
@@ -132,7 +133,8 @@ def warm_up() -> float:
 
 
 def mode_file(data: str, n: int, seed: int, dense: str) -> str | None:
-    """A FIMI file of the named set (None: the dense file is missing)."""
+    """A FIMI file of the named set (None: the dense file is missing); "dense" is the real
+    supermarket file, "grocery" and "supermarket" their generated stand-ins."""
     if data == "dense":
         from simulations.drift_on_real_data import read_arff
 
@@ -140,9 +142,8 @@ def mode_file(data: str, n: int, seed: int, dense: str) -> str | None:
         if not source.exists():
             return None
         baskets = [[name.replace(" ", "_") for name in b] for b in read_arff(source)]
-    elif data == "grocery":
-        ids = heavy_tailed_baskets(n, n_items=169, avg_size=4.4, zipf_exponent=1.0, n_patterns=30, seed=seed)
-        baskets = [[str(i) for i in b] for b in ids]
+    elif data in REAL_LIKE:
+        baskets = [[str(i) for i in b] for b in REAL_LIKE[data](n, seed=seed)]
     else:
         baskets = [[str(i) for i in b] for b in load_baskets(data, n, seed=seed)]
     path = CACHE_DIR / f"modes-{data}-n{n}-seed{seed}.dat"
@@ -152,8 +153,7 @@ def mode_file(data: str, n: int, seed: int, dense: str) -> str | None:
 
 
 def compare_modes(repeats: int, seed: int, dense: str) -> dict:
-    """Whole-process seconds of ``mine --tick-every`` per mode (medians of interleaved runs),
-    with identical output checked, and the default over the better forced mode."""
+    """Whole-process seconds of ``mine --tick-every`` per mode on every set of MODE_SETS."""
     out: dict = {}
     for name, (data, n, window, every, support) in MODE_SETS.items():
         path = mode_file(data, n, seed, dense)
@@ -161,28 +161,34 @@ def compare_modes(repeats: int, seed: int, dense: str) -> dict:
             log(f"{name}: {dense} not found, skipped")
             continue
         log(f"modes on {name}")
-        command = [sys.executable, "-m", "stream_miner", "mine", path, "--format", "fimi", "--json"]
-        command += ["--window-size", str(window), "--tick-every", str(every), "--min-support", support]
-        seconds: dict[str, list[float]] = {mode: [] for mode in MODES}
-        outputs = set()
-        for _ in range(repeats):
-            for mode, flags in MODES.items():
-                started = time.perf_counter()
-                done = subprocess.run(command + flags, capture_output=True, check=True)
-                seconds[mode].append(time.perf_counter() - started)
-                outputs.add(hash(done.stdout))
-        if len(outputs) != 1:
-            raise AssertionError(f"{name}: the modes printed different results")
-        medians = {mode: round(statistics.median(times), 3) for mode, times in seconds.items()}
-        best = min(medians["full_remine"], medians["always_track"])
-        out[name] = {
-            "window": window,
-            "tick_every": every,
-            "min_support": support,
-            "whole_process_s": medians,
-            "default_over_better_forced": round(medians["default"] / best, 2),
-        }
+        out[name] = time_modes(path, window, every, support, repeats)
     return out
+
+
+def time_modes(path: str, window: int, every: int, support: str, repeats: int) -> dict:
+    """Whole-process seconds of ``mine --tick-every`` on a FIMI file per mode (medians of
+    interleaved runs), with identical output checked, and the default over the better forced mode."""
+    command = [sys.executable, "-m", "stream_miner", "mine", path, "--format", "fimi", "--json"]
+    command += ["--window-size", str(window), "--tick-every", str(every), "--min-support", support]
+    seconds: dict[str, list[float]] = {mode: [] for mode in MODES}
+    outputs = set()
+    for _ in range(repeats):
+        for mode, flags in MODES.items():
+            started = time.perf_counter()
+            done = subprocess.run(command + flags, capture_output=True, check=True)
+            seconds[mode].append(time.perf_counter() - started)
+            outputs.add(hash(done.stdout))
+    if len(outputs) != 1:
+        raise AssertionError(f"{path}: the modes printed different results")
+    medians = {mode: round(statistics.median(times), 3) for mode, times in seconds.items()}
+    best = min(medians["full_remine"], medians["always_track"])
+    return {
+        "window": window,
+        "tick_every": every,
+        "min_support": support,
+        "whole_process_s": medians,
+        "default_over_better_forced": round(medians["default"] / best, 2),
+    }
 
 
 def main(argv: Sequence[str] | None = None) -> int:

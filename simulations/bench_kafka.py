@@ -120,6 +120,40 @@ def run_rate(
     return n / (finished - started), sustained, headers
 
 
+def measure(
+    n: int, window: int, processes: int = 1, repeats: int = 1, compare_tree: str | None = None
+) -> tuple[dict[str, float], list[dict]]:
+    """Start the broker, load ``n`` Quest baskets and take ``repeats`` rounds of every rate in
+    turn; the median rates (messages per second) and the last run's snapshot headers."""
+    baskets = load_baskets("quest", n, seed=7)
+    broker = start_broker()
+    rates: dict[str, list[float]] = {}
+    trees = {"run": None} | ({"other_run": compare_tree} if compare_tree else {})
+    try:
+        broker.create_topic("bench", processes)
+        log(f"producing {n} messages")
+        broker.produce(
+            "bench",
+            ({"id": f"b{i}", "items": [str(x) for x in b]} for i, b in enumerate(baskets)),
+            partition_of=lambda i: i % processes,
+        )
+        for round_ in range(repeats):
+            log(f"round {round_ + 1}: kafka-python alone (json, orjson)")
+            rates.setdefault("raw_json", []).append(raw_rate(broker.address, "bench", n))
+            rates.setdefault("raw_orjson", []).append(raw_rate(broker.address, "bench", n, orjson.loads))
+            for name, tree in trees.items():
+                log(f"round {round_ + 1}: stream-miner {name} ({tree or 'this installation'})")
+                with tempfile.TemporaryDirectory() as workdir:
+                    whole, sustained, headers = run_rate(
+                        broker.address, "bench", n, window, Path(workdir), processes, tree
+                    )
+                rates.setdefault(name, []).append(whole)
+                rates.setdefault(f"{name}_sustained", []).append(sustained)
+    finally:
+        stop_broker(broker)
+    return {name: statistics.median(values) for name, values in rates.items()}, headers
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m simulations.bench_kafka", description=__doc__)
     parser.add_argument("--baskets", type=int, default=200_000)
@@ -133,41 +167,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--repeats", type=int, default=1, help="rounds of every measurement, taken in turn")
     parser.add_argument("--compare-tree", help="also run stream-miner from this source tree (PYTHONPATH)")
     args = parser.parse_args(argv)
-    baskets = load_baskets("quest", args.baskets, seed=7)
-    broker = start_broker()
-    rates: dict[str, list[float]] = {}
-    trees = {"run": None} | ({"other_run": args.compare_tree} if args.compare_tree else {})
-    try:
-        broker.create_topic("bench", args.processes)
-        log(f"producing {args.baskets} messages")
-        broker.produce(
-            "bench",
-            ({"id": f"b{i}", "items": [str(x) for x in b]} for i, b in enumerate(baskets)),
-            partition_of=lambda i: i % args.processes,
-        )
-        for round_ in range(args.repeats):
-            log(f"round {round_ + 1}: kafka-python alone (json, orjson)")
-            rates.setdefault("raw_json", []).append(raw_rate(broker.address, "bench", args.baskets))
-            rates.setdefault("raw_orjson", []).append(
-                raw_rate(broker.address, "bench", args.baskets, orjson.loads)
-            )
-            for name, tree in trees.items():
-                log(f"round {round_ + 1}: stream-miner {name} ({tree or 'this installation'})")
-                with tempfile.TemporaryDirectory() as workdir:
-                    whole, sustained, headers = run_rate(
-                        broker.address,
-                        "bench",
-                        args.baskets,
-                        args.window,
-                        Path(workdir),
-                        args.processes,
-                        tree,
-                    )
-                rates.setdefault(name, []).append(whole)
-                rates.setdefault(f"{name}_sustained", []).append(sustained)
-    finally:
-        stop_broker(broker)
-    median = {name: statistics.median(values) for name, values in rates.items()}
+    median, headers = measure(args.baskets, args.window, args.processes, args.repeats, args.compare_tree)
     report: dict[str, object] = {
         "environment": environment(),
         "baskets": args.baskets,

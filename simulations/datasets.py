@@ -12,11 +12,14 @@ import time
 from collections.abc import Callable, Sequence
 
 from simulations.heavy_tailed import heavy_tailed_baskets
+from simulations.real_like import grocery_like_baskets, supermarket_like_baskets
 from stream_miner.simulate.quest import quest_baskets
 
 _GENERATORS: dict[str, Callable[..., list[list[int]]]] = {
     "quest": quest_baskets,
     "heavy": heavy_tailed_baskets,
+    "grocery": grocery_like_baskets,
+    "supermarket": supermarket_like_baskets,
 }
 
 
