@@ -57,7 +57,7 @@ from kafka.errors import (
     UnknownMemberIdError,
 )
 
-from stream_miner.connectors.kafka_join_fix import keep_finished_joins, stop_joins
+from stream_miner.connectors.kafka_join_fix import keep_finished_joins, leave_after_join
 from stream_miner.connectors.kafka_log_check import Accept, LogWatch, look, problems, refusal, restart_offsets
 from stream_miner.decoding.files import InputError
 from stream_miner.decoding.messages import MessageFormat, decode_message
@@ -535,7 +535,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
                 f"({self._consumer.commit_failure}); the checkpoint holds them",
                 file=self._log,
             )
-        stop_joins(self._consumer)
+        leave_after_join(self._consumer, self._stop.budget(CLOSE_TIMEOUT))
         try:
             self._consumer.close(autocommit=False, timeout_ms=int(self._stop.budget(CLOSE_TIMEOUT) * 1000))
         except KafkaError as error:
