@@ -57,7 +57,7 @@ from kafka.errors import (
     UnknownMemberIdError,
 )
 
-from stream_miner.connectors.kafka_join_fix import keep_finished_joins, leave_after_join
+from stream_miner.connectors.kafka_join_fix import depart, keep_finished_joins
 from stream_miner.connectors.kafka_log_check import Accept, LogWatch, look, problems, refusal, restart_offsets
 from stream_miner.decoding.files import InputError
 from stream_miner.decoding.messages import MessageFormat, decode_message
@@ -525,9 +525,11 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         return {TopicPartition(self.topic, p): OffsetAndMetadata(o, "", -1) for p, o in positions.items()}
 
     def close(self) -> None:
-        """Leave the group within what is left of the stop bound. The loop's last checkpoint
-        and commit are done, so the rebalance listener hands nothing over on close; a line
-        says when the last commit failed."""
+        """Close the consumer within what is left of the stop bound, without a LeaveGroup
+        (:func:`~stream_miner.connectors.kafka_join_fix.depart`: the group drops this member
+        after its session timeout). The loop's last checkpoint and commit are done, so the
+        rebalance listener hands nothing over on close; a line says when the last commit
+        failed."""
         self.handover = None
         if self._consumer.commit_failure is not None:
             print(
@@ -535,7 +537,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
                 f"({self._consumer.commit_failure}); the checkpoint holds them",
                 file=self._log,
             )
-        leave_after_join(self._consumer, self._stop.budget(CLOSE_TIMEOUT))
+        depart(self._consumer, self._stop.budget(CLOSE_TIMEOUT))
         try:
             self._consumer.close(autocommit=False, timeout_ms=int(self._stop.budget(CLOSE_TIMEOUT) * 1000))
         except KafkaError as error:
