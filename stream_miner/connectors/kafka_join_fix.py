@@ -13,19 +13,21 @@ rebalancing (a JoinGroup of this member in flight, or another member's JoinGroup
 one joined again), went on to name the member that left as the next generation's leader and
 kept answering JoinGroups with that gone leader: the others went round JoinGroup, SyncGroup
 (refused), JoinGroup for 50-300 s (kafka-python also sent SyncGroup after its LeaveGroup).
-A stopped member therefore sends no LeaveGroup (:func:`depart`): it lets a join round in
-flight end, within a time limit, and the group drops it after ``session_timeout_ms``, as a
-crashed member. Stream processors commonly close without leaving, so that a restart within
-the session timeout costs one rebalance rather than two.
+So a stopped member (:func:`depart`) first lets a join round in flight end, then asks with
+one heartbeat whether the group is steady: if so it leaves at once (the others take its
+partitions over without waiting); if the group is rebalancing it closes without a
+LeaveGroup and that rebalance drops it, as it drops a crashed member.
 """
 
 from __future__ import annotations
 
 import threading
+import time
 import types
 from typing import Any
 
 from kafka import KafkaConsumer
+from kafka.errors import KafkaError
 from kafka.structs import MemberState
 
 
@@ -54,15 +56,30 @@ def keep_finished_joins(consumer: KafkaConsumer) -> None:
 
 
 def depart(consumer: KafkaConsumer, timeout: float) -> None:
-    """Let a JoinGroup/SyncGroup round of ``consumer`` still in flight end (up to ``timeout``
-    seconds), then make ``consumer.close()`` leave without a LeaveGroup (see the module's
-    docstring); a JoinGroup answered later ends without a SyncGroup. Call it just before
-    ``close()``."""
+    """Let a JoinGroup/SyncGroup round of ``consumer`` still in flight end, then keep the
+    LeaveGroup of ``consumer.close()`` only if one heartbeat finds the group steady (see the
+    module's docstring), all within ``timeout`` seconds. Call it just before ``close()``."""
+    deadline = time.monotonic() + timeout
     coordinator = consumer._coordinator
     task = coordinator._join_task
     if task is not None and not task.is_done:
         ended = threading.Event()
         task.add_both(lambda _: ended.set())
         ended.wait(timeout)
-    with coordinator._lock:
-        coordinator.state = MemberState.UNJOINED  # close() leaves only a joined group
+    joined = coordinator.state is MemberState.STABLE or (task is not None and task.succeeded())
+    if not (joined and _steady(coordinator, max(0.0, deadline - time.monotonic()))):
+        with coordinator._lock:
+            coordinator.state = MemberState.UNJOINED  # close() leaves only a joined group
+
+
+def _steady(coordinator: Any, timeout: float) -> bool:
+    """True when a heartbeat sent now is answered without error within ``timeout`` seconds
+    (no rebalance under way, this member's generation current)."""
+    if coordinator.coordinator_unknown():
+        return False
+    beat = coordinator._manager.call_soon(coordinator._send_heartbeat_request)
+    try:
+        coordinator._net.run(coordinator._manager.wait_for, beat, int(timeout * 1000))
+    except KafkaError:
+        return False
+    return True

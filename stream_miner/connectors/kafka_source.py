@@ -356,6 +356,10 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             except RetriableError as error:  # the broker went away again meanwhile
                 if self._stop.wait(check.failed(describe(error))):
                     return positions
+            except CommitFailedError:  # the restart offsets' commit, refused by a group with members
+                problem = "the group has members: one stopped counts until its session times out"
+                if self._stop.wait(check.failed(problem)):
+                    return positions
         self._watch.read = dict(resume)
         return resume
 
@@ -525,11 +529,11 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         return {TopicPartition(self.topic, p): OffsetAndMetadata(o, "", -1) for p, o in positions.items()}
 
     def close(self) -> None:
-        """Close the consumer within what is left of the stop bound, without a LeaveGroup
-        (:func:`~stream_miner.connectors.kafka_join_fix.depart`: the group drops this member
-        after its session timeout). The loop's last checkpoint and commit are done, so the
-        rebalance listener hands nothing over on close; a line says when the last commit
-        failed."""
+        """Leave the group within what is left of the stop bound: with a LeaveGroup when the
+        group is steady, else by closing and letting the rebalance under way drop this member
+        (:func:`~stream_miner.connectors.kafka_join_fix.depart`). The loop's last checkpoint
+        and commit are done, so the rebalance listener hands nothing over on close; a line
+        says when the last commit failed."""
         self.handover = None
         if self._consumer.commit_failure is not None:
             print(
