@@ -442,19 +442,19 @@ class WindowMiner:
         differ from the previous one starts the tracking from the window), ``FULL`` mines
         the whole window, ``ADAPTIVE`` picks per tick from measured costs (see
         :mod:`stream_miner.engine.refresh`) and never starts the tracking at a ``last`` tick
-        (a run's stop), where the start would not pay off. Raises like :meth:`mine`; a tick that raised
-        counts for nothing (the next tick has its number and its delta is against the last
-        tick that returned).
+        (a run's stop), where the start would not pay off. Raises like :meth:`mine`; a tick
+        that raised counts for nothing (the next tick has its number and its delta is against
+        the last tick that returned).
         """
         self.flush()
         names = self.vocabulary.names()
         n = len(self.store)
         min_count = params.threshold(n)
-        tracking = self._tracker is not None
         if refresh == Refresh.ADAPTIVE:
-            tracking = self._chooser.track(tracking, n) and (tracking or not last)
-        elif refresh == Refresh.TRACKED:
-            tracking = True
+            running = self._tracker is not None
+            tracking = self._chooser.track(running, n) and (running or not last)
+        else:
+            tracking = refresh == Refresh.TRACKED
         found = None
         started = time.perf_counter()
         if tracking:
