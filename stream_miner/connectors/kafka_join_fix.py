@@ -1,12 +1,13 @@
-"""Workarounds for a group-join fault of kafka-python 3.0 (pinned in pyproject) and one of
-the test broker.
+"""Workarounds for a group-join fault of kafka-python 3.0 (held to 3.x in pyproject: this
+module uses its coordinator's internals) and one of the test broker.
 
-**A lost join.** ``join_group_async`` keeps an in-flight JoinGroup/SyncGroup task across polls: a poll that
-times out returns and the next poll awaits the same task. But when the task finishes between
-two polls (the loop was busy with records or a tick), the next poll sees a finished task and
-starts a new JoinGroup, throwing the assignment away. With a broker that holds JoinGroup for
-seconds, a busy member can go round that loop for a minute without partitions. The fix
-finishes such a join with the task's result, exactly as the library's own success path does.
+**A lost join.** ``join_group_async`` keeps an in-flight JoinGroup/SyncGroup task across
+polls: a poll that times out returns and the next poll awaits the same task. But when the
+task finishes between two polls (the loop was busy with records or a tick), the next poll
+sees a finished task and starts a new JoinGroup, throwing the assignment away. With a broker
+that holds JoinGroup for seconds, a busy member can go round that loop for a minute without
+partitions. The fix finishes such a join with the task's result, exactly as the library's
+own success path does.
 
 **A LeaveGroup during a rebalance.** The test broker, given a LeaveGroup while the group was
 rebalancing (a JoinGroup of this member in flight, or another member's JoinGroup before this
