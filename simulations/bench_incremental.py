@@ -1,7 +1,6 @@
 """Incremental tick benchmark: refresh cost per tick against full re-mining, in one run.
 
     python -m simulations.bench_incremental [--ticks 30] [--quick]
-    python -m simulations.bench_incremental --modes [--repeats 3]
 
 For each scenario a window is filled, the first tick starts the tracking, and then every
 tick adds one batch of baskets (the slide) and refreshes the result. Beside the refresh, the
@@ -15,11 +14,8 @@ setting of the command line (window 10,000, a tick every 500 baskets, 1 %) on bo
 The refresh is what ``mine --tick-every --tick-timings`` reports as ``refresh_ms``. The first
 refresh in a process also pays numba's one-off start (loading the compiled loops).
 
-``--modes`` instead times whole ``stream-miner mine --tick-every`` processes in the default
-(adaptive) mode beside ``--full-remine`` and ``--always-track``, interleaved, on Quest-like,
-heavy-tailed (with large baskets), sparse real-like (a grocery-sized generated set) and the
-dense supermarket set (Weka's supermarket.arff, when found at ``--dense``), and prints the
-medians and the default's ratio to the better forced mode.
+:func:`mode_file` and :func:`time_modes` time whole ``stream-miner mine --tick-every``
+processes per refresh mode, for ``python -m simulations.bench_performance``.
 """
 
 from __future__ import annotations
@@ -32,7 +28,6 @@ import sys
 import time
 from collections.abc import Sequence
 from fractions import Fraction
-from pathlib import Path
 
 import fim
 
@@ -51,13 +46,6 @@ SCENARIOS = {
     "heavy_w10k_s500_cli_setting": ("heavy", 10_000, 500, "0.01"),
 }
 QUICK = ("quest_w100k_s1k", "quest_w10k_s500_cli_setting")
-DENSE = "/tmp/realdata/weka/usr/share/doc/weka/examples/supermarket.arff"
-MODE_SETS = {  # data, baskets, window, tick every, support
-    "quest": ("quest", 30_000, 10_000, 500, "0.01"),
-    "heavy_big_baskets": ("heavy", 30_000, 10_000, 500, "0.01"),
-    "sparse_grocery_like": ("grocery", 9_835, 3_000, 200, "0.01"),
-    "dense_supermarket": ("dense", 4_627, 2_000, 200, "0.15"),
-}
 REAL_LIKE = {"grocery": grocery_like_baskets, "supermarket": supermarket_like_baskets}
 MODES = {"default": [], "full_remine": ["--full-remine"], "always_track": ["--always-track"]}
 
@@ -132,17 +120,10 @@ def warm_up() -> float:
     return round(time.perf_counter() - started, 4)
 
 
-def mode_file(data: str, n: int, seed: int, dense: str) -> str | None:
-    """A FIMI file of the named set (None: the dense file is missing); "dense" is the real
-    supermarket file, "grocery" and "supermarket" their generated stand-ins."""
-    if data == "dense":
-        from simulations.drift_on_real_data import read_arff
-
-        source = Path(dense)
-        if not source.exists():
-            return None
-        baskets = [[name.replace(" ", "_") for name in b] for b in read_arff(source)]
-    elif data in REAL_LIKE:
+def mode_file(data: str, n: int, seed: int) -> str:
+    """A FIMI file of ``n`` baskets of the named generated set ("grocery" and "supermarket"
+    are the stand-ins of simulations.real_like)."""
+    if data in REAL_LIKE:
         baskets = [[str(i) for i in b] for b in REAL_LIKE[data](n, seed=seed)]
     else:
         baskets = [[str(i) for i in b] for b in load_baskets(data, n, seed=seed)]
@@ -150,19 +131,6 @@ def mode_file(data: str, n: int, seed: int, dense: str) -> str | None:
     CACHE_DIR.mkdir(parents=True, exist_ok=True)
     path.write_text("".join(" ".join(b) + "\n" for b in baskets if b))
     return str(path)
-
-
-def compare_modes(repeats: int, seed: int, dense: str) -> dict:
-    """Whole-process seconds of ``mine --tick-every`` per mode on every set of MODE_SETS."""
-    out: dict = {}
-    for name, (data, n, window, every, support) in MODE_SETS.items():
-        path = mode_file(data, n, seed, dense)
-        if path is None:
-            log(f"{name}: {dense} not found, skipped")
-            continue
-        log(f"modes on {name}")
-        out[name] = time_modes(path, window, every, support, repeats)
-    return out
 
 
 def time_modes(path: str, window: int, every: int, support: str, repeats: int) -> dict:
@@ -198,19 +166,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--quick", action="store_true", help=f"only {', '.join(QUICK)}")
     parser.add_argument("--only", choices=sorted(SCENARIOS), action="append")
     parser.add_argument("--seed", type=int, default=1, help="data seed (another seed gives held-out data)")
-    parser.add_argument("--modes", action="store_true", help="whole processes: default vs forced modes")
-    parser.add_argument("--repeats", type=int, default=3, help="with --modes: runs per mode")
-    parser.add_argument("--dense", default=DENSE, help="with --modes: the supermarket ARFF file")
     args = parser.parse_args(argv)
-    if args.modes:
-        modes = {
-            "environment": environment(),
-            "seed": args.seed,
-            "modes": compare_modes(args.repeats, args.seed, args.dense),
-        }
-        json.dump(modes, sys.stdout, indent=1)
-        print()
-        return 0
     chosen = args.only or (QUICK if args.quick else list(SCENARIOS))
     report: dict = {
         "environment": environment(),

@@ -19,18 +19,16 @@ import argparse
 import json
 import math
 import os
-import statistics
 import subprocess
 import sys
 import tempfile
-import time
 from collections.abc import Callable, Sequence
 from fractions import Fraction
 from pathlib import Path
 
 import fim
 
-from simulations.bench_engine import load_baskets
+from simulations.bench_engine import load_baskets, median_runs
 from simulations.drift_on_real_data import read_arff
 from stream_miner.engine.fpgrowth import mine_tree
 from stream_miner.engine.miner import WindowMiner
@@ -70,13 +68,8 @@ def datasets() -> dict[str, tuple[list[list[str]], float, Fraction]]:
     return out
 
 
-def median_time(run: Callable[[], object], repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        started = time.perf_counter()
-        run()
-        times.append(time.perf_counter() - started)
-    return statistics.median(times)
+def median_seconds(run: Callable[[], object], repeats: int) -> float:
+    return median_runs(run, repeats)[0]
 
 
 def mlxtend_mine(baskets: list[list[str]], support: float) -> int:
@@ -124,21 +117,23 @@ def bench(
         "min_confidence": float(confidence),
         "itemsets": len(ours),
         "rules": len(miner.mine(with_rules).rules),
-        "mine_tree_s": median_time(lambda: mine_tree(tree, min_count), repeats),
-        "miner_mine_s": median_time(lambda: miner.mine(params), repeats),
-        "pyfim_s": median_time(lambda: fim.fpgrowth(baskets, supp=-min_count, zmin=1, report="a"), repeats),
-        "mine_with_rules_s": median_time(lambda: miner.mine(with_rules), repeats),
+        "mine_tree_s": median_seconds(lambda: mine_tree(tree, min_count), repeats),
+        "miner_mine_s": median_seconds(lambda: miner.mine(params), repeats),
+        "pyfim_s": median_seconds(
+            lambda: fim.fpgrowth(baskets, supp=-min_count, zmin=1, report="a"), repeats
+        ),
+        "mine_with_rules_s": median_seconds(lambda: miner.mine(with_rules), repeats),
     }
     mined = miner.mine(params)
     rules_only = lambda: generate_rules(mined.itemsets, mined.n_baskets, with_rules.rules)  # noqa: E731
-    row["rules_s"] = median_time(rules_only, repeats)
+    row["rules_s"] = median_seconds(rules_only, repeats)
     row["mine_tree_vs_pyfim"] = row["mine_tree_s"] / row["pyfim_s"]
     row["miner_mine_vs_pyfim"] = row["miner_mine_s"] / row["pyfim_s"]
     row["rules_vs_mining"] = row["rules_s"] / row["miner_mine_s"]
     if mlxtend:
         found = mlxtend_mine(baskets, min_count / len(baskets))
         assert found == len(ours), (name, found, len(ours))
-        row["mlxtend_s"] = median_time(lambda: mlxtend_mine(baskets, min_count / len(baskets)), 1)
+        row["mlxtend_s"] = median_seconds(lambda: mlxtend_mine(baskets, min_count / len(baskets)), 1)
         row["mine_tree_vs_mlxtend"] = row["mine_tree_s"] / row["mlxtend_s"]
     print(f"{name}: " + ", ".join(f"{k} {v:.3g}" for k, v in row.items()), file=sys.stderr, flush=True)
     return row

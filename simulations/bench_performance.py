@@ -37,6 +37,7 @@ import numba
 from simulations import bench_incremental, bench_mining
 from simulations.bench_engine import environment, load_baskets, log
 from simulations.real_like import grocery_like_baskets, supermarket_like_baskets
+from simulations.text_table import text_table
 
 SECTIONS = ("mining", "ticks", "kafka")
 DEFAULT_JSON = Path(__file__).resolve().parent / "results" / "bench_performance.json"
@@ -94,8 +95,7 @@ def ticks_section(quick: bool, repeats: int) -> dict:
     for name, (data, sizes, support) in TICK_SETS.items():
         n, window, every = sizes[quick]
         log(f"ticks: modes on {name}")
-        path = bench_incremental.mode_file(data, n, SEED, dense="")
-        assert path is not None
+        path = bench_incremental.mode_file(data, n, SEED)
         modes[name] = bench_incremental.time_modes(path, window, every, support, repeats)
     window, slide, support, ticks, samples = PER_TICK[quick]
     log(f"ticks: Quest-like refresh per tick, window {window}, slide {slide}")
@@ -126,17 +126,7 @@ def kafka_section(quick: bool, repeats: int) -> dict:
 def table(header: Sequence[str], rows: Sequence[Sequence[object]]) -> str:
     """Columns aligned: the first to the left, the rest to the right."""
     cells = [list(header)] + [[_cell(v) for v in row] for row in rows]
-    widths = [max(len(row[k]) for row in cells) for k in range(len(header))]
-    lines = ["  ".join(_align(row, widths)) for row in cells]
-    lines.insert(1, "  ".join("-" * w for w in widths))
-    return "\n".join("  " + line for line in lines)
-
-
-def _align(row: list[str], widths: list[int]) -> list[str]:
-    return [
-        cell.ljust(w) if k == 0 else cell.rjust(w)
-        for k, (cell, w) in enumerate(zip(row, widths, strict=True))
-    ]
+    return "\n".join("  " + line for line in text_table(cells, first_left=True, rule=True))
 
 
 def _cell(value: object) -> str:

@@ -61,6 +61,7 @@ from simulations.fault_harness import (
     split_markers,
     watch,
 )
+from simulations.text_table import text_table
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 from kafka_broker import Broker, start_broker, stop_broker
@@ -420,10 +421,7 @@ def table(rows: list[dict]) -> str:
     cells = [[title for _, title in COLUMNS]] + [
         [str(row.get(key, "")) for key, _ in COLUMNS] for row in rows
     ]
-    widths = [max(len(line[k]) for line in cells) for k in range(len(COLUMNS))]
-    return "\n".join(
-        "  ".join(cell.rjust(width) for cell, width in zip(line, widths, strict=True)) for line in cells
-    )
+    return "\n".join(text_table(cells))
 
 
 def run_one(name: str, baskets: int, seed: int, workdir: Path) -> dict:
