@@ -13,8 +13,9 @@ integers where int64 could overflow).
 
 from __future__ import annotations
 
+import sys
 import threading
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterator
 from dataclasses import dataclass
 from fractions import Fraction
 from functools import lru_cache
@@ -42,18 +43,24 @@ class SplitFilter:
 
 
 def passing_splits(
-    itemsets: Mapping[Names, int],
+    keys: list[Names],
+    counts: np.ndarray,
     n_baskets: int,
     f: SplitFilter,
     interrupt: threading.Event | None,
+    compiled: bool | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(itemset, antecedent, consequent) of every passing split, each an index into
-    ``list(itemsets)``, in the order of the itemsets, then antecedent size, then antecedent
-    positions (lexicographic). Raises ``ResultTooLarge`` past ``f.max_total``."""
-    keys = list(itemsets)
-    names = sorted({key[0] for key in keys if len(key) == 1})
+    """(itemset, antecedent, consequent) of every passing split of the itemsets ``keys`` (with
+    ``counts``, int64), each an index into ``keys``, in the order of the itemsets, then
+    antecedent size, then antecedent positions (lexicographic). Raises ``ResultTooLarge`` past
+    ``f.max_total``. ``compiled``: with the numba loop (:mod:`stream_miner.engine.rule_kernel`)
+    or numpy, see :func:`_kernel_pays` (None: whichever pays)."""
+    lengths = np.fromiter(map(len, keys), np.int64, len(keys))
+    names = sorted([keys[i][0] for i in np.flatnonzero(lengths == 1).tolist()])
     id_of = {name: i for i, name in enumerate(names)}
-    levels = _Levels(keys, list(itemsets.values()), id_of, len(names))
+    if _kernel_pays(lengths, n_baskets, f, compiled):
+        return _compiled_splits(keys, lengths, counts, id_of, n_baskets, f, interrupt)
+    levels = _Levels(keys, counts, id_of, len(names))
     left = _mask(f.antecedent_items, id_of, len(names))
     right = _mask(f.consequent_items, id_of, len(names))
     found: list[tuple[np.ndarray, ...]] = []
@@ -76,16 +83,86 @@ def passing_splits(
     return at[order], a[order], c[order]
 
 
+def _kernel_pays(lengths: np.ndarray, n_baskets: int, f: SplitFilter, compiled: bool | None) -> bool:
+    """Whether the numba loop lists the splits: only when every product fits int64 and the
+    itemsets are small enough for a table of their subsets; then as ``compiled`` says, or
+    (None) when numba is loaded already or the splits are many enough to repay loading it."""
+    conf, lift = f.min_confidence, f.min_lift
+    if n_baskets * max(conf.numerator, conf.denominator) >= _FITS:
+        return False
+    if lift is not None and n_baskets * n_baskets * max(lift.numerator, lift.denominator) >= _FITS:
+        return False
+    sizes = np.bincount(lengths)
+    if sizes.size - 1 > KERNEL_LARGEST:
+        return False
+    if compiled is not None:
+        return compiled
+    return "numba" in sys.modules or sum(int(n) << size for size, n in enumerate(sizes)) >= KERNEL_SPLITS
+
+
+# a numba import and cached load (0.3-0.7 s) costs about what numpy spends on this many splits
+KERNEL_SPLITS = 3_000_000
+KERNEL_LARGEST = 20  # a table of 2^size subset indexes per itemset
+KERNEL_ITEMSETS = 8192  # itemsets per call of the loop, between polls of the interrupt
+
+
+def _compiled_splits(
+    keys: list[Names],
+    lengths: np.ndarray,
+    counts: np.ndarray,
+    id_of: dict[str, int],
+    n_baskets: int,
+    f: SplitFilter,
+    interrupt: threading.Event | None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`passing_splits` with the numba loop."""
+    from stream_miner.engine.rule_kernel import DONE, GROW, TOO_MANY, split_loop, subsets_one_smaller
+
+    start = np.zeros(len(keys) + 1, dtype=np.int64)
+    np.cumsum(lengths, out=start[1:])
+    items = np.fromiter(map(id_of.__getitem__, chain.from_iterable(keys)), np.int64, int(start[-1]))
+    largest = int(lengths.max(initial=1))
+    masks = [np.zeros(0, dtype=np.int64)] * 2
+    for size in range(2, largest + 1):
+        rows = [row for _, ante, _ in _patterns(size, f) for row in ante.tolist()]
+        masks.append(np.array([sum(1 << p for p in row) for row in rows], dtype=np.int64))
+    pattern_start = np.zeros(largest + 2, dtype=np.int64)
+    np.cumsum([len(m) for m in masks], out=pattern_start[1:])
+    everything = np.ones(len(id_of), dtype=bool)
+    left = _mask(f.antecedent_items, id_of, len(id_of))
+    right = _mask(f.consequent_items, id_of, len(id_of))
+    lift = (0, 0) if f.min_lift is None else (f.min_lift.numerator, f.min_lift.denominator)
+    confidence = (f.min_confidence.numerator, f.min_confidence.denominator)
+    thresholds = np.array([n_baskets, *confidence, *lift], dtype=np.int64)
+    cap = -1 if f.max_total is None else f.max_total
+    state = np.array([0, 0, KERNEL_ITEMSETS, cap], dtype=np.int64)
+    out = np.empty((1024, 3), dtype=np.int64)
+    drop = subsets_one_smaller(items, start)
+    arrays = (items, start, counts, drop, np.concatenate(masks), pattern_start)
+    sides = (everything if left is None else left, everything if right is None else right)
+    while True:
+        stop_if_set(interrupt)
+        status = split_loop(*arrays, *sides, thresholds, state, out)
+        if status == DONE:
+            break
+        if status == TOO_MANY:
+            raise too_many_rules(int(state[1]), cap)
+        if status == GROW:
+            out = np.concatenate([out, np.empty_like(out)])
+    row = int(state[1])
+    return out[:row, 0].copy(), out[:row, 1].copy(), out[:row, 2].copy()
+
+
 class _Levels:
     """The itemsets by size: rows of item ids, counts, input indexes, and sorted keys."""
 
-    def __init__(self, keys: list[Names], counts: list[int], id_of: dict[str, int], n_items: int) -> None:
+    def __init__(self, keys: list[Names], counts: np.ndarray, id_of: dict[str, int], n_items: int) -> None:
         self.n_items = n_items
         by_size: dict[int, list[int]] = {}
         for i, key in enumerate(keys):
             by_size.setdefault(len(key), []).append(i)
         self.largest = max(by_size, default=0)
-        self.all_counts = all_counts = np.array(counts, dtype=np.int64)
+        self.all_counts = all_counts = counts
         self.rows: dict[int, np.ndarray] = {}
         self.counts: dict[int, np.ndarray] = {}
         self.index: dict[int, np.ndarray] = {}

@@ -139,10 +139,11 @@ def generate_rules(
         consequent_items=cast(frozenset | None, f.consequent_items),
         max_total=f.max_total,
     )
-    at, antecedent, consequent = passing_splits(itemsets, n_baskets, splits, interrupt)
-    counts = np.fromiter(itemsets.values(), np.int64, len(itemsets))
+    keys = list(itemsets)
+    counts = np.fromiter(itemsets.values(), np.int64, len(keys))
+    at, antecedent, consequent = passing_splits(keys, counts, n_baskets, splits, interrupt)
     rules = RuleSet(
-        list(itemsets), antecedent, consequent, counts[at], counts[antecedent], counts[consequent], n_baskets
+        keys, antecedent, consequent, counts[at], counts[antecedent], counts[consequent], n_baskets
     )
     if f.max_rules is not None and len(rules) > f.max_rules:
         rules = best_rules(rules, f.max_rules, f.rank_by)
