@@ -47,42 +47,45 @@ def json_lines(result: MiningResult, tick: int | None = None) -> list[str]:
 
 
 def write_table(result: MiningResult, out: TextIO, *, show_rules: bool, tick: int | None = None) -> None:
-    """A readable summary: itemsets by basket count, rules by confidence then lift."""
+    """A readable summary: itemsets by basket count, rules by confidence then lift (written at once)."""
     heading = f"window of {result.n_baskets:,} baskets; an itemset needs {result.min_count:,}"
-    print(heading if tick is None else f"tick {tick}: {heading}", file=out)
+    lines = [heading if tick is None else f"tick {tick}: {heading}"]
     n = max(result.n_baskets, 1)
     itemsets = sorted(result.itemsets.items(), key=lambda kv: (-kv[1], len(kv[0]), kv[0]))
-    print(f"\nfrequent itemsets: {len(itemsets)}", file=out)
+    lines.append(f"\nfrequent itemsets: {len(itemsets)}")
     if itemsets:
-        print(f"  {'baskets':>8}  {'support':>8}  itemset", file=out)
-        for items, count in itemsets:
-            print(f"  {count:>8}  {count / n:>8.4f}  {', '.join(items)}", file=out)
+        lines.append(f"  {'baskets':>8}  {'support':>8}  itemset")
+        lines += [f"  {count:>8}  {count / n:>8.4f}  {', '.join(items)}" for items, count in itemsets]
     if show_rules:
-        from stream_miner.engine.rule_set import RuleSet  # numpy: not loaded by --help
+        lines += _rule_table(result)
+    out.write("\n".join(lines) + "\n\n")
 
-        rules = RuleSet.of(result.rules, result.n_baskets)
-        order = rules.order("confidence", "lift")
-        side_text = _side_texts(rules, " + ".join)
-        texts = [
-            f"{side_text[a]} -> {side_text[c]}"
-            for a, c in zip(rules.antecedent[order].tolist(), rules.consequent[order].tolist(), strict=True)
-        ]
-        width = min(RULE_COLUMN_LIMIT, max((len(t) for t in texts), default=4))
-        print(f"\nrules: {len(rules)}", file=out)
-        if len(rules):
-            header = f"{'rule':<{width}}  {'baskets':>8}  {'confidence':>10}  {'lift':>7}  {'leverage':>9}"
-            print(f"  {header}  {'conviction':>10}", file=out)
-        columns = [rules.measure(m)[order].tolist() for m in ("confidence", "lift", "leverage", "conviction")]
-        for text, count, confidence, lift, leverage, conviction in zip(
-            texts, rules.counts[order].tolist(), *columns, strict=True
-        ):
-            shown = "infinite" if math.isinf(conviction) else f"{conviction:.3f}"
-            print(
-                f"  {text:<{width}}  {count:>8}  {confidence:>10.3f}  {lift:>7.3f}"
-                f"  {leverage:>9.4f}  {shown:>10}",
-                file=out,
-            )
-    print(file=out)
+
+def _rule_table(result: MiningResult) -> list[str]:
+    """The lines of the rule table: rules by confidence, then lift, then item names."""
+    from stream_miner.engine.rule_set import RuleSet  # numpy: not loaded by --help
+
+    rules = RuleSet.of(result.rules, result.n_baskets)
+    order = rules.order("confidence", "lift")
+    side_text = _side_texts(rules, " + ".join)
+    texts = [
+        f"{side_text[a]} -> {side_text[c]}"
+        for a, c in zip(rules.antecedent[order].tolist(), rules.consequent[order].tolist(), strict=True)
+    ]
+    width = min(RULE_COLUMN_LIMIT, max((len(t) for t in texts), default=4))
+    lines = [f"\nrules: {len(rules)}"]
+    if len(rules):
+        header = f"{'rule':<{width}}  {'baskets':>8}  {'confidence':>10}  {'lift':>7}  {'leverage':>9}"
+        lines.append(f"  {header}  {'conviction':>10}")
+    columns = [rules.measure(m)[order].tolist() for m in ("confidence", "lift", "leverage", "conviction")]
+    for text, count, confidence, lift, leverage, conviction in zip(
+        texts, rules.counts[order].tolist(), *columns, strict=True
+    ):
+        shown = "infinite" if math.isinf(conviction) else f"{conviction:.3f}"
+        lines.append(
+            f"  {text:<{width}}  {count:>8}  {confidence:>10.3f}  {lift:>7.3f}  {leverage:>9.4f}  {shown:>10}"
+        )
+    return lines
 
 
 def _side_texts(rules: RuleSet, text: Callable[[tuple[str, ...]], str]) -> dict[int, str]:
