@@ -161,3 +161,9 @@ def test_the_compiled_loop_grows_its_output_pauses_and_stops(monkeypatch):
     stop.set()
     with pytest.raises(MiningInterrupted):
         passing_splits(keys, counts, 5, split_filter(RuleFilter()), stop, compiled=True)
+
+
+def test_the_compiled_loop_refuses_itemsets_missing_a_subset():
+    keys = [("a",), ("b",), ("c",), ("a", "b"), ("a", "b", "c")]  # no ("a", "c") nor ("b", "c")
+    with pytest.raises(ValueError, match="downward closed"):
+        passing_splits(keys, np.array([3, 3, 3, 2, 2]), 4, split_filter(RuleFilter()), None, compiled=True)

@@ -54,6 +54,8 @@ class RuleSet(Sequence[Rule]):
             consequent_counts,
         )
         self.n_baskets = n_baskets
+        for column in self._columns():
+            column.flags.writeable = False  # a result's rules do not change
 
     @classmethod
     def of(cls, rules: Sequence[Rule], n_baskets: int) -> RuleSet:

@@ -138,6 +138,8 @@ def _compiled_splits(
     state = np.array([0, 0, KERNEL_ITEMSETS, cap], dtype=np.int64)
     out = np.empty((1024, 3), dtype=np.int64)
     drop = subsets_one_smaller(items, start)
+    if (drop[np.repeat(lengths >= 2, lengths)] < 0).any():
+        raise ValueError("the itemsets are not downward closed: a subset of one is missing")
     arrays = (items, start, counts, drop, np.concatenate(masks), pattern_start)
     sides = (everything if left is None else left, everything if right is None else right)
     while True:
