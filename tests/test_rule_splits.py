@@ -7,12 +7,15 @@ import threading
 from fractions import Fraction
 from itertools import combinations
 
+import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
+from stream_miner.engine import rule_splits
 from stream_miner.engine.limits import MiningInterrupted, ResultTooLarge
+from stream_miner.engine.rule_splits import SplitFilter, passing_splits
 from stream_miner.engine.rules import RuleFilter, generate_rules
 
 NAMES = ["apricot", "bap", "chard", "damson", "endive", "fennel", "gherkin", "hummus", "icing"]
@@ -97,3 +100,70 @@ def test_past_the_cap_and_when_interrupted() -> None:
     stop.set()
     with pytest.raises(MiningInterrupted):
         generate_rules(itemsets, len(baskets), RuleFilter(), interrupt=stop)
+
+
+def split_filter(f: RuleFilter) -> SplitFilter:
+    return SplitFilter(
+        min_confidence=f.min_confidence,
+        min_lift=f.min_lift,
+        max_antecedent=f.max_antecedent,
+        max_consequent=f.max_consequent,
+        antecedent_items=f.antecedent_items,
+        consequent_items=f.consequent_items,
+        max_total=f.max_total,
+    )
+
+
+def both_ways(itemsets: dict, n: int, f: RuleFilter) -> list[list[list[int]]]:
+    """The splits listed with numpy and with the compiled loop: both must be equal."""
+    keys, counts = list(itemsets), np.array(list(itemsets.values()), dtype=np.int64)
+    ways = [passing_splits(keys, counts, n, split_filter(f), None, compiled=c) for c in (False, True)]
+    return [[column.tolist() for column in way] for way in ways]
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    baskets_st,
+    st.integers(1, 4),
+    st.fractions(0, 1, max_denominator=20),
+    st.one_of(st.none(), st.fractions(0, 3, max_denominator=20)),
+    st.one_of(st.none(), st.integers(1, 3)),
+    st.one_of(st.none(), st.integers(1, 3)),
+    sides_st,
+    sides_st,
+)
+def test_the_compiled_loop_lists_the_same_splits(baskets, min_count, conf, lift, max_a, max_c, left, right):
+    f = RuleFilter(
+        min_confidence=conf,
+        min_lift=lift,
+        max_antecedent=max_a,
+        max_consequent=max_c,
+        antecedent_items=left,
+        consequent_items=right,
+        max_total=None,
+    )
+    numpy_way, compiled_way = both_ways(named_itemsets(baskets, min_count), len(baskets), f)
+    assert compiled_way == numpy_way
+
+
+def test_the_compiled_loop_grows_its_output_pauses_and_stops(monkeypatch):
+    """Thousands of rules (the output grows from 1,024 rows), a few itemsets per call, the
+    cap and the interrupt checked between calls."""
+    monkeypatch.setattr(rule_splits, "KERNEL_ITEMSETS", 7)
+    baskets = [NAMES] * 3 + [NAMES[:5]] * 2
+    itemsets = named_itemsets(baskets, 2)
+    numpy_way, compiled_way = both_ways(itemsets, len(baskets), RuleFilter(max_total=None))
+    assert compiled_way == numpy_way and len(numpy_way[0]) == 3**9 - 2**10 + 1
+    keys, counts = list(itemsets), np.array(list(itemsets.values()), dtype=np.int64)
+    with pytest.raises(ResultTooLarge):
+        passing_splits(keys, counts, 5, split_filter(RuleFilter(max_total=1000)), None, compiled=True)
+    stop = threading.Event()
+    stop.set()
+    with pytest.raises(MiningInterrupted):
+        passing_splits(keys, counts, 5, split_filter(RuleFilter()), stop, compiled=True)
+
+
+def test_the_compiled_loop_refuses_itemsets_missing_a_subset():
+    keys = [("a",), ("b",), ("c",), ("a", "b"), ("a", "b", "c")]  # no ("a", "c") nor ("b", "c")
+    with pytest.raises(ValueError, match="downward closed"):
+        passing_splits(keys, np.array([3, 3, 3, 2, 2]), 4, split_filter(RuleFilter()), None, compiled=True)

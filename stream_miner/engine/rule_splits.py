@@ -1,10 +1,10 @@
 """The antecedent/consequent splits of frequent itemsets that pass a rule filter, found with
-numpy over the itemsets as arrays: only the splits that pass become Python objects.
+numpy over the itemsets as arrays, and given as arrays of itemset indexes (no object per rule).
 
 Items are numbered in name order, so an itemset (a sorted tuple of names) is a sorted row of
 ids. The itemsets of each size form a level; an itemset's key is the rank of its prefix (all
 but the last item) in the level below, times the number of items, plus its last item, so the
-count of any subset is found by one binary search per item (the itemsets must be downward
+index of any subset is found by one binary search per item (the itemsets must be downward
 closed). Splits are handled a block at a time, either one split pattern (which positions go
 to the antecedent) over every itemset of a size, or every pattern over one itemset when the
 patterns outnumber the itemsets. Thresholds are compared exactly, in integers (Python
@@ -13,13 +13,13 @@ integers where int64 could overflow).
 
 from __future__ import annotations
 
+import sys
 import threading
-from collections.abc import Callable, Iterator, Mapping
+from collections.abc import Iterator
 from dataclasses import dataclass
 from fractions import Fraction
 from functools import lru_cache
-from itertools import combinations
-from operator import itemgetter
+from itertools import chain, combinations
 
 import numpy as np
 
@@ -43,81 +43,141 @@ class SplitFilter:
 
 
 def passing_splits(
-    itemsets: Mapping[Names, int],
+    keys: list[Names],
+    counts: np.ndarray,
     n_baskets: int,
     f: SplitFilter,
     interrupt: threading.Event | None,
-) -> Iterator[tuple[Names, Names, int, int, int]]:
-    """(antecedent, consequent, count, antecedent count, consequent count) of every passing
-    split, in the order of the itemsets, then antecedent size, then antecedent positions
-    (lexicographic). Raises ``ResultTooLarge`` past ``f.max_total`` before listing any."""
-    keys = list(itemsets)
-    names = sorted({name for key in keys if len(key) == 1 for name in key})
+    compiled: bool | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(itemset, antecedent, consequent) of every passing split of the itemsets ``keys`` (with
+    ``counts``, int64), each an index into ``keys``, in the order of the itemsets, then
+    antecedent size, then antecedent positions (lexicographic). Raises ``ResultTooLarge`` past
+    ``f.max_total``. ``compiled``: with the numba loop (:mod:`stream_miner.engine.rule_kernel`)
+    or numpy, see :func:`_kernel_pays` (None: whichever pays)."""
+    lengths = np.fromiter(map(len, keys), np.int64, len(keys))
+    names = sorted([keys[i][0] for i in np.flatnonzero(lengths == 1).tolist()])
     id_of = {name: i for i, name in enumerate(names)}
-    levels = _Levels(keys, list(itemsets.values()), id_of, len(names))
+    if _kernel_pays(lengths, n_baskets, f, compiled):
+        return _compiled_splits(keys, lengths, counts, id_of, n_baskets, f, interrupt)
+    levels = _Levels(keys, counts, id_of, len(names))
     left = _mask(f.antecedent_items, id_of, len(names))
     right = _mask(f.consequent_items, id_of, len(names))
-    found: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
+    found: list[tuple[np.ndarray, ...]] = []
     total = 0
     for ante, cons, count, at, pattern in _blocks(levels, f):
         stop_if_set(interrupt)
         kept = _passes(ante, cons, count, n_baskets, levels, left, right, f)
         if kept is None:
             continue
-        chosen, n_a, n_c = kept
+        chosen, a, c = kept
         total += int(chosen.size)
         if f.max_total is not None and total > f.max_total:
             raise too_many_rules(total, f.max_total)
-        found.append((at[chosen], pattern[chosen], n_a, n_c))
+        found.append((at[chosen], pattern[chosen], a, c))
     if not found:
-        return
-    at = np.concatenate([b[0] for b in found])
-    pattern = np.concatenate([b[1] for b in found])
-    n_a = np.concatenate([b[2] for b in found]).tolist()
-    n_c = np.concatenate([b[3] for b in found]).tolist()
-    order = np.lexsort((pattern, at)).tolist()
-    at_list, pattern_list = at.tolist(), pattern.tolist()
-    getters: dict[tuple[int, int], tuple[Callable, Callable]] = {}
-    for i in order:
-        itemset = keys[at_list[i]]
-        size = len(itemset)
-        got = getters.get((size, pattern_list[i]))
-        if got is None:
-            a, c = _pattern(size, f, pattern_list[i])
-            got = getters[(size, pattern_list[i])] = (_getter(a), _getter(c))
-        yield got[0](itemset), got[1](itemset), itemsets[itemset], n_a[i], n_c[i]
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty, empty
+    at, pattern, a, c = (np.concatenate([block[j] for block in found]) for j in range(4))
+    order = np.lexsort((pattern, at))
+    return at[order], a[order], c[order]
 
 
-def _getter(positions: tuple[int, ...]) -> Callable[[Names], Names]:
-    """A getter of the tuple of the items at ``positions``."""
-    if len(positions) == 1:
-        return lambda itemset: (itemset[positions[0]],)
-    return itemgetter(*positions)
+def _kernel_pays(lengths: np.ndarray, n_baskets: int, f: SplitFilter, compiled: bool | None) -> bool:
+    """Whether the numba loop lists the splits: only when every product fits int64 and the
+    itemsets are small enough for a table of their subsets; then as ``compiled`` says, or
+    (None) when numba is loaded already or the splits are many enough to repay loading it."""
+    conf, lift = f.min_confidence, f.min_lift
+    if n_baskets * max(conf.numerator, conf.denominator) >= _FITS:
+        return False
+    if lift is not None and n_baskets * n_baskets * max(lift.numerator, lift.denominator) >= _FITS:
+        return False
+    sizes = np.bincount(lengths)
+    if sizes.size - 1 > KERNEL_LARGEST:
+        return False
+    if compiled is not None:
+        return compiled
+    return "numba" in sys.modules or sum(int(n) << size for size, n in enumerate(sizes)) >= KERNEL_SPLITS
+
+
+# a numba import and cached load (0.3-0.7 s) costs about what numpy spends on this many splits
+KERNEL_SPLITS = 3_000_000
+KERNEL_LARGEST = 20  # a table of 2^size subset indexes per itemset
+KERNEL_ITEMSETS = 8192  # itemsets per call of the loop, between polls of the interrupt
+
+
+def _compiled_splits(
+    keys: list[Names],
+    lengths: np.ndarray,
+    counts: np.ndarray,
+    id_of: dict[str, int],
+    n_baskets: int,
+    f: SplitFilter,
+    interrupt: threading.Event | None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`passing_splits` with the numba loop."""
+    from stream_miner.engine.rule_kernel import DONE, GROW, TOO_MANY, split_loop, subsets_one_smaller
+
+    start = np.zeros(len(keys) + 1, dtype=np.int64)
+    np.cumsum(lengths, out=start[1:])
+    items = np.fromiter(map(id_of.__getitem__, chain.from_iterable(keys)), np.int64, int(start[-1]))
+    largest = int(lengths.max(initial=1))
+    masks = [np.zeros(0, dtype=np.int64)] * 2
+    for size in range(2, largest + 1):
+        rows = [row for _, ante, _ in _patterns(size, f) for row in ante.tolist()]
+        masks.append(np.array([sum(1 << p for p in row) for row in rows], dtype=np.int64))
+    pattern_start = np.zeros(largest + 2, dtype=np.int64)
+    np.cumsum([len(m) for m in masks], out=pattern_start[1:])
+    everything = np.ones(len(id_of), dtype=bool)
+    left = _mask(f.antecedent_items, id_of, len(id_of))
+    right = _mask(f.consequent_items, id_of, len(id_of))
+    lift = (0, 0) if f.min_lift is None else (f.min_lift.numerator, f.min_lift.denominator)
+    confidence = (f.min_confidence.numerator, f.min_confidence.denominator)
+    thresholds = np.array([n_baskets, *confidence, *lift], dtype=np.int64)
+    cap = -1 if f.max_total is None else f.max_total
+    state = np.array([0, 0, KERNEL_ITEMSETS, cap], dtype=np.int64)
+    out = np.empty((1024, 3), dtype=np.int64)
+    drop = subsets_one_smaller(items, start)
+    if (drop[np.repeat(lengths >= 2, lengths)] < 0).any():
+        raise ValueError("the itemsets are not downward closed: a subset of one is missing")
+    arrays = (items, start, counts, drop, np.concatenate(masks), pattern_start)
+    sides = (everything if left is None else left, everything if right is None else right)
+    while True:
+        stop_if_set(interrupt)
+        status = split_loop(*arrays, *sides, thresholds, state, out)
+        if status == DONE:
+            break
+        if status == TOO_MANY:
+            raise too_many_rules(int(state[1]), cap)
+        if status == GROW:
+            out = np.concatenate([out, np.empty_like(out)])
+    row = int(state[1])
+    return out[:row, 0].copy(), out[:row, 1].copy(), out[:row, 2].copy()
 
 
 class _Levels:
     """The itemsets by size: rows of item ids, counts, input indexes, and sorted keys."""
 
-    def __init__(self, keys: list[Names], counts: list[int], id_of: dict[str, int], n_items: int) -> None:
+    def __init__(self, keys: list[Names], counts: np.ndarray, id_of: dict[str, int], n_items: int) -> None:
         self.n_items = n_items
         by_size: dict[int, list[int]] = {}
         for i, key in enumerate(keys):
             by_size.setdefault(len(key), []).append(i)
         self.largest = max(by_size, default=0)
-        all_counts = np.array(counts, dtype=np.int64)
+        self.all_counts = all_counts = counts
         self.rows: dict[int, np.ndarray] = {}
         self.counts: dict[int, np.ndarray] = {}
         self.index: dict[int, np.ndarray] = {}
         self.sorted_keys: dict[int, np.ndarray] = {}
-        self.sorted_counts: dict[int, np.ndarray] = {}
+        self.sorted_index: dict[int, np.ndarray] = {}
         for size in range(1, self.largest + 1):
             where = np.array(by_size.get(size, []), dtype=np.int64)
-            flat = [id_of[name] for i in where.tolist() for name in keys[i]]
-            rows = np.array(flat, dtype=np.int64).reshape(len(where), size)
+            flat = chain.from_iterable(map(keys.__getitem__, where.tolist()))
+            rows = np.fromiter(map(id_of.__getitem__, flat), np.int64, len(where) * size).reshape(-1, size)
             self.rows[size], self.counts[size], self.index[size] = rows, all_counts[where], where
             level_keys = self._key(rows)
             order = np.argsort(level_keys, kind="stable")
-            self.sorted_keys[size], self.sorted_counts[size] = level_keys[order], self.counts[size][order]
+            self.sorted_keys[size], self.sorted_index[size] = level_keys[order], where[order]
 
     def _key(self, rows: np.ndarray) -> np.ndarray:
         key = rows[:, 0].copy()
@@ -126,10 +186,10 @@ class _Levels:
             key = rank * self.n_items + rows[:, j]
         return key
 
-    def count_of(self, rows: np.ndarray) -> np.ndarray:
-        """The counts of the itemsets (rows of sorted item ids, all of one size)."""
+    def index_of(self, rows: np.ndarray) -> np.ndarray:
+        """The input indexes of the itemsets (rows of sorted item ids, all of one size)."""
         size = rows.shape[1]
-        return self.sorted_counts[size][np.searchsorted(self.sorted_keys[size], self._key(rows))]
+        return self.sorted_index[size][np.searchsorted(self.sorted_keys[size], self._key(rows))]
 
 
 def _mask(items: frozenset[str] | None, id_of: dict[str, int], n_items: int) -> np.ndarray | None:
@@ -163,14 +223,6 @@ def _patterns_of(
         out.append((first, ante, cons))
         first += len(ante)
     return out
-
-
-def _pattern(size: int, f: SplitFilter, index: int) -> tuple[tuple[int, ...], tuple[int, ...]]:
-    """The antecedent and consequent positions of pattern ``index`` of an itemset of ``size``."""
-    for first, ante, cons in _patterns(size, f):
-        if index < first + len(ante):
-            return tuple(ante[index - first].tolist()), tuple(cons[index - first].tolist())
-    raise IndexError(index)
 
 
 Block = tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]
@@ -210,7 +262,7 @@ def _passes(
     right: np.ndarray | None,
     f: SplitFilter,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
-    """The rows of a block that pass, with their antecedent and consequent counts."""
+    """The rows of a block that pass, with the input indexes of their antecedents and consequents."""
     chosen = np.arange(len(count))
     if left is not None:
         chosen = chosen[left[ante].all(axis=1)]
@@ -218,21 +270,23 @@ def _passes(
         chosen = chosen[right[cons[chosen]].all(axis=1)]
     if chosen.size == 0:
         return None
-    n_a = levels.count_of(ante[chosen])
+    a_at = levels.index_of(ante[chosen])
+    n_a = levels.all_counts[a_at]
     conf = f.min_confidence
     big = n_baskets * max(conf.numerator, conf.denominator) >= _FITS
     c, a = (x.astype(object) if big else x for x in (count[chosen], n_a))
     ok = c * conf.denominator >= conf.numerator * a
-    chosen, n_a = chosen[ok], n_a[ok]
+    chosen, a_at, n_a = chosen[ok], a_at[ok], n_a[ok]
     if chosen.size == 0:
         return None
-    n_c = levels.count_of(cons[chosen])
+    c_at = levels.index_of(cons[chosen])
     lift = f.min_lift
     if lift is not None:
+        n_c = levels.all_counts[c_at]
         big = n_baskets * n_baskets * max(lift.numerator, lift.denominator) >= _FITS
         c, a, b = (x.astype(object) if big else x for x in (count[chosen], n_a, n_c))
         ok = c * n_baskets * lift.denominator >= lift.numerator * a * b
-        chosen, n_a, n_c = chosen[ok], n_a[ok], n_c[ok]
+        chosen, a_at, c_at = chosen[ok], a_at[ok], c_at[ok]
         if chosen.size == 0:
             return None
-    return chosen, n_a, n_c
+    return chosen, a_at, c_at

@@ -15,10 +15,13 @@ import threading
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from fractions import Fraction
-from typing import cast
+from typing import TYPE_CHECKING, cast
 
 from stream_miner.engine.arguments import Exact, bounded_fraction, item_names, optional_whole_number
 from stream_miner.engine.limits import DEFAULT_MAX_RULES_TOTAL
+
+if TYPE_CHECKING:
+    from stream_miner.engine.rule_set import RuleSet
 
 Names = tuple[str, ...]
 RANK_MEASURES = ("confidence", "lift", "leverage", "conviction", "support", "count")
@@ -110,17 +113,22 @@ def generate_rules(
     rule_filter: RuleFilter = RuleFilter(),
     *,
     interrupt: threading.Event | None = None,
-) -> list[Rule]:
+) -> RuleSet:
     """Every antecedent/consequent split of every frequent itemset that passes the filter.
 
     ``itemsets`` (sorted tuples of item names) must be downward closed (every subset of a
     member is a member), as mining output is. Raises ``ResultTooLarge`` past the filter's
     ``max_total`` and ``MiningInterrupted`` once ``interrupt`` is set. Splits are checked with
-    numpy (:mod:`stream_miner.engine.rule_splits`); only the rules that pass are built.
-    Cost: O(sum over itemsets of 2^size) array work.
+    numpy (:mod:`stream_miner.engine.rule_splits`); the rules are held as columns whose sides
+    index ``list(itemsets)`` (:class:`~stream_miner.engine.rule_set.RuleSet`), in the order of
+    the itemsets, then antecedent size, then antecedent positions, or best first with
+    ``max_rules``. Cost: O(sum over itemsets of 2^size) array work.
     """
     f = rule_filter
-    from stream_miner.engine.rule_splits import SplitFilter, passing_splits  # numpy: only to make rules
+    import numpy as np  # only to make rules
+
+    from stream_miner.engine.rule_set import RuleSet
+    from stream_miner.engine.rule_splits import SplitFilter, passing_splits
 
     splits = SplitFilter(
         min_confidence=cast(Fraction, f.min_confidence),
@@ -131,15 +139,17 @@ def generate_rules(
         consequent_items=cast(frozenset | None, f.consequent_items),
         max_total=f.max_total,
     )
-    rules = [
-        Rule(antecedent, consequent, count, n_a, n_c, n_baskets)
-        for antecedent, consequent, count, n_a, n_c in passing_splits(itemsets, n_baskets, splits, interrupt)
-    ]
+    keys = list(itemsets)
+    counts = np.fromiter(itemsets.values(), np.int64, len(keys))
+    at, antecedent, consequent = passing_splits(keys, counts, n_baskets, splits, interrupt)
+    rules = RuleSet(
+        keys, antecedent, consequent, counts[at], counts[antecedent], counts[consequent], n_baskets
+    )
     if f.max_rules is not None and len(rules) > f.max_rules:
         rules = best_rules(rules, f.max_rules, f.rank_by)
     return rules
 
 
-def best_rules(rules: Iterable[Rule], limit: int, rank_by: str) -> list[Rule]:
+def best_rules(rules: RuleSet, limit: int, rank_by: str) -> RuleSet:
     """The ``limit`` best rules by ``rank_by``; ties: higher count, then item names."""
-    return sorted(rules, key=lambda r: (-r.measure(rank_by), -r.count, r.antecedent, r.consequent))[:limit]
+    return rules.take(rules.order(rank_by, "count")[:limit])

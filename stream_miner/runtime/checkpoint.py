@@ -66,6 +66,7 @@ from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.miner import DEFAULT_BATCH, MinerState, WindowMiner
 from stream_miner.engine.result import MiningResult
+from stream_miner.engine.rule_set import RuleSet
 from stream_miner.engine.rules import Rule
 from stream_miner.engine.window import CountWindow, TimeWindow
 from stream_miner.runtime.atomic_file import remove_stale_temporaries, replace_atomically
@@ -438,12 +439,13 @@ def _last_arrays(last: MiningResult | None, names: list[str]) -> dict[str, np.nd
     id_of = {name: i for i, name in enumerate(names)} if itemsets else {}
     position = {items: i for i, items in enumerate(itemsets)}
     rows = BasketArrays.from_lists([[id_of[name] for name in items] for items in itemsets])
-    rules = [] if last is None else [(position[r.antecedent], position[r.consequent]) for r in last.rules]
+    rules = RuleSet.of([] if last is None else last.rules, 0)
+    at = np.fromiter(map(position.__getitem__, rules.sides), np.int64, len(rules.sides))
     return {
         "last_items": rows.items.astype(np.int32),
         "last_start": rows.start.astype(np.int64),
         "last_counts": np.array(list(itemsets.values()), dtype=np.int64),
-        "last_rules": np.array(rules, dtype=np.int64).reshape(len(rules), 2),
+        "last_rules": np.stack([at[rules.antecedent], at[rules.consequent]], axis=1).reshape(len(rules), 2),
     }
 
 

@@ -1,0 +1,143 @@
+"""The compiled (numba) loop over the splits of frequent itemsets: the same passing splits, in
+the same order, as :mod:`stream_miner.engine.rule_splits`, without a numpy call per block.
+
+Imported only for large rule sets or once numba is loaded (numba costs about 0.3 s to import);
+compiled code is cached on disk. Itemsets are rows of item ids in name order (CSR: ``items``,
+``start``). A hash table over the rows gives each itemset's subsets one item smaller; from
+them the index of every subset of an itemset (a bit mask of its positions) is filled in, the
+larger masks first. The split patterns of size ``s`` are the masks
+``patterns[pattern_start[s]:pattern_start[s + 1]]``, in output order (antecedent size, then
+positions), for every size up to the largest itemset's. Thresholds are compared in int64:
+the caller uses this loop only when no product can overflow. The loop is resumable: it stops
+after a number of itemsets (the caller polls its interrupt), when the output may overflow
+(the caller enlarges it) or past the cap of rules.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+DONE, PAUSED, GROW, TOO_MANY = 0, 1, 2, 3
+_MULTIPLIER = np.uint64(0x100000001B3)
+_OFFSET = np.uint64(0xCBF29CE484222325)
+
+
+@njit(cache=True, nogil=True)
+def _hash(items: np.ndarray, lo: int, hi: int, skip: int) -> np.uint64:
+    h = _OFFSET
+    for p in range(lo, hi):
+        if p != skip:
+            h = (h ^ np.uint64(items[p])) * _MULTIPLIER
+    return h
+
+
+@njit(cache=True, nogil=True)
+def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
+    """``drop[start[x] + j]``: the index of itemset ``x`` without its item ``j`` (-1 for a
+    single item). Every such subset must be an itemset (downward closed)."""
+    n = start.size - 1
+    size = 1
+    while size < 2 * n:
+        size *= 2
+    mask = np.uint64(size - 1)
+    table = np.full(size, -1, dtype=np.int64)
+    for x in range(n):
+        slot = _hash(items, start[x], start[x + 1], -1) & mask
+        while table[slot] != -1:
+            slot = (slot + np.uint64(1)) & mask
+        table[slot] = x
+    drop = np.full(items.size, -1, dtype=np.int64)
+    for x in range(n):
+        lo, hi = start[x], start[x + 1]
+        if hi - lo < 2:
+            continue
+        for j in range(lo, hi):
+            slot = _hash(items, lo, hi, j) & mask
+            while True:
+                y = table[slot]
+                if y == -1:
+                    break
+                if start[y + 1] - start[y] == hi - lo - 1:
+                    q = start[y]
+                    same = True
+                    for p in range(lo, hi):
+                        if p != j:
+                            if items[q] != items[p]:
+                                same = False
+                                break
+                            q += 1
+                    if same:
+                        drop[j] = y
+                        break
+                slot = (slot + np.uint64(1)) & mask
+    return drop
+
+
+@njit(cache=True, nogil=True)
+def split_loop(
+    items: np.ndarray,
+    start: np.ndarray,
+    counts: np.ndarray,
+    drop: np.ndarray,
+    patterns: np.ndarray,
+    pattern_start: np.ndarray,
+    left: np.ndarray,
+    right: np.ndarray,
+    thresholds: np.ndarray,
+    state: np.ndarray,
+    out: np.ndarray,
+) -> int:
+    """Write (itemset, antecedent, consequent) rows into ``out`` from itemset ``state[0]`` at
+    row ``state[1]``, at most ``state[2]`` itemsets a call; past ``state[3]`` rows (-1: no cap)
+    stop with TOO_MANY. ``thresholds``: window size, confidence numerator and denominator, lift
+    numerator and denominator (0, 0: no lift). ``left``/``right``: the items allowed per side."""
+    n, conf_num, conf_den, lift_num, lift_den = thresholds
+    x, row, cap = state[0], state[1], state[3]
+    stop = min(start.size - 1, x + state[2])
+    index = np.empty(1 << (pattern_start.size - 2), dtype=np.int64)
+    while x < stop:
+        lo, s = start[x], start[x + 1] - start[x]
+        first, last = pattern_start[s], pattern_start[s + 1]
+        if s < 2 or first == last:
+            x += 1
+            continue
+        if row + last - first > out.shape[0]:
+            state[0], state[1] = x, row
+            return GROW
+        full = (1 << s) - 1
+        index[full] = x
+        for m in range(full - 1, 0, -1):  # each mask from one a position larger
+            p = 0
+            while (m >> p) & 1:
+                p += 1
+            bigger = m | (1 << p)
+            rank = 0
+            for q in range(p):
+                rank += (bigger >> q) & 1
+            index[m] = drop[start[index[bigger]] + rank]
+        lefts, rights = 0, 0
+        for p in range(s):
+            if left[items[lo + p]]:
+                lefts |= 1 << p
+            if right[items[lo + p]]:
+                rights |= 1 << p
+        k = counts[x]
+        for t in range(first, last):
+            m = patterns[t]
+            if m & ~lefts or (full ^ m) & ~rights:
+                continue
+            a = index[m]
+            if k * conf_den < conf_num * counts[a]:
+                continue
+            c = index[full ^ m]
+            if lift_den != 0 and k * n * lift_den < lift_num * counts[a] * counts[c]:
+                continue
+            out[row, 0], out[row, 1], out[row, 2] = x, a, c
+            row += 1
+        x += 1
+        if cap >= 0 and row > cap:
+            state[0], state[1] = x, row
+            return TOO_MANY
+    state[0], state[1] = x, row
+    return DONE if x == start.size - 1 else PAUSED
