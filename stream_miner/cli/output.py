@@ -20,12 +20,16 @@ def json_lines(result: MiningResult, tick: int | None = None) -> list[str]:
 
     Infinite conviction (confidence 1) is written as ``null``: JSON has no infinity.
     """
-    extra = {} if tick is None else {"tick": tick}
     n = result.n_baskets
+    tail = "}" if tick is None else f', "tick": {tick}}}'
+    name_json: dict[str, str] = {}
     lines = []
     for items, count in sorted(result.itemsets.items(), key=lambda kv: (len(kv[0]), kv[0])):
-        record = {"type": "itemset", "items": list(items), "count": count, "support": count / n}
-        lines.append(json.dumps(record | extra, ensure_ascii=False))
+        texts = [name_json.get(name) or name_json.setdefault(name, _json_text(name)) for name in items]
+        lines.append(
+            f'{{"type": "itemset", "items": [{", ".join(texts)}], "count": {count}, '
+            f'"support": {count / n!r}{tail}'
+        )
     from stream_miner.engine.rule_set import RuleSet  # numpy: not loaded by --help
 
     rules = RuleSet.of(result.rules, n)
@@ -34,7 +38,6 @@ def json_lines(result: MiningResult, tick: int | None = None) -> list[str]:
     convictions = ["null" if math.isinf(x) else repr(x) for x in rules.measure("conviction")[order].tolist()]
     ante, cons = rules.antecedent[order].tolist(), rules.consequent[order].tolist()
     side_json = _side_texts(rules, lambda side: json.dumps(list(side), ensure_ascii=False))
-    tail = "}" if tick is None else f', "tick": {tick}}}'
     for a, c, count, support, confidence, lift, leverage, conviction in zip(
         ante, cons, rules.counts[order].tolist(), *measures, convictions, strict=True
     ):
@@ -44,6 +47,10 @@ def json_lines(result: MiningResult, tick: int | None = None) -> list[str]:
             f'"leverage": {leverage!r}, "conviction": {conviction}{tail}'
         )
     return lines
+
+
+def _json_text(name: str) -> str:
+    return json.dumps(name, ensure_ascii=False)
 
 
 def write_table(result: MiningResult, out: TextIO, *, show_rules: bool, tick: int | None = None) -> None:
