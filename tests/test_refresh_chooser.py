@@ -45,6 +45,19 @@ def test_a_tracker_dearer_than_a_full_tick_is_dropped_and_the_next_start_waits_t
     assert chooser.track(False)
 
 
+def test_one_slow_tracked_tick_keeps_the_tracker_but_a_lasting_excess_drops_it():
+    chooser = RefreshChooser()
+    chooser.full_mined(1.0, upkeep=0.0)
+    assert chooser.tracked_tick(2.0, started=True)  # a start costing two full ticks
+    assert chooser.tracked_tick(0.1, started=False)
+    assert chooser.tracked_tick(2.5, started=False)  # 1.5 s beyond a full tick: less than a start
+    assert chooser.tracked_tick(0.1, started=False)  # pays 0.9 s of it back
+    assert chooser.tracked_tick(1.5, started=False)  # 0.6 + 0.5 s
+    assert chooser.patience == 1
+    assert not chooser.tracked_tick(2.0, started=False)  # 1.1 + 1.0 s: more than a start
+    assert chooser.patience == 2
+
+
 def test_a_window_turned_over_between_two_ticks_doubles_the_wait_for_the_next_start():
     miner = WindowMiner(CountWindow(10), batch_size=4)
     params = MiningParams(min_count=2)

@@ -8,10 +8,12 @@ follows its output more than the window's size (the support is a share of the wi
 it is not scaled by the window. Without a tracker, ticks mine in full and bank, at each, the
 time a tracker would have saved; the tracking starts once that credit covers its expected
 start (the ski-rental rule: what is spent waiting is at most about what the start costs;
-before a start was measured, it is expected to cost one full tick). A tracker whose ticks
-cost more than a full tick, or that the window's turnover between two ticks throws away, is
-dropped, and the credit needed for the next start doubles, so data on which tracking never
-pays costs a few starts at most.
+before a start was measured, it is expected to cost one full tick). The same rule drops a
+tracker: tracked ticks bank what they cost beyond a full tick (cheaper ones pay it back), and
+once that debit exceeds a start the tracker goes, so a single slow tick (big baskets, a
+burst) does not throw away a tracker that pays on the whole. A dropped tracker, or one that
+the window's turnover between two ticks throws away, doubles the credit needed for the next
+start, so data on which tracking never pays costs a few starts at most.
 """
 
 from __future__ import annotations
@@ -38,6 +40,7 @@ class RefreshChooser:
         self.tracked: float | None = None  # seconds of a tracked tick
         self.start: float | None = None  # seconds the last start of the tracking took
         self.credit = 0.0  # seconds a tracker would have saved since the last decision
+        self.debit = 0.0  # seconds tracked ticks cost beyond full ticks, net, since the start
         self.patience = 1.0  # the credit a start needs, in expected starts
 
     def track(self, tracking: bool) -> bool:
@@ -47,8 +50,11 @@ class RefreshChooser:
             return True
         if self.full is None:
             return False  # measure a full mine first
-        start = FIRST_START_IN_FULL_MINES * self.full if self.start is None else self.start
-        return self.credit >= self.patience * start
+        return self.credit >= self.patience * self._expected_start()
+
+    def _expected_start(self) -> float:
+        full = self.full or 0.0
+        return FIRST_START_IN_FULL_MINES * full if self.start is None else self.start
 
     def full_mined(self, seconds: float, upkeep: float) -> None:
         """A tick mined the window in full in ``seconds``, after ``upkeep`` seconds keeping
@@ -59,13 +65,17 @@ class RefreshChooser:
 
     def tracked_tick(self, seconds: float, started: bool) -> bool:
         """A tick used the tracker (``started``: it started it) in ``seconds``; False when
-        the tracker should be dropped, its ticks costing more than a full tick."""
+        the tracker should be dropped, its ticks having cost more than a start beyond full
+        ticks."""
         self.credit = 0.0
         if started:
-            self.start = seconds
+            self.start, self.debit = seconds, 0.0
             return True
         self.tracked = _average(self.tracked, seconds)
-        if self.full is not None and self.tracked > self.full:
+        if self.full is None:
+            return True
+        self.debit = max(0.0, self.debit + seconds - self.full)
+        if self.debit > self._expected_start():
             self.patience *= 2
             return False
         return True
