@@ -144,6 +144,6 @@ def test_a_last_tick_never_starts_the_tracking_but_keeps_a_running_tracker():
     assert going_on.tick(params).result.itemsets == last.result.itemsets
     assert going_on._tracker is not None
     tracking._chooser.credit = 0.0
-    tracking._chooser.full_per_basket = math.inf  # however slow its tick, the tracker stays
+    tracking._chooser.full = math.inf  # however slow its tick, the tracker stays
     assert tracking.tick(params, last=True).result.itemsets == last.result.itemsets
     assert tracking._tracker is not None

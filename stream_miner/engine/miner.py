@@ -121,6 +121,7 @@ class WindowMiner:
         self._tracker: BorderTracker | None = None
         self._tracker_key: tuple | None = None
         self._chooser = RefreshChooser()
+        self._upkeep = 0.0  # seconds spent updating the tree since the last tick (for the chooser)
         self._changes: list[tuple[BasketArrays, int]] = []
         self._last: MiningResult | None = None
         self._ticks = 0
@@ -260,7 +261,9 @@ class WindowMiner:
         if self._tree_behind:
             handles = np.zeros(len(paths), dtype=np.int64)  # no node: rebuilt with the tree
         else:
+            started = time.perf_counter()
             handles = self.tree.update(paths, expired.handles)
+            self._upkeep += time.perf_counter() - started
         self.store.append(paths, pending_ts, handles, pending_tags)
         self._note_changes((expired.baskets, -1), (paths, 1))
         self._applied_since_order += len(paths)
@@ -302,6 +305,7 @@ class WindowMiner:
             self._changes += changes
             if sum(len(baskets) for baskets, _ in self._changes) > 2 * max(len(self.store), 1):
                 self._tracker, self._changes = None, []  # restarting from the window is cheaper
+                self._chooser.turned_over()
 
     def _reorder_if_stale(self) -> None:
         """Once per window turnover: rebuild the tree in the current frequency order when a
@@ -447,12 +451,13 @@ class WindowMiner:
         the last tick that returned).
         """
         self.flush()
+        upkeep, self._upkeep = self._upkeep, 0.0
         names = self.vocabulary.names()
         n = len(self.store)
         min_count = params.threshold(n)
         if refresh == Refresh.ADAPTIVE:
             running = self._tracker is not None
-            tracking = self._chooser.track(running, n) and (running or not last)
+            tracking = self._chooser.track(running) and (running or not last)
         else:
             tracking = refresh == Refresh.TRACKED
         found = None
@@ -462,15 +467,16 @@ class WindowMiner:
             found = self._track(params, names, min_count, interrupt)  # None: too many items to track
             if found is not None:
                 self._tree_behind = True
-                keep = self._chooser.tracked_tick(time.perf_counter() - started, starting, n)
+                keep = self._chooser.tracked_tick(time.perf_counter() - started, starting)
                 if refresh == Refresh.ADAPTIVE and not keep:
                     self._tracker, self._changes = None, []
         else:
             self._tracker, self._changes = None, []
         if found is None:
+            self._tree_up_to_date()  # a rebuild after tracking is no cost of a full tick
             started = time.perf_counter()
             found = self._mine_tree(params, names, min_count, interrupt)
-            self._chooser.full_mined(time.perf_counter() - started, n)
+            self._chooser.full_mined(time.perf_counter() - started, upkeep)
         result = self._result(found, min_count, params, names, interrupt)
         tick = Tick(self._ticks, result, diff_results(self._last, result))
         stop_if_set(interrupt)  # an abandoned tick must not count: its caller has moved on

@@ -17,7 +17,9 @@ from stream_miner.engine.incremental.kernels import add_pairs, run
 
 FIRST_CAPACITY = 64
 ROWS_PER_PASS = 256  # slots scanned at once by pairs_among (bounds its temporary arrays)
-PAIRS_PER_PASS = 1 << 22  # pairs per pass, at most (bounds the report buffer: 32 MiB)
+# pairs per pass, at most: bounds the report buffer (2 MiB) and how long one pass of the numpy
+# loop runs before kernels.run can hand over to the compiled one (a start on a large window)
+PAIRS_PER_PASS = 1 << 18
 
 
 class PairTable:
@@ -72,7 +74,8 @@ class PairTable:
     ) -> np.ndarray:
         """Add each basket's sign to its pairs of watched items that hold an item set in
         ``only``; the touched pairs counted at least ``report_from``, as rows of item ids.
-        Passes over at most ``PAIRS_PER_PASS`` pairs each bound the report buffer."""
+        Passes over at most ``PAIRS_PER_PASS`` pairs each bound the report buffer and the
+        time spent in the numpy loop before the compiled one takes over."""
         lengths = baskets.lengths()
         pairs = np.cumsum(lengths * (lengths - 1) // 2)  # pairs up to and including each basket
         cuts: np.ndarray | list[int] = (
