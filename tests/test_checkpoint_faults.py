@@ -277,7 +277,6 @@ def test_a_running_process_warns_in_one_line_goes_on_and_recovers(make_fault, sp
         child.wait_for_line(
             rf"^stream-miner: warning: cannot write checkpoint {re.escape(str(path))}: {fault.cause};"
         )
-        leftovers = sorted(ck.glob(TEMPORARIES))
     finally:
         fault.mending(ck, child.process.pid)
     append_baskets(data, 20, 10)
@@ -286,7 +285,9 @@ def test_a_running_process_warns_in_one_line_goes_on_and_recovers(make_fault, sp
     )
     child.wait_for_line(r"^stream-miner: tick 2: window 30 baskets")  # all 30 read
     err = child.stop()  # the final checkpoint is written: exit 0
-    assert leftovers == []
+    # a write cut off by the fault may leave its temporary file where it cannot be removed
+    # (a read-only directory); the next write that works removes it
+    assert sorted(ck.glob(TEMPORARIES)) == []
     # one line for the checkpoint; when the fault struck between a checkpoint and the note of
     # its commit, one more for the note (a restart then takes that commit's outcome as unknown)
     checkpoint_lines = [

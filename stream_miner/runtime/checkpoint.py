@@ -107,7 +107,8 @@ class CheckpointError(ValueError):
 
 class CheckpointWriteError(OSError):
     """A checkpoint the system would not let us write; the message is one line naming the
-    file and the cause. No temporary file is left behind."""
+    file and the cause. A temporary file that cannot be removed (a read-only directory) is
+    removed by the next write that works."""
 
 
 # ---------------------------------------------------------------------------- save
