@@ -188,16 +188,26 @@ def render(report: dict) -> str:
             f"\n   Quest-like refresh per tick, window {q['window']:,}, slide {q['slide']:,}, "
             f"{round(q['frequent_itemsets_median']):,} itemsets (seconds; ratio: full mine / refresh)",
             table(
-                ["data set", "first tick", "refresh", "window update", "full mine", "pyfim", "full/refresh"],
+                [
+                    "data set",
+                    "start tracking",
+                    "refresh",
+                    "window update",
+                    "full mine",
+                    "pyfim",
+                    "full/refresh",
+                    "start/full",
+                ],
                 [
                     [
                         "quest",
-                        q["first_tick_s"],
+                        q["start_tracking_s"],
                         q["refresh_per_tick_s"],
                         q["tree_update_per_tick_s"],
                         q["full_mine_s"],
                         q["pyfim_s"],
                         q["full_over_refresh"],
+                        q["start_over_full"],
                     ]
                 ],
             ),
