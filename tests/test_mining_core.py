@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
 from stream_miner.engine import fpgrowth
-from stream_miner.engine.fpgrowth import mine_tree
+from stream_miner.engine.fpgrowth import mine_tree, mine_tree_named
 from stream_miner.engine.limits import ResultTooLarge
 from stream_miner.engine.tree import PrefixTree, frequency_rank
 
@@ -107,6 +107,23 @@ def test_the_itemset_cap_holds_exactly(baskets, min_count, cap, budget):
         assert cap < info.value.found <= len(expected)
     else:
         assert mine_with(budget, tree, min_count, max_itemsets=cap) == expected
+
+
+@settings(max_examples=100, deadline=None)
+@given(
+    *MINE_CASES,
+    st.permutations(["k", "b10", "b9", "Z", "a", "é", "a b", "b", "", "zz", "B", "-"]),
+    st.sampled_from([NUMPY_ONLY, KERNEL_ONLY, HAND_OVER]),
+)
+def test_named_mine_is_the_id_mine_named_in_order(baskets, min_count, max_size, allowed, names, budget):
+    """Names in another order than the ids: the same itemsets and counts, in the same order."""
+    tree = tree_of(baskets).arrays()
+    mask = None if allowed is None else np.array(allowed)
+    by_id = mine_with(budget, tree, min_count, max_size=max_size, allowed=mask)
+    with numpy_budget(budget):
+        named = mine_tree_named(tree, min_count, names, max_size=max_size, allowed=mask)
+    expected = [(tuple(sorted(names[i] for i in items)), count) for items, count in by_id.items()]
+    assert list(named.items()) == expected
 
 
 def test_mining_the_bundled_example_does_not_import_numba() -> None:

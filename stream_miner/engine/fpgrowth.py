@@ -26,12 +26,14 @@ from __future__ import annotations
 
 import math
 import threading
+from collections.abc import Sequence
 from types import ModuleType
+from typing import Generic
 
 import numpy as np
 
 from stream_miner.engine.baskets import offsets
-from stream_miner.engine.growth_numpy import grow_in_numpy
+from stream_miner.engine.growth_numpy import L, grow_in_numpy
 from stream_miner.engine.limits import stop_if_set, too_many_itemsets
 from stream_miner.engine.tree import ROOT, TreeArrays, header_table, most_flagged_on_a_path
 
@@ -54,6 +56,34 @@ def mine_tree(
     ``max_itemsets`` (None: no cap) raise ``ResultTooLarge``, early; a set ``interrupt``
     raises ``MiningInterrupted``.
     """
+    return _mine(tree, min_count, None, max_size, allowed, max_itemsets, interrupt)
+
+
+def mine_tree_named(
+    tree: TreeArrays,
+    min_count: int,
+    names: Sequence[str],
+    *,
+    max_size: int | None = None,
+    allowed: np.ndarray | None = None,
+    max_itemsets: int | None = None,
+    interrupt: threading.Event | None = None,
+) -> dict[tuple[str, ...], int]:
+    """:func:`mine_tree`, with each itemset as the sorted tuple of its items' ``names``
+    (``names[i]`` is item ``i``'s, all distinct), in the same order; named as it is listed."""
+    return _mine(tree, min_count, names, max_size, allowed, max_itemsets, interrupt)
+
+
+def _mine(
+    tree: TreeArrays,
+    min_count: int,
+    names: Sequence[L] | None,
+    max_size: int | None,
+    allowed: np.ndarray | None,
+    max_itemsets: int | None,
+    interrupt: threading.Event | None,
+) -> dict[tuple[L, ...], int]:
+    """The mine of :func:`mine_tree`; itemsets of item ids (``names`` None) or of their names."""
     if min_count < 1:
         raise ValueError(f"min_count must be at least 1, got {min_count}")
     if max_size is not None and max_size < 1:
@@ -81,37 +111,62 @@ def mine_tree(
     by_tree_order = freq_items[np.argsort(rank[freq_items], kind="stable")]
     code_of = np.full(n_items, -1, dtype=np.int64)
     code_of[by_tree_order] = np.arange(by_tree_order.size)
+    labels = Labels(by_tree_order, names)
 
-    out: dict[Itemset, int] = {}
-    for code in range(by_tree_order.size):
-        out[(int(by_tree_order[code]),)] = int(item_count[by_tree_order[code]])
+    out: dict[tuple[L, ...], int] = {}
+    for code, label in enumerate(labels.of_code):
+        out[(label,)] = int(item_count[by_tree_order[code]])
     if max_size == 1:
         return out
     # the node links of the frequent items, in tree order: nodes of code c = nodes[bounds[c]:bounds[c+1]]
     links = np.diff(header.start)[by_tree_order]
     bounds = offsets(links)
     nodes = header.nodes[np.repeat(header.start[by_tree_order] - bounds[:-1], links) + np.arange(bounds[-1])]
-    start = grow_in_numpy(
-        tree,
-        code_of,
-        nodes,
-        bounds,
-        by_tree_order,
-        out,
-        min_count=min_count,
-        max_size=max_size,
-        max_itemsets=max_itemsets,
-        interrupt=interrupt,
-        budget=0 if _Growth.loaded else NUMPY_BUDGET,
-    )
+    start = 0
+    if not _Growth.loaded:
+        start = grow_in_numpy(
+            tree,
+            code_of,
+            nodes,
+            bounds,
+            labels.of_code,
+            out,
+            min_count=min_count,
+            max_size=max_size,
+            max_itemsets=max_itemsets,
+            interrupt=interrupt,
+            budget=NUMPY_BUDGET,
+        )
     if start == by_tree_order.size:
         return out
-    grown = _Growth(tree, code_of, nodes, bounds, by_tree_order)
-    items, starts, counts = grown.run(min_count, max_size, max_itemsets, len(out), start, interrupt)
-    flat = items.tolist()
-    keys = map(tuple, map(flat.__getitem__, map(slice, starts[:-1], starts[1:])))
-    out.update(zip(keys, counts, strict=True))
+    grown = _Growth(tree, code_of, nodes, bounds, labels.key_of_code)
+    keys, starts, counts = grown.run(min_count, max_size, max_itemsets, len(out), start, interrupt)
+    flat = labels.of_keys(keys)
+    itemsets = map(tuple, map(flat.__getitem__, map(slice, starts[:-1], starts[1:])))
+    out.update(zip(itemsets, counts, strict=True))
     return out
+
+
+class Labels(Generic[L]):
+    """The labels of the frequent items, by code (``of_code``), and the sort keys the compiled
+    loop orders an itemset's items by (``key_of_code``): the item ids, or the ranks of the
+    names, so that its itemsets come out sorted and are labelled with one lookup per item."""
+
+    def __init__(self, by_tree_order: np.ndarray, names: Sequence[L] | None) -> None:
+        if names is None:
+            self.of_code: list[L] = by_tree_order.tolist()
+            self.key_of_code = by_tree_order
+            self._of_key: np.ndarray | None = None
+            return
+        self.of_code = [names[i] for i in by_tree_order.tolist()]
+        order = sorted(range(len(self.of_code)), key=self.of_code.__getitem__)
+        self.key_of_code = np.empty(len(order), dtype=np.int64)
+        self.key_of_code[order] = np.arange(len(order))
+        self._of_key = np.array([self.of_code[c] for c in order], dtype=object)
+
+    def of_keys(self, keys: np.ndarray) -> list[L]:
+        """The labels of the items with these sort keys."""
+        return keys.tolist() if self._of_key is None else self._of_key[keys].tolist()
 
 
 def check_size(n_frequent: int, path_items: int, max_size: int | None, max_itemsets: int) -> None:
