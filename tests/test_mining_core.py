@@ -109,6 +109,37 @@ def test_the_itemset_cap_holds_exactly(baskets, min_count, cap, budget):
         assert mine_with(budget, tree, min_count, max_itemsets=cap) == expected
 
 
+# wider baskets over more items: bases with more frequent codes than the loop grows as bit masks
+WIDE_CASES = (
+    st.lists(st.lists(st.integers(0, 21), min_size=1, max_size=16, unique=True), min_size=1, max_size=30),
+    st.integers(1, 4),
+    st.one_of(st.none(), st.integers(2, 4)),
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(*WIDE_CASES)
+def test_wide_bases_mine_alike_in_the_loop_and_in_numpy(baskets, min_count, max_size):
+    """Bases over more than ``growth_bits.BITS`` frequent codes (grown as arrays) and below
+    (as bit masks), single paths among them: the loop lists the numpy path's itemsets in order."""
+    tree = tree_of(baskets).arrays()
+    loop = mine_with(KERNEL_ONLY, tree, min_count, max_size=max_size)
+    assert list(loop.items()) == list(mine_with(NUMPY_ONLY, tree, min_count, max_size=max_size).items())
+    if max_size is not None:
+        assert loop == frequent_itemsets(baskets, min_count, max_size)
+
+
+def test_a_dense_mine_crosses_from_arrays_to_bit_masks_in_order():
+    """20 items in 70 % of 60 baskets at a third: top bases of up to 19 frequent codes."""
+    rng = np.random.default_rng(7)
+    baskets = [[i for i in range(20) if rng.random() < 0.7] or [0] for _ in range(60)]
+    tree = tree_of(baskets).arrays()
+    loop = mine_with(KERNEL_ONLY, tree, 20)
+    assert len(loop) > 1000
+    assert loop == frequent_itemsets(baskets, 20, 6)
+    assert list(loop.items()) == list(mine_with(NUMPY_ONLY, tree, 20).items())
+
+
 @settings(max_examples=100, deadline=None)
 @given(
     *MINE_CASES,

@@ -226,7 +226,7 @@ class _Growth:
     def __init__(
         self, tree: TreeArrays, code_of: np.ndarray, nodes: np.ndarray, bounds: np.ndarray, items: np.ndarray
     ) -> None:
-        from stream_miner.engine import growth_kernel  # deferred: numba is slow to import
+        from stream_miner.engine import growth_bits, growth_kernel  # deferred: numba is slow to import
 
         self.kernel: ModuleType = growth_kernel
         n_codes = items.size
@@ -246,6 +246,13 @@ class _Growth:
             for name, group in _ARENAS
         }
         self.scratch = tuple(np.zeros(n_codes + 2, dtype=np.int64) for _ in range(5))
+        bits = growth_bits.BITS
+        self.bits = (
+            np.zeros((3, growth_bits.ROWS), dtype=np.int64),
+            np.zeros((bits + 2, growth_bits.S_COLUMNS), dtype=np.int64),
+            np.zeros(growth_bits.SCRATCH_SHAPE, dtype=np.int64),
+            np.full(1 << bits, -1, dtype=np.int64),
+        )
         out = first["out"][1]
         self.out = {name: np.zeros(out * (4 if name == "out_items" else 1), np.int64) for name in _OUT}
 
@@ -278,6 +285,7 @@ class _Growth:
                 reg,
                 *self.arenas.values(),
                 *self.scratch,
+                *self.bits,
                 *self.out.values(),
             )
             if status == kernel.DONE:
