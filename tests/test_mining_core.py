@@ -32,12 +32,13 @@ NUMPY_ONLY, KERNEL_ONLY, HAND_OVER = 10**12, 0, 3  # work budgets of the numpy p
 @contextmanager
 def numpy_budget(budget: int) -> Iterator[None]:
     """Mine with this budget of the numpy path, as in a process where the loop never ran."""
-    saved = fpgrowth.NUMPY_BUDGET, fpgrowth._Growth.loaded
-    fpgrowth.NUMPY_BUDGET, fpgrowth._Growth.loaded = budget, False
+    growth = fpgrowth._Growth
+    saved = fpgrowth.NUMPY_BUDGET, growth.loaded, growth.numpy_steps
+    fpgrowth.NUMPY_BUDGET, growth.loaded, growth.numpy_steps = budget, False, 0
     try:
         yield
     finally:
-        fpgrowth.NUMPY_BUDGET, fpgrowth._Growth.loaded = saved
+        fpgrowth.NUMPY_BUDGET, growth.loaded, growth.numpy_steps = saved
 
 
 def mine_with(budget: int, *args, **kwargs) -> dict:
@@ -155,6 +156,23 @@ def test_named_mine_is_the_id_mine_named_in_order(baskets, min_count, max_size, 
         named = mine_tree_named(tree, min_count, names, max_size=max_size, allowed=mask)
     expected = [(tuple(sorted(names[i] for i in items)), count) for items, count in by_id.items()]
     assert list(named.items()) == expected
+
+
+def test_the_numpy_budget_is_spent_over_a_processs_mines():
+    """Mines each under the budget hand over once their steps add up past it."""
+    baskets = [[i for i in range(12) if (b >> i) & 1] for b in range(1, 300, 7)]
+    tree = tree_of(baskets).arrays()
+    with numpy_budget(NUMPY_ONLY):
+        expected = list(mine_tree(tree, 2).items())
+        steps = fpgrowth._Growth.numpy_steps
+    assert steps > 4
+    with numpy_budget(steps + steps // 2):
+        first = list(mine_tree(tree, 2).items())
+        assert not fpgrowth._Growth.loaded
+        second = list(mine_tree(tree, 2).items())
+        assert fpgrowth._Growth.loaded
+        assert fpgrowth._Growth.numpy_steps < 2 * steps
+    assert first == second == expected
 
 
 def test_mining_the_bundled_example_does_not_import_numba() -> None:

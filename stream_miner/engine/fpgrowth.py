@@ -6,9 +6,9 @@ node of the item (its node links in the header table, :func:`header_table`), the
 frequent ancestors up to the root, weighted by the node's count. Deeper bases are projected
 from their parent base. Bases are held as arrays (items of all rows, row starts, row weights).
 Small mines project them with numpy (:mod:`stream_miner.engine.growth_numpy`, no compiled
-code to load); once that has spent ``NUMPY_BUDGET`` steps, the compiled loop
-(:mod:`stream_miner.engine.growth_kernel`) grows the remaining top codes, with the same
-itemsets in the same order.
+code to load); once the process has spent ``NUMPY_BUDGET`` steps there (in one mine or over
+many), the compiled loop (:mod:`stream_miner.engine.growth_kernel`) grows the remaining top
+codes, and every later mine, with the same itemsets in the same order.
 
 Items are recoded by tree order (0 = nearest the root), so every row lists its items in
 increasing code order and the conditional base of code ``j`` inside a base is, for every
@@ -123,8 +123,9 @@ def _mine(
     bounds = offsets(links)
     nodes = header.nodes[np.repeat(header.start[by_tree_order] - bounds[:-1], links) + np.arange(bounds[-1])]
     start = 0
-    if not _Growth.loaded:
-        start = grow_in_numpy(
+    budget = NUMPY_BUDGET - _Growth.numpy_steps
+    if budget > 0 and not _Growth.loaded:
+        start, spent = grow_in_numpy(
             tree,
             code_of,
             nodes,
@@ -135,8 +136,9 @@ def _mine(
             max_size=max_size,
             max_itemsets=max_itemsets,
             interrupt=interrupt,
-            budget=NUMPY_BUDGET,
+            budget=budget,
         )
+        _Growth.numpy_steps += spent
     if start == by_tree_order.size:
         return out
     grown = _Growth(tree, code_of, nodes, bounds, labels.key_of_code)
@@ -189,9 +191,10 @@ def sure_count(n_frequent: int, path_items: int, max_size: int | None) -> int:
     return n_frequent + sum(math.comb(path_items, size) for size in range(2, largest + 1))
 
 
-# steps of the numpy path (projections, or 64 itemsets of a single path; 40-90 us each) before the
-# compiled loop takes over: about what importing numba and loading the loop costs (0.75 s), so a
-# mine never takes more than about twice its best. Once the loop is loaded, it does every mine.
+# steps of the numpy path (projections, or 64 itemsets of a single path; 40-90 us each) a process
+# spends before the compiled loop takes over: about what importing numba and loading the loop
+# costs (0.75 s), so a process's mines never take more than about twice their best. Once the loop
+# is loaded, it does every mine.
 NUMPY_BUDGET = 10_000
 _WORK_PER_STEP = 1 << 20  # codes handled by the compiled loop between two interrupt checks
 # the arrays the compiled loop works in, in its argument order, by the group it enlarges together
@@ -222,6 +225,7 @@ class _Growth:
     it asks."""
 
     loaded = False  # the loop has run in this process: its start is paid
+    numpy_steps = 0  # steps the process has spent in the numpy path
 
     def __init__(
         self, tree: TreeArrays, code_of: np.ndarray, nodes: np.ndarray, bounds: np.ndarray, items: np.ndarray

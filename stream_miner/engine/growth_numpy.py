@@ -56,11 +56,11 @@ def grow_in_numpy(
     max_itemsets: int | None,
     interrupt: threading.Event | None,
     budget: int,
-) -> int:
+) -> tuple[int, int]:
     """Add to ``out`` the itemsets of two or more items of each top code in turn (the nodes
     of code ``c`` are ``nodes[bounds[c]:bounds[c + 1]]``; its item's label ``labels[c]``, an
     itemset is the sorted tuple of its labels), until about ``budget`` steps of work are
-    spent; return the first top code not grown (every code: ``len(labels)``)."""
+    spent; return the first top code not grown (every code: ``len(labels)``) and the steps spent."""
     grower = _Grower(min_count, max_size, labels, out, max_itemsets, interrupt, budget)
     first = 0
     while first < len(labels):
@@ -73,9 +73,9 @@ def grow_in_numpy(
             try:
                 grower.grow((code,), _select_rows(base, rows))
             except _OverBudget:
-                return code
+                return code, budget - grower.budget
         first = last
-    return len(labels)
+    return len(labels), budget - grower.budget
 
 
 def _ancestor_base(
