@@ -313,27 +313,24 @@ def grow(
                 reg[F_TOP] = f_info[fr, F_F_LO]
                 continue
             code = fc_code[nxt]
-            a, row = a_top, r_top
+            # the child's rows point at their prefixes in the parent's rows: nothing is copied
+            # unless the child is opened as a frame (then its frequent codes only, from a_lo on)
+            n_base, row = 0, r_top
             for o in range(fc_olo[nxt], fc_ohi[nxt]):
                 src = o_row[o]
                 begin = r_start[src]
                 length = o_pos[o] - begin
                 if length == 0:
                     continue
-                if a + length > a_codes.size:
-                    reg[NEED_WHAT], reg[NEED_SIZE] = CODES, a + length
-                    return GROW
                 if row >= r_start.size:
                     reg[NEED_WHAT], reg[NEED_SIZE] = ROWS, row + 1
                     return GROW
-                for i in range(length):
-                    a_codes[a + i] = a_codes[begin + i]
-                r_start[row], r_len[row], r_weight[row] = a, length, r_weight[src]
+                r_start[row], r_len[row], r_weight[row] = begin, length, r_weight[src]
                 r_mult[row] = r_mult[src]
-                a += length
+                n_base += length
                 row += 1
-            work += a - a_top + 1
-            r_hi, a_hi = row, a
+            work += row - r_top + 1
+            r_hi, a_hi = row, a_lo + n_base  # a_hi - a_lo: the codes of the base
             if r_hi == r_lo:  # no row holds a code before this one
                 f_info[fr, F_NEXT] = nxt - 1
                 continue
@@ -402,6 +399,8 @@ def grow(
                     status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, OUT_ITEMS, i_top + n_more * width
                 elif deeper and o_top + (a_hi - a_lo) > o_row.size:
                     status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, CODES, o_top + (a_hi - a_lo)
+                elif deeper and a_hi > a_codes.size:
+                    status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, CODES, a_hi
                 elif deeper and f_top + nf > fc_code.size:
                     status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, FREQUENT, f_top + nf
                 elif deeper and new_depth > f_info.shape[0]:
@@ -429,7 +428,8 @@ def grow(
                             status = TOO_MANY
                             reg[FOUND] = emitted_before + n_out
                     elif deeper:
-                        # drop the infrequent codes in place; list each frequent code's occurrences
+                        # keep the frequent codes (a child's rows are copied off the parent's here, a top
+                        # base's in place); list each frequent code's occurrences
                         for t in range(nf):
                             fc_code[f_top + t] = touched[t]
                             fc_ohi[f_top + t] = 0
