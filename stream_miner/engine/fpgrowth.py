@@ -143,9 +143,7 @@ def _mine(
         return out
     grown = _Growth(tree, code_of, nodes, bounds, labels.key_of_code)
     keys, starts, counts = grown.run(min_count, max_size, max_itemsets, len(out), start, interrupt)
-    flat = labels.of_keys(keys)
-    itemsets = map(tuple, map(flat.__getitem__, map(slice, starts[:-1], starts[1:])))
-    out.update(zip(itemsets, counts, strict=True))
+    out.update(zip(labels.itemsets(keys, starts), counts, strict=True))
     return out
 
 
@@ -166,9 +164,18 @@ class Labels(Generic[L]):
         self.key_of_code[order] = np.arange(len(order))
         self._of_key = np.array([self.of_code[c] for c in order], dtype=object)
 
-    def of_keys(self, keys: np.ndarray) -> list[L]:
-        """The labels of the items with these sort keys."""
-        return keys.tolist() if self._of_key is None else self._of_key[keys].tolist()
+    def itemsets(self, keys: np.ndarray, starts: np.ndarray) -> list[tuple[L, ...]]:
+        """Itemset ``i`` (items with sort keys ``keys[starts[i]:starts[i + 1]]``) as a tuple of
+        labels, for every ``i``: built a size at a time, from a column of labels per position."""
+        flat = keys if self._of_key is None else self._of_key[keys]
+        sizes = np.diff(starts)
+        found = np.empty(sizes.size, dtype=object)
+        for size in np.unique(sizes).tolist():
+            which = np.flatnonzero(sizes == size)
+            first = starts[which]
+            columns = [flat[first + j].tolist() for j in range(size)]
+            found[which] = np.fromiter(zip(*columns, strict=True), dtype=object, count=which.size)
+        return found.tolist()
 
 
 def check_size(n_frequent: int, path_items: int, max_size: int | None, max_itemsets: int) -> None:
@@ -268,7 +275,7 @@ class _Growth:
         emitted_before: int,
         first_code: int,
         interrupt: threading.Event | None,
-    ) -> tuple[np.ndarray, list[int], list[int]]:
+    ) -> tuple[np.ndarray, np.ndarray, list[int]]:
         """Every itemset of two or more items whose largest code is ``first_code`` or more:
         their sorted item ids, end to end, where each one starts (and the end), and their
         counts, in the order found."""
@@ -308,7 +315,7 @@ class _Growth:
         n = int(reg[kernel.N_OUT])
         return (
             self.out["out_items"][: reg[kernel.I_TOP]],
-            self.out["out_start"][: n + 1].tolist(),
+            self.out["out_start"][: n + 1],
             self.out["out_count"][:n].tolist(),
         )
 
