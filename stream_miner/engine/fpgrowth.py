@@ -6,9 +6,10 @@ node of the item (its node links in the header table, :func:`header_table`), the
 frequent ancestors up to the root, weighted by the node's count. Deeper bases are projected
 from their parent base. Bases are held as arrays (items of all rows, row starts, row weights).
 Small mines project them with numpy (:mod:`stream_miner.engine.growth_numpy`, no compiled
-code to load); once the process has spent ``NUMPY_BUDGET`` steps there (in one mine or over
-many), the compiled loop (:mod:`stream_miner.engine.growth_kernel`) grows the remaining top
-codes, and every later mine, with the same itemsets in the same order.
+code to load); once a mine has spent ``NUMPY_BUDGET`` steps there, the compiled loop
+(:mod:`stream_miner.engine.growth_kernel`) grows the remaining top codes, with the same
+itemsets in the same order, and once the process's mines have spent that many together, the
+loop does every later mine from its start (so the loop loads between polls of ``interrupt``).
 
 Items are recoded by tree order (0 = nearest the root), so every row lists its items in
 increasing code order and the conditional base of code ``j`` inside a base is, for every
@@ -123,8 +124,7 @@ def _mine(
     bounds = offsets(links)
     nodes = header.nodes[np.repeat(header.start[by_tree_order] - bounds[:-1], links) + np.arange(bounds[-1])]
     start = 0
-    budget = NUMPY_BUDGET - _Growth.numpy_steps
-    if budget > 0 and not _Growth.loaded:
+    if _Growth.numpy_steps < NUMPY_BUDGET and not _Growth.loaded:
         start, spent = grow_in_numpy(
             tree,
             code_of,
@@ -136,7 +136,7 @@ def _mine(
             max_size=max_size,
             max_itemsets=max_itemsets,
             interrupt=interrupt,
-            budget=budget,
+            budget=NUMPY_BUDGET,
         )
         _Growth.numpy_steps += spent
     if start == by_tree_order.size:
@@ -198,10 +198,10 @@ def sure_count(n_frequent: int, path_items: int, max_size: int | None) -> int:
     return n_frequent + sum(math.comb(path_items, size) for size in range(2, largest + 1))
 
 
-# steps of the numpy path (projections, or 64 itemsets of a single path; 40-90 us each) a process
-# spends before the compiled loop takes over: about what importing numba and loading the loop
-# costs (0.75 s), so a process's mines never take more than about twice their best. Once the loop
-# is loaded, it does every mine.
+# steps of the numpy path (projections, or 64 itemsets of a single path; 40-90 us each) a mine, or
+# the process's mines together, spend before the compiled loop takes over: about what importing
+# numba and loading the loop costs (0.75 s), so mines never take more than about twice their best.
+# Once the loop is loaded, it does every mine.
 NUMPY_BUDGET = 10_000
 _WORK_PER_STEP = 1 << 20  # codes handled by the compiled loop between two interrupt checks
 # the arrays the compiled loop works in, in its argument order, by the group it enlarges together
