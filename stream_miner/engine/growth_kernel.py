@@ -22,6 +22,8 @@ from __future__ import annotations
 
 from numba import njit
 
+from stream_miner.engine.growth_bits import BITS, K_KEY, grow_bits
+
 DONE, PAUSED, GROW, TOO_MANY = 0, 1, 2, 3
 # registers
 DEPTH, A_TOP, R_TOP, O_TOP, F_TOP, NEXT_TOP, N_OUT, I_TOP, NEED_WHAT, NEED_SIZE, FOUND = range(11)
@@ -124,6 +126,44 @@ def _merge_rows(a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, table):
 
 
 @njit(cache=True, nogil=True)
+def _grow_small(
+    a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, counts, local, touched, nf, items_of_code,
+    depth, min_count, max_size, buf, bit_rows, bit_frames, bit_scratch, bit_slot, extra, out_items,
+    out_start, out_count, n_out, i_top,
+):  # fmt: skip
+    """Hand the opened base of rows ``r_lo..r_hi`` (``nf`` frequent codes, ``touched[:nf]``,
+    at most ``BITS``) to :func:`stream_miner.engine.growth_bits.grow_bits` as masks, equal
+    ones merged; returns ``(n_out, i_top, work)``."""
+    masks, weights, mults = bit_rows[0], bit_rows[1], bit_rows[2]
+    n = 0
+    for r in range(r_lo, r_hi):
+        m = 0
+        for i in range(r_start[r], r_start[r] + r_len[r]):
+            c = a_codes[i]
+            if counts[c] >= min_count:
+                m |= 1 << local[c]
+        if m == 0:
+            continue
+        q = bit_slot[m]
+        if q >= 0:
+            weights[q] += r_weight[r]
+            mults[q] += r_mult[r]
+        else:
+            bit_slot[m] = n
+            masks[n], weights[n], mults[n] = m, r_weight[r], r_mult[r]
+            n += 1
+    for r in range(n):
+        bit_slot[masks[r]] = -1
+    for t in range(nf):
+        bit_scratch[K_KEY, t] = items_of_code[touched[t]]
+    n_out, i_top, work = grow_bits(
+        masks, weights, mults, n, nf, (1 << nf) - 1, depth, min_count, max_size, buf, depth, bit_frames,
+        bit_scratch, bit_slot, extra, out_items, out_start, out_count, n_out, i_top,
+    )  # fmt: skip
+    return n_out, i_top, work + r_hi - r_lo
+
+
+@njit(cache=True, nogil=True)
 def grow(
     parent,
     node_count,
@@ -155,6 +195,10 @@ def grow(
     local,
     buf,
     extra,
+    bit_rows,
+    bit_frames,
+    bit_scratch,
+    bit_slot,
     out_items,
     out_start,
     out_count,
@@ -269,27 +313,24 @@ def grow(
                 reg[F_TOP] = f_info[fr, F_F_LO]
                 continue
             code = fc_code[nxt]
-            a, row = a_top, r_top
+            # the child's rows point at their prefixes in the parent's rows: nothing is copied
+            # unless the child is opened as a frame (then its frequent codes only, from a_lo on)
+            n_base, row = 0, r_top
             for o in range(fc_olo[nxt], fc_ohi[nxt]):
                 src = o_row[o]
                 begin = r_start[src]
                 length = o_pos[o] - begin
                 if length == 0:
                     continue
-                if a + length > a_codes.size:
-                    reg[NEED_WHAT], reg[NEED_SIZE] = CODES, a + length
-                    return GROW
                 if row >= r_start.size:
                     reg[NEED_WHAT], reg[NEED_SIZE] = ROWS, row + 1
                     return GROW
-                for i in range(length):
-                    a_codes[a + i] = a_codes[begin + i]
-                r_start[row], r_len[row], r_weight[row] = a, length, r_weight[src]
+                r_start[row], r_len[row], r_weight[row] = begin, length, r_weight[src]
                 r_mult[row] = r_mult[src]
-                a += length
+                n_base += length
                 row += 1
-            work += a - a_top + 1
-            r_hi, a_hi = row, a
+            work += row - r_top + 1
+            r_hi, a_hi = row, a_lo + n_base  # a_hi - a_lo: the codes of the base
             if r_hi == r_lo:  # no row holds a code before this one
                 f_info[fr, F_NEXT] = nxt - 1
                 continue
@@ -345,15 +386,21 @@ def grow(
                     counts[touched[t]] = 0
             elif nf > 0:
                 deeper = max_size == 0 or new_depth + 1 < max_size
+                small = deeper and nf <= BITS  # its whole subtree is grown as bit masks
+                n_more = nf + (1 << nf) if small else nf  # at most, with their widest
+                width = new_depth + nf + 1 if small else new_depth + 1
+                deeper = deeper and not small
                 if cap >= 0 and emitted_before + n_out + nf > cap:
                     status = TOO_MANY
                     reg[FOUND] = emitted_before + n_out + nf
-                elif n_out + nf + 1 > out_count.size:
-                    status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, OUT, n_out + nf + 1
-                elif i_top + nf * (new_depth + 1) > out_items.size:
-                    status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, OUT_ITEMS, i_top + nf * (new_depth + 1)
+                elif n_out + n_more + 1 > out_count.size:
+                    status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, OUT, n_out + n_more + 1
+                elif i_top + n_more * width > out_items.size:
+                    status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, OUT_ITEMS, i_top + n_more * width
                 elif deeper and o_top + (a_hi - a_lo) > o_row.size:
                     status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, CODES, o_top + (a_hi - a_lo)
+                elif deeper and a_hi > a_codes.size:
+                    status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, CODES, a_hi
                 elif deeper and f_top + nf > fc_code.size:
                     status, reg[NEED_WHAT], reg[NEED_SIZE] = GROW, FREQUENT, f_top + nf
                 elif deeper and new_depth > f_info.shape[0]:
@@ -369,8 +416,20 @@ def grow(
                         out_count[n_out] = counts[touched[t]]
                         n_out += 1
                     out_start[n_out] = i_top
-                    if deeper:
-                        # drop the infrequent codes in place; list each frequent code's occurrences
+                    status = EMITTED
+                    if small:
+                        n_out, i_top, spent = _grow_small(
+                            a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, counts, local, touched, nf,
+                            items_of_code, new_depth, min_count, max_size, buf, bit_rows, bit_frames,
+                            bit_scratch, bit_slot, extra, out_items, out_start, out_count, n_out, i_top,
+                        )  # fmt: skip
+                        work += spent
+                        if cap >= 0 and emitted_before + n_out > cap:
+                            status = TOO_MANY
+                            reg[FOUND] = emitted_before + n_out
+                    elif deeper:
+                        # keep the frequent codes (a child's rows are copied off the parent's here, a top
+                        # base's in place); list each frequent code's occurrences
                         for t in range(nf):
                             fc_code[f_top + t] = touched[t]
                             fc_ohi[f_top + t] = 0
@@ -405,8 +464,6 @@ def grow(
                         o_top = at
                         a_top, r_top, f_top = a, r_hi, f_top + nf
                         status = OPENED
-                    else:
-                        status = EMITTED
                 for t in range(nf):
                     counts[touched[t]] = 0
         if status == TOO_MANY:

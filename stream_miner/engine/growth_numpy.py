@@ -13,8 +13,10 @@ from __future__ import annotations
 
 import math
 import threading
+from collections.abc import Sequence
 from dataclasses import dataclass
 from itertools import combinations
+from typing import Generic, TypeVar
 
 import numpy as np
 
@@ -22,7 +24,7 @@ from stream_miner.engine.baskets import offsets
 from stream_miner.engine.limits import stop_if_set, too_many_itemsets
 from stream_miner.engine.tree import ROOT, TreeArrays
 
-Itemset = tuple[int, ...]
+L = TypeVar("L", int, str)  # an item label: its id or its name
 
 _ROWS_PER_BLOCK = 1 << 20
 _LISTED_PER_STEP = 64  # itemsets of a single path listed per step of work (and interrupt check)
@@ -46,23 +48,24 @@ def grow_in_numpy(
     code_of: np.ndarray,
     nodes: np.ndarray,
     bounds: np.ndarray,
-    by_tree_order: np.ndarray,
-    out: dict[Itemset, int],
+    labels: Sequence[L],
+    out: dict[tuple[L, ...], int],
     *,
     min_count: int,
     max_size: int | None,
     max_itemsets: int | None,
     interrupt: threading.Event | None,
     budget: int,
-) -> int:
+) -> tuple[int, int]:
     """Add to ``out`` the itemsets of two or more items of each top code in turn (the nodes
-    of code ``c`` are ``nodes[bounds[c]:bounds[c + 1]]``), until about ``budget`` steps of
-    work are spent; return the first top code not grown (every code: ``by_tree_order.size``)."""
-    grower = _Grower(min_count, max_size, by_tree_order, out, max_itemsets, interrupt, budget)
+    of code ``c`` are ``nodes[bounds[c]:bounds[c + 1]]``; its item's label ``labels[c]``, an
+    itemset is the sorted tuple of its labels), until about ``budget`` steps of work are
+    spent; return the first top code not grown (every code: ``len(labels)``) and the steps spent."""
+    grower = _Grower(min_count, max_size, labels, out, max_itemsets, interrupt, budget)
     first = 0
-    while first < by_tree_order.size:
+    while first < len(labels):
         last = first + 1
-        while last < by_tree_order.size and bounds[last + 1] - bounds[first] <= _ROWS_PER_BLOCK:
+        while last < len(labels) and bounds[last + 1] - bounds[first] <= _ROWS_PER_BLOCK:
             last += 1
         base = _ancestor_base(tree, nodes[bounds[first] : bounds[last]], code_of, interrupt)
         for code in range(first, last):
@@ -70,9 +73,9 @@ def grow_in_numpy(
             try:
                 grower.grow((code,), _select_rows(base, rows))
             except _OverBudget:
-                return code
+                return code, budget - grower.budget
         first = last
-    return by_tree_order.size
+    return len(labels), budget - grower.budget
 
 
 def _ancestor_base(
@@ -112,31 +115,31 @@ def _select_rows(base: _Base, rows: np.ndarray) -> _Base:
     )
 
 
-class _Grower:
+class _Grower(Generic[L]):
     """Depth-first FP-growth over array-held conditional pattern bases, one top code at a time."""
 
     def __init__(
         self,
         min_count: int,
         max_size: int | None,
-        items: np.ndarray,
-        out: dict[Itemset, int],
+        labels: Sequence[L],
+        out: dict[tuple[L, ...], int],
         max_itemsets: int | None,
         interrupt: threading.Event | None,
         budget: int,
     ) -> None:
         self.min_count = min_count
         self.max_size = max_size
-        self.items = items.tolist()
-        self.out = out
-        self.pending: dict[Itemset, int] = {}
+        self.labels: Sequence[L] = labels
+        self.out: dict[tuple[L, ...], int] = out
+        self.pending: dict[tuple[L, ...], int] = {}
         self.max_itemsets = max_itemsets
         self.interrupt = interrupt
         self.budget = budget
 
-    def itemset(self, codes: tuple[int, ...]) -> Itemset:
-        items = self.items
-        return tuple(sorted(items[c] for c in codes))
+    def itemset(self, codes: tuple[int, ...]) -> tuple[L, ...]:
+        labels = self.labels
+        return tuple(sorted(labels[c] for c in codes))
 
     def grow(self, suffix: tuple[int, ...], base: _Base) -> None:
         """Add every frequent extension of ``suffix`` found in ``base`` to the output, all or

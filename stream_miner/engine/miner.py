@@ -24,7 +24,7 @@ import numpy as np
 from stream_miner.engine.baskets import BasketArrays
 from stream_miner.engine.counting import count_itemsets
 from stream_miner.engine.delta import ResultDelta, diff_results
-from stream_miner.engine.fpgrowth import Itemset, check_size, mine_tree
+from stream_miner.engine.fpgrowth import Itemset, check_size, mine_tree_named
 from stream_miner.engine.hygiene import BasketPolicy, Verdict
 from stream_miner.engine.limits import stop_if_set
 from stream_miner.engine.params import MiningParams
@@ -366,7 +366,7 @@ class WindowMiner:
         names = self.vocabulary.names()
         min_count = params.threshold(len(self.store))
         found = self._mine_tree(params, names, min_count, interrupt)
-        return self._result(found, min_count, params, names, interrupt)
+        return self._result(found, min_count, params, interrupt)
 
     def oldest_tag(self) -> int | None:
         """The origin tag of the oldest basket in the window (None: empty or untagged)."""
@@ -419,10 +419,11 @@ class WindowMiner:
 
     def _mine_tree(
         self, params: MiningParams, names: Sequence[str], min_count: int, interrupt: threading.Event | None
-    ) -> dict[Itemset, int]:
-        return mine_tree(
+    ) -> dict[tuple[str, ...], int]:
+        return mine_tree_named(
             self._tree_up_to_date().arrays(),
             min_count,
+            names,
             max_size=params.max_size,
             allowed=self._allowed_mask(params, names),
             max_itemsets=params.max_itemsets,
@@ -464,8 +465,9 @@ class WindowMiner:
         started = time.perf_counter()
         if tracking:
             starting = self._tracker is None
-            found = self._track(params, names, min_count, interrupt)  # None: too many items to track
-            if found is not None:
+            tracked = self._track(params, names, min_count, interrupt)  # None: too many items to track
+            if tracked is not None:
+                found = self._name(tracked, names)
                 self._tree_behind = True
                 keep = self._chooser.tracked_tick(time.perf_counter() - started, starting)
                 if refresh == Refresh.ADAPTIVE and not keep:
@@ -477,7 +479,7 @@ class WindowMiner:
             started = time.perf_counter()
             found = self._mine_tree(params, names, min_count, interrupt)
             self._chooser.full_mined(time.perf_counter() - started, upkeep)
-        result = self._result(found, min_count, params, names, interrupt)
+        result = self._result(found, min_count, params, interrupt)
         tick = Tick(self._ticks, result, diff_results(self._last, result))
         stop_if_set(interrupt)  # an abandoned tick must not count: its caller has moved on
         if not defer:
@@ -551,21 +553,24 @@ class WindowMiner:
         path_items = self.tree.most_flagged_path(min_count, frequent)
         check_size(int(frequent.sum()), path_items, max_size, max_itemsets)
 
-    def _result(
-        self,
-        found: dict[Itemset, int],
-        min_count: int,
-        params: MiningParams,
-        names: Sequence[str],
-        interrupt: threading.Event | None,
-    ) -> MiningResult:
-        n = len(self.store)
+    def _name(self, found: dict[Itemset, int], names: Sequence[str]) -> dict[tuple[str, ...], int]:
+        """The tracker's itemsets of item ids as sorted tuples of names, through a cache of the
+        recent ticks' names (a tracked tick mostly finds the itemsets of the previous one)."""
         if len(self._named) > 4 * len(found) + 4096:
             self._named = {}
         named = self._named
         for items in found.keys() - named.keys():
             named[items] = tuple(sorted(names[i] for i in items))
-        itemsets = {named[items]: count for items, count in found.items()}
+        return {named[items]: count for items, count in found.items()}
+
+    def _result(
+        self,
+        itemsets: dict[tuple[str, ...], int],
+        min_count: int,
+        params: MiningParams,
+        interrupt: threading.Event | None,
+    ) -> MiningResult:
+        n = len(self.store)
         rules = [] if params.rules is None else generate_rules(itemsets, n, params.rules, interrupt=interrupt)
         return MiningResult(n_baskets=n, min_count=min_count, itemsets=itemsets, rules=rules)
 
