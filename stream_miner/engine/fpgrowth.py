@@ -147,6 +147,12 @@ def _mine(
     return out
 
 
+def use_compiled_loop() -> None:
+    """Let the compiled loop do every mine from now on (see
+    :func:`~stream_miner.engine.compiled_start.load_compiled_loops`)."""
+    _Growth.numpy_steps = max(_Growth.numpy_steps, NUMPY_BUDGET)
+
+
 class Labels(Generic[L]):
     """The labels of the frequent items, by code (``of_code``), and the sort keys the compiled
     loop orders an itemset's items by (``key_of_code``): the item ids, or the ranks of the

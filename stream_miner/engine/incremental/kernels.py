@@ -27,11 +27,19 @@ _lock = threading.Lock()
 
 def compiled(loop: Callable[..., Any]) -> Callable[..., Any]:
     """``loop`` compiled by numba (nopython mode, GIL released), compiled once per process."""
-    if loop not in _compiled:
-        from numba import njit  # deferred: only long incremental runs need it
+    with _lock:
+        if loop not in _compiled:
+            from numba import njit  # deferred: only long incremental runs need it
 
-        _compiled[loop] = njit(cache=True, nogil=True)(loop)
-    return _compiled[loop]
+            _compiled[loop] = njit(cache=True, nogil=True)(loop)
+        return _compiled[loop]
+
+
+def use_compiled() -> None:
+    """Use the compiled loops from now on (see
+    :func:`~stream_miner.engine.compiled_start.load_compiled_loops`)."""
+    with _lock:
+        _numpy_seconds[0] = max(_numpy_seconds[0], COMPILE_AFTER)
 
 
 def run(loop: Callable[..., Any], *args: Any) -> Any:
