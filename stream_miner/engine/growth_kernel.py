@@ -126,22 +126,66 @@ def _merge_rows(a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, table):
 
 
 @njit(cache=True, nogil=True)
+def _count(
+    a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, n_base, code, min_count, counts, touched, local
+):
+    """Count the codes of the base of ``code`` (rows ``r_lo..r_hi``, ``n_base`` codes), all below
+    ``code``; list its frequent ones in ``touched`` in order (``local``: their places), clear
+    the others' counts. Returns (the base's rows before any were merged, its frequent codes)."""
+    n_rows = 0
+    nf = 0
+    if n_base >= code:  # a wide base: count without tracking, then read the codes below off in order
+        for r in range(r_lo, r_hi):
+            n_rows += r_mult[r]
+            w = r_weight[r]
+            for i in range(r_start[r], r_start[r] + r_len[r]):
+                counts[a_codes[i]] += w
+        for c in range(code):
+            if counts[c] >= min_count:
+                touched[nf] = c
+                local[c] = nf
+                nf += 1
+            else:
+                counts[c] = 0
+        return n_rows, nf
+    nt = 0
+    for r in range(r_lo, r_hi):
+        n_rows += r_mult[r]
+        w = r_weight[r]
+        for i in range(r_start[r], r_start[r] + r_len[r]):
+            c = a_codes[i]
+            if counts[c] == 0:
+                touched[nt] = c
+                nt += 1
+            counts[c] += w
+    touched[:nt].sort()
+    for t in range(nt):
+        if counts[touched[t]] >= min_count:
+            touched[nf] = touched[t]
+            local[touched[t]] = nf
+            nf += 1
+        else:
+            counts[touched[t]] = 0
+    return n_rows, nf
+
+
+@njit(cache=True, nogil=True)
 def _grow_small(
-    a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, counts, local, touched, nf, items_of_code,
-    depth, min_count, max_size, buf, bit_rows, bit_frames, bit_scratch, bit_slot, extra, out_items,
+    a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, counts, touched, nf, items_of_code, depth,
+    min_count, max_size, buf, bit_rows, bit_frames, bit_scratch, bit_slot, extra, out_items,
     out_start, out_count, n_out, i_top,
 ):  # fmt: skip
     """Hand the opened base of rows ``r_lo..r_hi`` (``nf`` frequent codes, ``touched[:nf]``,
     at most ``BITS``) to :func:`stream_miner.engine.growth_bits.grow_bits` as masks, equal
     ones merged; returns ``(n_out, i_top, work)``."""
     masks, weights, mults = bit_rows[0], bit_rows[1], bit_rows[2]
+    for t in range(nf):  # the codes' bits, in place of their counts (the caller clears them)
+        counts[touched[t]] = 1 << t
     n = 0
     for r in range(r_lo, r_hi):
         m = 0
         for i in range(r_start[r], r_start[r] + r_len[r]):
-            c = a_codes[i]
-            if counts[c] >= min_count:
-                m |= 1 << local[c]
+            m |= counts[a_codes[i]]
         if m == 0:
             continue
         q = bit_slot[m]
@@ -339,27 +383,11 @@ def grow(
         if a_hi == a_lo:
             status = NOTHING
         else:
-            nt = 0
-            n_rows = 0  # the base's rows before any were merged
-            for r in range(r_lo, r_hi):
-                n_rows += r_mult[r]
-                w = r_weight[r]
-                for i in range(r_start[r], r_start[r] + r_len[r]):
-                    c = a_codes[i]
-                    if counts[c] == 0:
-                        touched[nt] = c
-                        nt += 1
-                    counts[c] += w
-            work += a_hi - a_lo
-            touched[:nt].sort()
-            nf = 0
-            for t in range(nt):
-                if counts[touched[t]] >= min_count:
-                    touched[nf] = touched[t]
-                    local[touched[t]] = nf
-                    nf += 1
-                else:
-                    counts[touched[t]] = 0
+            n_rows, nf = _count(
+                a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, a_hi - a_lo, code, min_count, counts,
+                touched, local,
+            )  # fmt: skip
+            work += a_hi - a_lo + min(a_hi - a_lo, code)
             status = NOTHING
             if nf > 0 and n_rows == 1:
                 room = nf if max_size == 0 else min(nf, max_size - new_depth)
@@ -419,7 +447,7 @@ def grow(
                     status = EMITTED
                     if small:
                         n_out, i_top, spent = _grow_small(
-                            a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, counts, local, touched, nf,
+                            a_codes, r_start, r_len, r_weight, r_mult, r_lo, r_hi, counts, touched, nf,
                             items_of_code, new_depth, min_count, max_size, buf, bit_rows, bit_frames,
                             bit_scratch, bit_slot, extra, out_items, out_start, out_count, n_out, i_top,
                         )  # fmt: skip
