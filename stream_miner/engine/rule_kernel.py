@@ -75,11 +75,62 @@ def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
 
 
 @njit(cache=True, nogil=True)
+def _below(mask: int, p: int) -> int:
+    """The number of positions of ``mask`` below position ``p``."""
+    rest, count = mask & ((1 << p) - 1), 0
+    while rest:
+        rest &= rest - 1
+        count += 1
+    return count
+
+
+@njit(cache=True, nogil=True)
+def _position(bit: int) -> int:
+    p = 0
+    while bit > 1:
+        bit >>= 1
+        p += 1
+    return p
+
+
+@njit(cache=True, nogil=True)
+def _subset(
+    m: int,
+    full: int,
+    lo: int,
+    items: np.ndarray,
+    start: np.ndarray,
+    drop: np.ndarray,
+    single: np.ndarray,
+    index: np.ndarray,
+    path: np.ndarray,
+) -> int:
+    """The index of the subset ``m`` (a mask of positions) of the itemset whose items start at
+    ``lo``: up from ``m`` (adding its lowest missing position) to a known mask, then down."""
+    cur, depth = m, 0
+    while index[cur] < 0:
+        if cur & (cur - 1) == 0:
+            index[cur] = single[items[lo + _position(cur)]]
+            break
+        path[depth] = cur
+        depth += 1
+        missing = ~cur & full
+        cur |= missing & -missing
+    while depth > 0:
+        depth -= 1
+        sub = path[depth]
+        index[sub] = drop[start[index[cur]] + _below(cur, _position(cur ^ sub))]
+        cur = sub
+    return index[m]
+
+
+@njit(cache=True, nogil=True)
 def split_loop(
     items: np.ndarray,
     start: np.ndarray,
     counts: np.ndarray,
     drop: np.ndarray,
+    single: np.ndarray,
     patterns: np.ndarray,
     pattern_start: np.ndarray,
     left: np.ndarray,
@@ -91,11 +142,20 @@ def split_loop(
     """Write (itemset, antecedent, consequent) rows into ``out`` from itemset ``state[0]`` at
     row ``state[1]``, at most ``state[2]`` itemsets a call; past ``state[3]`` rows (-1: no cap)
     stop with TOO_MANY. ``thresholds``: window size, confidence numerator and denominator, lift
-    numerator and denominator (0, 0: no lift). ``left``/``right``: the items allowed per side."""
-    n, conf_num, conf_den, lift_num, lift_den = thresholds
+    numerator and denominator (0, 0: no lift), largest consequent. ``left``/``right``: the items
+    allowed per side; ``single``: the index of each item's itemset.
+
+    Confident antecedents are found consequent size by consequent size (a smaller antecedent
+    has a count at least as large, so it is confident only if every one-larger antecedent is);
+    the rest of each itemset's patterns is skipped without a look-up."""
+    n, conf_num, conf_den, lift_num, lift_den, largest_consequent = thresholds
     x, row, cap = state[0], state[1], state[3]
     stop = min(start.size - 1, x + state[2])
-    index = np.empty(1 << (pattern_start.size - 2), dtype=np.int64)
+    masks = 1 << (pattern_start.size - 2)
+    index = np.full(masks, -1, dtype=np.int64)
+    confident = np.zeros(masks, dtype=np.bool_)
+    queue = np.empty(masks, dtype=np.int64)
+    path = np.empty(pattern_start.size, dtype=np.int64)
     while x < stop:
         lo, s = start[x], start[x + 1] - start[x]
         first, last = pattern_start[s], pattern_start[s + 1]
@@ -107,34 +167,60 @@ def split_loop(
             return GROW
         full = (1 << s) - 1
         index[full] = x
-        for m in range(full - 1, 0, -1):  # each mask from one a position larger
-            p = 0
-            while (m >> p) & 1:
-                p += 1
-            bigger = m | (1 << p)
-            rank = 0
-            for q in range(p):
-                rank += (bigger >> q) & 1
-            index[m] = drop[start[index[bigger]] + rank]
+        k = counts[x]
+        tail = 0
+        for p in range(s):  # consequents of one item
+            m = full ^ (1 << p)
+            a = drop[lo + p]
+            index[m] = a
+            if k * conf_den >= conf_num * counts[a]:
+                confident[m] = True
+                queue[tail] = m
+                tail += 1
+        head = 0
+        while head < tail:  # a consequent one larger: add a position above the largest
+            m = queue[head]
+            head += 1
+            c = full ^ m
+            if _below(c, s) >= largest_consequent:
+                continue
+            for p in range(_position(c) + 1, s):
+                smaller = m ^ (1 << p)
+                if smaller == 0:
+                    continue
+                rest, every = c, True
+                while rest:
+                    q = rest & -rest
+                    rest ^= q
+                    if not confident[smaller | q]:
+                        every = False
+                        break
+                if not every:
+                    continue
+                a = drop[start[index[m]] + _below(m, p)]
+                index[smaller] = a
+                if k * conf_den >= conf_num * counts[a]:
+                    confident[smaller] = True
+                    queue[tail] = smaller
+                    tail += 1
         lefts, rights = 0, 0
         for p in range(s):
             if left[items[lo + p]]:
                 lefts |= 1 << p
             if right[items[lo + p]]:
                 rights |= 1 << p
-        k = counts[x]
         for t in range(first, last):
             m = patterns[t]
-            if m & ~lefts or (full ^ m) & ~rights:
+            if not confident[m] or m & ~lefts or (full ^ m) & ~rights:
                 continue
             a = index[m]
-            if k * conf_den < conf_num * counts[a]:
-                continue
-            c = index[full ^ m]
+            c = _subset(full ^ m, full, lo, items, start, drop, single, index, path)
             if lift_den != 0 and k * n * lift_den < lift_num * counts[a] * counts[c]:
                 continue
             out[row, 0], out[row, 1], out[row, 2] = x, a, c
             row += 1
+        index[: full + 1] = -1
+        confident[: full + 1] = False
         x += 1
         if cap >= 0 and row > cap:
             state[0], state[1] = x, row

@@ -122,25 +122,24 @@ def _compiled_splits(
     np.cumsum(lengths, out=start[1:])
     items = np.fromiter(map(id_of.__getitem__, chain.from_iterable(keys)), np.int64, int(start[-1]))
     largest = int(lengths.max(initial=1))
-    masks = [np.zeros(0, dtype=np.int64)] * 2
-    for size in range(2, largest + 1):
-        rows = [row for _, ante, _ in _patterns(size, f) for row in ante.tolist()]
-        masks.append(np.array([sum(1 << p for p in row) for row in rows], dtype=np.int64))
-    pattern_start = np.zeros(largest + 2, dtype=np.int64)
-    np.cumsum([len(m) for m in masks], out=pattern_start[1:])
+    patterns, pattern_start = _pattern_masks(largest, f.max_antecedent, f.max_consequent)
+    single = np.full(len(id_of), -1, dtype=np.int64)
+    ones = np.flatnonzero(lengths == 1)
+    single[items[start[ones]]] = ones
     everything = np.ones(len(id_of), dtype=bool)
     left = _mask(f.antecedent_items, id_of, len(id_of))
     right = _mask(f.consequent_items, id_of, len(id_of))
     lift = (0, 0) if f.min_lift is None else (f.min_lift.numerator, f.min_lift.denominator)
     confidence = (f.min_confidence.numerator, f.min_confidence.denominator)
-    thresholds = np.array([n_baskets, *confidence, *lift], dtype=np.int64)
+    largest_consequent = largest if f.max_consequent is None else f.max_consequent
+    thresholds = np.array([n_baskets, *confidence, *lift, largest_consequent], dtype=np.int64)
     cap = -1 if f.max_total is None else f.max_total
     state = np.array([0, 0, KERNEL_ITEMSETS, cap], dtype=np.int64)
     out = np.empty((1024, 3), dtype=np.int64)
     drop = subsets_one_smaller(items, start)
     if (drop[np.repeat(lengths >= 2, lengths)] < 0).any():
         raise ValueError("the itemsets are not downward closed: a subset of one is missing")
-    arrays = (items, start, counts, drop, np.concatenate(masks), pattern_start)
+    arrays = (items, start, counts, drop, single, patterns, pattern_start)
     sides = (everything if left is None else left, everything if right is None else right)
     while True:
         stop_if_set(interrupt)
@@ -153,6 +152,25 @@ def _compiled_splits(
             out = np.concatenate([out, np.empty_like(out)])
     row = int(state[1])
     return out[:row, 0].copy(), out[:row, 1].copy(), out[:row, 2].copy()
+
+
+@lru_cache(maxsize=16)
+def _pattern_masks(
+    largest: int, max_antecedent: int | None, max_consequent: int | None
+) -> tuple[np.ndarray, np.ndarray]:
+    """The split patterns of every size up to ``largest`` as masks of antecedent positions, in
+    output order, and where each size's start (size ``s``: ``masks[start[s]:start[s + 1]]``)."""
+    masks = [np.zeros(0, dtype=np.int64)] * 2
+    for size in range(2, largest + 1):
+        rows = [
+            row for _, ante, _ in _patterns_of(size, max_antecedent, max_consequent) for row in ante.tolist()
+        ]
+        masks.append(np.array([sum(1 << p for p in row) for row in rows], dtype=np.int64))
+    start = np.zeros(largest + 2, dtype=np.int64)
+    np.cumsum([len(m) for m in masks], out=start[1:])
+    joined = np.concatenate(masks)
+    joined.flags.writeable = start.flags.writeable = False
+    return joined, start
 
 
 class _Levels:
