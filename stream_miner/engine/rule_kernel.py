@@ -4,8 +4,9 @@ the same order, as :mod:`stream_miner.engine.rule_splits`, without a numpy call 
 Imported only for large rule sets or once numba is loaded (numba costs about 0.3 s to import);
 compiled code is cached on disk. Itemsets are rows of item ids in name order (CSR: ``items``,
 ``start``). A hash table over the rows gives each itemset's subsets one item smaller; from
-them the index of every subset of an itemset (a bit mask of its positions) is filled in, the
-larger masks first. The split patterns of size ``s`` are the masks
+them the index of a subset of an itemset (a bit mask of its positions) is found when needed:
+the antecedents from the larger down while they stay confident, a passing rule's consequent
+through the masks above it. The split patterns of size ``s`` are the masks
 ``patterns[pattern_start[s]:pattern_start[s + 1]]``, in output order (antecedent size, then
 positions), for every size up to the largest itemset's. Thresholds are compared in int64:
 the caller uses this loop only when no product can overflow. The loop is resumable: it stops
@@ -94,37 +95,6 @@ def _position(bit: int) -> int:
 
 
 @njit(cache=True, nogil=True)
-def _subset(
-    m: int,
-    full: int,
-    lo: int,
-    items: np.ndarray,
-    start: np.ndarray,
-    drop: np.ndarray,
-    single: np.ndarray,
-    index: np.ndarray,
-    path: np.ndarray,
-) -> int:
-    """The index of the subset ``m`` (a mask of positions) of the itemset whose items start at
-    ``lo``: up from ``m`` (adding its lowest missing position) to a known mask, then down."""
-    cur, depth = m, 0
-    while index[cur] < 0:
-        if cur & (cur - 1) == 0:
-            index[cur] = single[items[lo + _position(cur)]]
-            break
-        path[depth] = cur
-        depth += 1
-        missing = ~cur & full
-        cur |= missing & -missing
-    while depth > 0:
-        depth -= 1
-        sub = path[depth]
-        index[sub] = drop[start[index[cur]] + _below(cur, _position(cur ^ sub))]
-        cur = sub
-    return index[m]
-
-
-@njit(cache=True, nogil=True)
 def split_loop(
     items: np.ndarray,
     start: np.ndarray,
@@ -203,6 +173,10 @@ def split_loop(
                     confident[smaller] = True
                     queue[tail] = smaller
                     tail += 1
+        if tail == 0:
+            index[: full + 1] = -1
+            x += 1
+            continue
         lefts, rights = 0, 0
         for p in range(s):
             if left[items[lo + p]]:
@@ -214,7 +188,23 @@ def split_loop(
             if not confident[m] or m & ~lefts or (full ^ m) & ~rights:
                 continue
             a = index[m]
-            c = _subset(full ^ m, full, lo, items, start, drop, single, index, path)
+            c = index[full ^ m]
+            if c < 0:  # up from the consequent (adding its lowest missing position), then down
+                cur, depth = full ^ m, 0
+                while index[cur] < 0:
+                    if cur & (cur - 1) == 0:
+                        index[cur] = single[items[lo + _position(cur)]]
+                        break
+                    path[depth] = cur
+                    depth += 1
+                    missing = ~cur & full
+                    cur |= missing & -missing
+                while depth > 0:
+                    depth -= 1
+                    sub = path[depth]
+                    index[sub] = drop[start[index[cur]] + _below(cur, _position(cur ^ sub))]
+                    cur = sub
+                c = index[full ^ m]
             if lift_den != 0 and k * n * lift_den < lift_num * counts[a] * counts[c]:
                 continue
             out[row, 0], out[row, 1], out[row, 2] = x, a, c
