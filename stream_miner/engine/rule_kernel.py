@@ -34,9 +34,56 @@ def _hash(items: np.ndarray, lo: int, hi: int, skip: int) -> np.uint64:
 
 
 @njit(cache=True, nogil=True)
-def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
+def _bytes_hash(text: np.ndarray, lo: int, hi: int) -> np.uint64:
+    h = _OFFSET
+    for p in range(lo, hi):
+        h = (h ^ np.uint64(text[p])) * _MULTIPLIER
+    return h
+
+
+@njit(cache=True, nogil=True)
+def item_ids(text: np.ndarray, names: np.ndarray, name_start: np.ndarray, total: int) -> np.ndarray:
+    """The ids of the ``total`` names in ``text`` (bytes, the names split by zero bytes), id ``i``
+    being the name ``names[name_start[i]:name_start[i + 1]]``; -1 for a name not among them."""
+    n = name_start.size - 1
+    size = 1
+    while size < 2 * n:
+        size *= 2
+    mask = np.uint64(size - 1)
+    table = np.full(size, -1, dtype=np.int64)
+    for i in range(n):
+        slot = _bytes_hash(names, name_start[i], name_start[i + 1]) & mask
+        while table[slot] != -1:
+            slot = (slot + np.uint64(1)) & mask
+        table[slot] = i
+    ids = np.full(total, -1, dtype=np.int64)
+    lo = 0
+    for t in range(total):
+        hi = lo
+        while hi < text.size and text[hi] != 0:
+            hi += 1
+        slot = _bytes_hash(text, lo, hi) & mask
+        while table[slot] != -1:
+            i = table[slot]
+            a, b = name_start[i], name_start[i + 1]
+            if b - a == hi - lo:
+                same = True
+                for q in range(hi - lo):
+                    if names[a + q] != text[lo + q]:
+                        same = False
+                        break
+                if same:
+                    ids[t] = i
+                    break
+            slot = (slot + np.uint64(1)) & mask
+        lo = hi + 1
+    return ids
+
+
+@njit(cache=True, nogil=True)
+def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> tuple[np.ndarray, bool]:
     """``drop[start[x] + j]``: the index of itemset ``x`` without its item ``j`` (-1 for a
-    single item). Every such subset must be an itemset (downward closed)."""
+    single item), and whether every such subset is an itemset (downward closed)."""
     n = start.size - 1
     size = 1
     while size < 2 * n:
@@ -49,6 +96,7 @@ def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
             slot = (slot + np.uint64(1)) & mask
         table[slot] = x
     drop = np.full(items.size, -1, dtype=np.int64)
+    complete = True
     for x in range(n):
         lo, hi = start[x], start[x + 1]
         if hi - lo < 2:
@@ -58,6 +106,7 @@ def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
             while True:
                 y = table[slot]
                 if y == -1:
+                    complete = False
                     break
                 if start[y + 1] - start[y] == hi - lo - 1:
                     q = start[y]
@@ -72,7 +121,7 @@ def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
                         drop[j] = y
                         break
                 slot = (slot + np.uint64(1)) & mask
-    return drop
+    return drop, complete
 
 
 @njit(cache=True, nogil=True)
@@ -109,11 +158,11 @@ def split_loop(
     state: np.ndarray,
     out: np.ndarray,
 ) -> int:
-    """Write (itemset, antecedent, consequent) rows into ``out`` from itemset ``state[0]`` at
-    row ``state[1]``, at most ``state[2]`` itemsets a call; past ``state[3]`` rows (-1: no cap)
-    stop with TOO_MANY. ``thresholds``: window size, confidence numerator and denominator, lift
-    numerator and denominator (0, 0: no lift), largest consequent. ``left``/``right``: the items
-    allowed per side; ``single``: the index of each item's itemset.
+    """Write (itemset, antecedent, consequent) columns into ``out`` (3 rows) from itemset
+    ``state[0]`` at column ``state[1]``, at most ``state[2]`` itemsets a call; past ``state[3]``
+    rules (-1: no cap) stop with TOO_MANY. ``thresholds``: window size, confidence numerator
+    and denominator, lift numerator and denominator (0, 0: no lift), largest consequent.
+    ``left``/``right``: the items allowed per side; ``single``: each item's itemset.
 
     Confident antecedents are found consequent size by consequent size (a smaller antecedent
     has a count at least as large, so it is confident only if every one-larger antecedent is);
@@ -132,7 +181,7 @@ def split_loop(
         if s < 2 or first == last:
             x += 1
             continue
-        if row + last - first > out.shape[0]:
+        if row + last - first > out.shape[1]:
             state[0], state[1] = x, row
             return GROW
         full = (1 << s) - 1
@@ -207,7 +256,7 @@ def split_loop(
                 c = index[full ^ m]
             if lift_den != 0 and k * n * lift_den < lift_num * counts[a] * counts[c]:
                 continue
-            out[row, 0], out[row, 1], out[row, 2] = x, a, c
+            out[0, row], out[1, row], out[2, row] = x, a, c
             row += 1
         index[: full + 1] = -1
         confident[: full + 1] = False
