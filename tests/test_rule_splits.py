@@ -146,6 +146,28 @@ def test_the_compiled_loop_lists_the_same_splits(baskets, min_count, conf, lift,
     assert compiled_way == numpy_way
 
 
+@settings(max_examples=150, deadline=None)
+@given(
+    st.lists(st.integers(2, len(NAMES)), min_size=1, max_size=12),
+    baskets_st,
+    st.fractions(Fraction(1, 2), 1, max_denominator=12),
+    st.one_of(st.none(), st.integers(1, 4)),
+)
+def test_the_compiled_loop_keeps_every_confident_split_of_nested_baskets(prefixes, noise, conf, max_c):
+    """Nested baskets (prefixes of one list) make long chains of confident antecedents, where
+    the loop skips the antecedents below an unconfident one: none of the skipped may pass."""
+    baskets = [NAMES[:k] for k in prefixes] + noise
+    itemsets = named_itemsets(baskets, 2)
+    f = RuleFilter(min_confidence=conf, max_consequent=max_c, max_total=None)
+    keys, counts = list(itemsets), np.array(list(itemsets.values()), dtype=np.int64)
+    compiled = passing_splits(keys, counts, len(baskets), split_filter(f), None, compiled=True)
+    found = [
+        (keys[a], keys[c], int(counts[x]), int(counts[a]), int(counts[c]))
+        for x, a, c in zip(*(column.tolist() for column in compiled), strict=True)
+    ]
+    assert found == plain_rules(itemsets, len(baskets), f)
+
+
 def test_the_compiled_loop_grows_its_output_pauses_and_stops(monkeypatch):
     """Thousands of rules (the output grows from 1,024 rows), a few itemsets per call, the
     cap and the interrupt checked between calls."""
@@ -167,3 +189,22 @@ def test_the_compiled_loop_refuses_itemsets_missing_a_subset():
     keys = [("a",), ("b",), ("c",), ("a", "b"), ("a", "b", "c")]  # no ("a", "c") nor ("b", "c")
     with pytest.raises(ValueError, match="downward closed"):
         passing_splits(keys, np.array([3, 3, 3, 2, 2]), 4, split_filter(RuleFilter()), None, compiled=True)
+
+
+@pytest.mark.parametrize(
+    "names",
+    [["", "a", "ab", "b", "é", "\ud800", "日本"], ["a", "a\0b", "b", "\0"]],
+    ids=["odd names", "names with a zero"],
+)
+def test_the_compiled_loop_reads_any_item_names(names):
+    """Item names go to the loop joined by zero bytes (or one by one when a name holds one)."""
+    baskets = [names, names[:3], names[1:], names[::2], names[1::2]] * 2
+    itemsets = named_itemsets(baskets, 2)
+    f = RuleFilter(min_confidence=Fraction(1, 2), max_total=None)
+    keys, counts = list(itemsets), np.array(list(itemsets.values()), dtype=np.int64)
+    compiled = passing_splits(keys, counts, len(baskets), split_filter(f), None, compiled=True)
+    found = [
+        (keys[a], keys[c], int(counts[x]), int(counts[a]), int(counts[c]))
+        for x, a, c in zip(*(column.tolist() for column in compiled), strict=True)
+    ]
+    assert found == plain_rules(itemsets, len(baskets), f) and len(found) > 10

@@ -4,8 +4,9 @@ the same order, as :mod:`stream_miner.engine.rule_splits`, without a numpy call 
 Imported only for large rule sets or once numba is loaded (numba costs about 0.3 s to import);
 compiled code is cached on disk. Itemsets are rows of item ids in name order (CSR: ``items``,
 ``start``). A hash table over the rows gives each itemset's subsets one item smaller; from
-them the index of every subset of an itemset (a bit mask of its positions) is filled in, the
-larger masks first. The split patterns of size ``s`` are the masks
+them the index of a subset of an itemset (a bit mask of its positions) is found when needed:
+the antecedents from the larger down while they stay confident, a passing rule's consequent
+through the masks above it. The split patterns of size ``s`` are the masks
 ``patterns[pattern_start[s]:pattern_start[s + 1]]``, in output order (antecedent size, then
 positions), for every size up to the largest itemset's. Thresholds are compared in int64:
 the caller uses this loop only when no product can overflow. The loop is resumable: it stops
@@ -33,9 +34,56 @@ def _hash(items: np.ndarray, lo: int, hi: int, skip: int) -> np.uint64:
 
 
 @njit(cache=True, nogil=True)
-def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
+def _bytes_hash(text: np.ndarray, lo: int, hi: int) -> np.uint64:
+    h = _OFFSET
+    for p in range(lo, hi):
+        h = (h ^ np.uint64(text[p])) * _MULTIPLIER
+    return h
+
+
+@njit(cache=True, nogil=True)
+def item_ids(text: np.ndarray, names: np.ndarray, name_start: np.ndarray, total: int) -> np.ndarray:
+    """The ids of the ``total`` names in ``text`` (bytes, the names split by zero bytes), id ``i``
+    being the name ``names[name_start[i]:name_start[i + 1]]``; -1 for a name not among them."""
+    n = name_start.size - 1
+    size = 1
+    while size < 2 * n:
+        size *= 2
+    mask = np.uint64(size - 1)
+    table = np.full(size, -1, dtype=np.int64)
+    for i in range(n):
+        slot = _bytes_hash(names, name_start[i], name_start[i + 1]) & mask
+        while table[slot] != -1:
+            slot = (slot + np.uint64(1)) & mask
+        table[slot] = i
+    ids = np.full(total, -1, dtype=np.int64)
+    lo = 0
+    for t in range(total):
+        hi = lo
+        while hi < text.size and text[hi] != 0:
+            hi += 1
+        slot = _bytes_hash(text, lo, hi) & mask
+        while table[slot] != -1:
+            i = table[slot]
+            a, b = name_start[i], name_start[i + 1]
+            if b - a == hi - lo:
+                same = True
+                for q in range(hi - lo):
+                    if names[a + q] != text[lo + q]:
+                        same = False
+                        break
+                if same:
+                    ids[t] = i
+                    break
+            slot = (slot + np.uint64(1)) & mask
+        lo = hi + 1
+    return ids
+
+
+@njit(cache=True, nogil=True)
+def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> tuple[np.ndarray, bool]:
     """``drop[start[x] + j]``: the index of itemset ``x`` without its item ``j`` (-1 for a
-    single item). Every such subset must be an itemset (downward closed)."""
+    single item), and whether every such subset is an itemset (downward closed)."""
     n = start.size - 1
     size = 1
     while size < 2 * n:
@@ -48,6 +96,7 @@ def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
             slot = (slot + np.uint64(1)) & mask
         table[slot] = x
     drop = np.full(items.size, -1, dtype=np.int64)
+    complete = True
     for x in range(n):
         lo, hi = start[x], start[x + 1]
         if hi - lo < 2:
@@ -57,6 +106,7 @@ def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
             while True:
                 y = table[slot]
                 if y == -1:
+                    complete = False
                     break
                 if start[y + 1] - start[y] == hi - lo - 1:
                     q = start[y]
@@ -71,7 +121,26 @@ def subsets_one_smaller(items: np.ndarray, start: np.ndarray) -> np.ndarray:
                         drop[j] = y
                         break
                 slot = (slot + np.uint64(1)) & mask
-    return drop
+    return drop, complete
+
+
+@njit(cache=True, nogil=True)
+def _below(mask: int, p: int) -> int:
+    """The number of positions of ``mask`` below position ``p``."""
+    rest, count = mask & ((1 << p) - 1), 0
+    while rest:
+        rest &= rest - 1
+        count += 1
+    return count
+
+
+@njit(cache=True, nogil=True)
+def _position(bit: int) -> int:
+    p = 0
+    while bit > 1:
+        bit >>= 1
+        p += 1
+    return p
 
 
 @njit(cache=True, nogil=True)
@@ -80,6 +149,7 @@ def split_loop(
     start: np.ndarray,
     counts: np.ndarray,
     drop: np.ndarray,
+    single: np.ndarray,
     patterns: np.ndarray,
     pattern_start: np.ndarray,
     left: np.ndarray,
@@ -88,53 +158,108 @@ def split_loop(
     state: np.ndarray,
     out: np.ndarray,
 ) -> int:
-    """Write (itemset, antecedent, consequent) rows into ``out`` from itemset ``state[0]`` at
-    row ``state[1]``, at most ``state[2]`` itemsets a call; past ``state[3]`` rows (-1: no cap)
-    stop with TOO_MANY. ``thresholds``: window size, confidence numerator and denominator, lift
-    numerator and denominator (0, 0: no lift). ``left``/``right``: the items allowed per side."""
-    n, conf_num, conf_den, lift_num, lift_den = thresholds
+    """Write (itemset, antecedent, consequent) columns into ``out`` (3 rows) from itemset
+    ``state[0]`` at column ``state[1]``, at most ``state[2]`` itemsets a call; past ``state[3]``
+    rules (-1: no cap) stop with TOO_MANY. ``thresholds``: window size, confidence numerator
+    and denominator, lift numerator and denominator (0, 0: no lift), largest consequent.
+    ``left``/``right``: the items allowed per side; ``single``: each item's itemset.
+
+    Confident antecedents are found consequent size by consequent size (a smaller antecedent
+    has a count at least as large, so it is confident only if every one-larger antecedent is);
+    the rest of each itemset's patterns is skipped without a look-up."""
+    n, conf_num, conf_den, lift_num, lift_den, largest_consequent = thresholds
     x, row, cap = state[0], state[1], state[3]
     stop = min(start.size - 1, x + state[2])
-    index = np.empty(1 << (pattern_start.size - 2), dtype=np.int64)
+    masks = 1 << (pattern_start.size - 2)
+    index = np.full(masks, -1, dtype=np.int64)
+    confident = np.zeros(masks, dtype=np.bool_)
+    queue = np.empty(masks, dtype=np.int64)
+    path = np.empty(pattern_start.size, dtype=np.int64)
     while x < stop:
         lo, s = start[x], start[x + 1] - start[x]
         first, last = pattern_start[s], pattern_start[s + 1]
         if s < 2 or first == last:
             x += 1
             continue
-        if row + last - first > out.shape[0]:
+        if row + last - first > out.shape[1]:
             state[0], state[1] = x, row
             return GROW
         full = (1 << s) - 1
         index[full] = x
-        for m in range(full - 1, 0, -1):  # each mask from one a position larger
-            p = 0
-            while (m >> p) & 1:
-                p += 1
-            bigger = m | (1 << p)
-            rank = 0
-            for q in range(p):
-                rank += (bigger >> q) & 1
-            index[m] = drop[start[index[bigger]] + rank]
+        k = counts[x]
+        tail = 0
+        for p in range(s):  # consequents of one item
+            m = full ^ (1 << p)
+            a = drop[lo + p]
+            index[m] = a
+            if k * conf_den >= conf_num * counts[a]:
+                confident[m] = True
+                queue[tail] = m
+                tail += 1
+        head = 0
+        while head < tail:  # a consequent one larger: add a position above the largest
+            m = queue[head]
+            head += 1
+            c = full ^ m
+            if _below(c, s) >= largest_consequent:
+                continue
+            for p in range(_position(c) + 1, s):
+                smaller = m ^ (1 << p)
+                if smaller == 0:
+                    continue
+                rest, every = c, True
+                while rest:
+                    q = rest & -rest
+                    rest ^= q
+                    if not confident[smaller | q]:
+                        every = False
+                        break
+                if not every:
+                    continue
+                a = drop[start[index[m]] + _below(m, p)]
+                index[smaller] = a
+                if k * conf_den >= conf_num * counts[a]:
+                    confident[smaller] = True
+                    queue[tail] = smaller
+                    tail += 1
+        if tail == 0:
+            index[: full + 1] = -1
+            x += 1
+            continue
         lefts, rights = 0, 0
         for p in range(s):
             if left[items[lo + p]]:
                 lefts |= 1 << p
             if right[items[lo + p]]:
                 rights |= 1 << p
-        k = counts[x]
         for t in range(first, last):
             m = patterns[t]
-            if m & ~lefts or (full ^ m) & ~rights:
+            if not confident[m] or m & ~lefts or (full ^ m) & ~rights:
                 continue
             a = index[m]
-            if k * conf_den < conf_num * counts[a]:
-                continue
             c = index[full ^ m]
+            if c < 0:  # up from the consequent (adding its lowest missing position), then down
+                cur, depth = full ^ m, 0
+                while index[cur] < 0:
+                    if cur & (cur - 1) == 0:
+                        index[cur] = single[items[lo + _position(cur)]]
+                        break
+                    path[depth] = cur
+                    depth += 1
+                    missing = ~cur & full
+                    cur |= missing & -missing
+                while depth > 0:
+                    depth -= 1
+                    sub = path[depth]
+                    index[sub] = drop[start[index[cur]] + _below(cur, _position(cur ^ sub))]
+                    cur = sub
+                c = index[full ^ m]
             if lift_den != 0 and k * n * lift_den < lift_num * counts[a] * counts[c]:
                 continue
-            out[row, 0], out[row, 1], out[row, 2] = x, a, c
+            out[0, row], out[1, row], out[2, row] = x, a, c
             row += 1
+        index[: full + 1] = -1
+        confident[: full + 1] = False
         x += 1
         if cap >= 0 and row > cap:
             state[0], state[1] = x, row
