@@ -22,11 +22,9 @@ CHECK = textwrap.dedent(
 
     assert "numba" not in sys.modules  # nothing compiled is loaded by importing the engine
     if sys.argv[1] == "load":
-        from stream_miner.engine.compiled_start import compiled_loops_loading
+        from stream_miner.engine.compiled_start import start_loading_compiled_loops
 
-        with compiled_loops_loading(lambda: 600.0) as loading:
-            pass
-        assert not loading.is_alive()
+        start_loading_compiled_loops().join()
     baskets = [[str((i * 7 + k * 3) % 11) for k in range(1 + i % 5)] for i in range(300)]
     miner = WindowMiner(CountWindow(200))
     params = MiningParams(min_count=12)

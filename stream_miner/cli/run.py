@@ -40,7 +40,6 @@ if TYPE_CHECKING:
     from stream_miner.status import StatusBoard
 
 DEFAULT_METRICS_HOST = "127.0.0.1"
-LOADING_WAIT = 5.0  # seconds a stopping Kafka member waits for its compiled loops to finish loading
 
 
 def add_run_parser(commands: argparse._SubParsersAction) -> None:
@@ -215,9 +214,9 @@ def run_run(args: argparse.Namespace) -> int:
             server = serve_status(args.metrics_host, args.metrics_port, metrics, board)
             resources.enter_context(closing(server))
         if args.source is not None and args.source.startswith("kafka://"):
-            from stream_miner.engine.compiled_start import compiled_loops_loading
+            from stream_miner.engine.compiled_start import start_loading_compiled_loops
 
-            resources.enter_context(compiled_loops_loading(lambda: stop.budget(LOADING_WAIT)))
+            start_loading_compiled_loops()  # while the member connects and joins its group
         try:
             source = resources.enter_context(closing(_source(args, stop)))
             dead_letters = resources.enter_context(closing(_dead_letters(args, stop)))

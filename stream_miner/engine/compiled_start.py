@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import contextlib
 import threading
-from collections.abc import Callable, Iterator
 
 # a tiny window whose tracked ticks and full mine reach every compiled loop
 _BASKETS = (
@@ -51,16 +50,13 @@ def load_compiled_loops() -> None:
     miner.mine(params)
 
 
-@contextlib.contextmanager
-def compiled_loops_loading(wait: Callable[[], float]) -> Iterator[threading.Thread]:
-    """Load the compiled loops on a daemon thread while the body runs; at its end wait for them
-    up to ``wait()`` seconds (an interpreter should not exit under a thread inside numba)."""
+def start_loading_compiled_loops() -> threading.Thread:
+    """Load the compiled loops on a daemon thread (started, returned). Nothing waits for it: a
+    process may exit while it loads (tried at random moments of cold and warm loads: exit code
+    0 every time), and a tick that needs a loop meanwhile waits for numba's own lock."""
     thread = threading.Thread(target=_load, name="compiled-loops", daemon=True)
     thread.start()
-    try:
-        yield thread
-    finally:
-        thread.join(wait())
+    return thread
 
 
 def _load() -> None:
