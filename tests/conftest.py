@@ -53,6 +53,16 @@ def fresh_numpy_budget() -> None:
     fpgrowth._Growth.numpy_steps = 0
 
 
+@pytest.fixture(scope="module")
+def broker():
+    """A test broker for the module's tests (started once per module that asks for it)."""
+    from kafka_broker import start_broker, stop_broker
+
+    running = start_broker()
+    yield running
+    stop_broker(running)
+
+
 @pytest.fixture
 def spawn():
     """``spawn(command)`` -> a :class:`processes.Child`; any still running at teardown is killed."""

@@ -9,7 +9,7 @@ import subprocess
 
 import pytest
 
-from kafka_broker import GROUP_OPTIONS, start_broker, stop_broker
+from kafka_broker import GROUP_OPTIONS
 from processes import stream_miner, wait_until
 from stream_miner.simulate.planted import Plant, baskets
 
@@ -19,13 +19,6 @@ N = 6000
 SETTINGS = ["--window-size", "1000", "--tick-every", "100", "--min-support", "0.05"]
 SETTINGS += ["--min-confidence", "0.5", "--min-lift", "1.5"]
 PLANTS = [Plant(("new-a", "new-b"), 0.12, start=2500), Plant(("old-x", "old-y"), 0.12, end=4000)]
-
-
-@pytest.fixture(scope="module")
-def broker():
-    running = start_broker()
-    yield running
-    stop_broker(running)
 
 
 def stream() -> list[dict]:

@@ -9,18 +9,11 @@ import io
 import pytest
 from kafka.record import util
 
-from kafka_broker import GROUP_OPTIONS, start_broker, stop_broker
+from kafka_broker import GROUP_OPTIONS
 from stream_miner.connectors.kafka_source import SLOW_CRC, KafkaSource, client_options, native_crc
 from stream_miner.decoding.messages import MessageFormat
 
 pytestmark = pytest.mark.kafka
-
-
-@pytest.fixture(scope="module")
-def broker():
-    running = start_broker()
-    yield running
-    stop_broker(running)
 
 
 def started_member_log(broker, topic: str) -> str:

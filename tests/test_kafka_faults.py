@@ -37,13 +37,6 @@ WINDOW = ["--window-size", "700", "--tick-interval", "0.3s"]
 BAD_EVERY = 400  # one bad message after this many baskets
 
 
-@pytest.fixture(scope="module")
-def broker():
-    running = start_broker()
-    yield running
-    stop_broker(running)
-
-
 @pytest.fixture
 def restartable():
     """``restartable(keep_log)`` -> a broker of the test's own that it may kill and start

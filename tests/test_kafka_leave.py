@@ -12,7 +12,7 @@ from collections.abc import Callable
 import pytest
 from kafka import KafkaConsumer
 
-from kafka_broker import GROUP_OPTIONS, start_broker, stop_broker
+from kafka_broker import GROUP_OPTIONS
 from processes import wait_until
 from stream_miner.connectors.kafka_join_fix import keep_finished_joins
 from stream_miner.connectors.kafka_source import KafkaSource, client_options
@@ -22,13 +22,6 @@ pytestmark = pytest.mark.kafka
 
 SETTLED_WITHIN = 45.0  # seconds: a few join rounds (up to the 5 s rebalance timeout each)
 OPTIONS = client_options(GROUP_OPTIONS)
-
-
-@pytest.fixture(scope="module")
-def broker():
-    running = start_broker()
-    yield running
-    stop_broker(running)
 
 
 def plain_member(broker, topic: str, group: str) -> KafkaConsumer:

@@ -17,7 +17,7 @@ import fim
 import pytest
 
 from brute_force import frequent_itemsets
-from kafka_broker import GROUP_OPTIONS, start_broker, stop_broker
+from kafka_broker import GROUP_OPTIONS
 from processes import stream_miner, wait_until
 
 pytestmark = pytest.mark.kafka
@@ -26,13 +26,6 @@ pytestmark = pytest.mark.kafka
 # max_poll_interval_ms in GROUP_OPTIONS. This is the fault being tested, not a wait for
 # anything: a stopped broker answers nothing and the client logs nothing meanwhile.
 OUTAGE_SECONDS = 15
-
-
-@pytest.fixture(scope="module")
-def broker():
-    running = start_broker()
-    yield running
-    stop_broker(running)
 
 
 def checkouts(n, seed=0, prefix="k"):

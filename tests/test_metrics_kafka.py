@@ -5,18 +5,11 @@ from __future__ import annotations
 
 import pytest
 
-from kafka_broker import GROUP_OPTIONS, start_broker, stop_broker
+from kafka_broker import GROUP_OPTIONS
 from processes import stream_miner, wait_until
 from test_metrics import rejected_by_reason, scrape, summary_counts, value
 
 pytestmark = pytest.mark.kafka
-
-
-@pytest.fixture(scope="module")
-def broker():
-    running = start_broker()
-    yield running
-    stop_broker(running)
 
 
 def lag_by_partition(samples) -> dict[str, float]:
