@@ -112,7 +112,7 @@ def test_the_itemset_cap_holds_exactly(baskets, min_count, cap, budget):
 
 # wider baskets over more items: bases with more frequent codes than the loop grows as bit masks
 WIDE_CASES = (
-    st.lists(st.lists(st.integers(0, 21), min_size=1, max_size=16, unique=True), min_size=1, max_size=30),
+    st.lists(st.lists(st.integers(0, 25), min_size=1, max_size=20, unique=True), min_size=1, max_size=30),
     st.integers(1, 4),
     st.one_of(st.none(), st.integers(2, 4)),
 )

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from numba import njit
 
-BITS = 12
+BITS = 16
 # columns of a frame of the small stack
 S_LO, S_HI, S_NEXT, S_SET, S_DEPTH, S_FREQ = range(6)
 S_COLUMNS = 6
@@ -124,11 +124,10 @@ def grow_bits(
         lo, hi = frames[top, S_LO], frames[top, S_HI]
         below = (1 << f) - 1
         end = hi
-        for r in range(lo, hi):
+        for r in range(lo, hi):  # branch-free: a row is always written, kept only if it holds f and more
             m = masks[r]
-            if (m >> f) & 1 and m & below:
-                masks[end], weights[end], mults[end] = m & below, weights[r], mults[r]
-                end += 1
+            masks[end], weights[end], mults[end] = m & below, weights[r], mults[r]
+            end += ((m >> f) & 1) & ((m & below) != 0)
         work += hi - lo + 1
         if end == hi:
             continue
@@ -141,12 +140,8 @@ def grow_bits(
             merged += mults[r]
             m = masks[r]
             w = weights[r]
-            b = 0
-            while m:
-                if m & 1:
-                    cnt[b] += w
-                m >>= 1
-                b += 1
+            for b in range(f):
+                cnt[b] += w * ((m >> b) & 1)
         n_picked = 0
         m = chosen
         b = 0
