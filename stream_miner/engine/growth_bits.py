@@ -61,11 +61,17 @@ def _emit(buf, n_suffix, key, picked, n_picked, extra, count, out_items, out_sta
         extra[k] = x
     out_start[n_out] = i_top
     out_count[n_out] = count
-    at = i_top
+    return write_itemset(buf, n_suffix, extra, n_picked, out_items, i_top)
+
+
+@njit(cache=True, nogil=True)
+def write_itemset(buf, n, extra, extra_n, out_items, at):
+    """Merge the sorted ``buf[:n]`` with the sorted ``extra[:extra_n]`` into ``out_items[at:]``;
+    return the end."""
     i = 0
     j = 0
-    while i < n_suffix or j < n_picked:
-        if j >= n_picked or (i < n_suffix and buf[i] < extra[j]):
+    while i < n or j < extra_n:
+        if j >= extra_n or (i < n and buf[i] < extra[j]):
             out_items[at] = buf[i]
             i += 1
         else:

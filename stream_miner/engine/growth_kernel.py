@@ -22,7 +22,7 @@ from __future__ import annotations
 
 from numba import njit
 
-from stream_miner.engine.growth_bits import BITS, K_KEY, grow_bits
+from stream_miner.engine.growth_bits import BITS, K_KEY, grow_bits, write_itemset
 
 DONE, PAUSED, GROW, TOO_MANY = 0, 1, 2, 3
 # registers
@@ -67,22 +67,6 @@ def _suffix_items(f_info, depth, code, items_of_code, buf):
         buf[j] = x
         n += 1
     return n
-
-
-@njit(cache=True, nogil=True)
-def _write_itemset(buf, n, extra, extra_n, out_items, at):
-    """Merge the sorted ``buf[:n]`` with the sorted ``extra[:extra_n]`` into ``out_items[at:]``."""
-    i = 0
-    j = 0
-    while i < n or j < extra_n:
-        if j >= extra_n or (i < n and buf[i] < extra[j]):
-            out_items[at] = buf[i]
-            i += 1
-        else:
-            out_items[at] = extra[j]
-            j += 1
-        at += 1
-    return at
 
 
 @njit(cache=True, nogil=True)
@@ -285,7 +269,7 @@ def grow(
                         k -= 1
                     extra[k] = x
                 out_start[n_out] = i_top
-                i_top = _write_itemset(buf, n_suffix, extra, size, out_items, i_top)
+                i_top = write_itemset(buf, n_suffix, extra, size, out_items, i_top)
                 out_count[n_out] = count
                 n_out += 1
                 listed += 1
@@ -440,7 +424,7 @@ def grow(
                     for t in range(nf):
                         extra[0] = items_of_code[touched[t]]
                         out_start[n_out] = i_top
-                        i_top = _write_itemset(buf, n_suffix, extra, 1, out_items, i_top)
+                        i_top = write_itemset(buf, n_suffix, extra, 1, out_items, i_top)
                         out_count[n_out] = counts[touched[t]]
                         n_out += 1
                     out_start[n_out] = i_top
