@@ -60,6 +60,19 @@ def named_itemsets(baskets: list[list[str]], min_count: int) -> dict:
     return {key: found[key] for key in sorted(found, key=lambda k: (len(k), k[::-1]))}  # any order
 
 
+def uncapped_filter(confidence, lift, max_a, max_c, left, right) -> RuleFilter:
+    """A rule filter of every kind of restriction drawn, with no cap on the rules."""
+    return RuleFilter(
+        min_confidence=confidence,
+        min_lift=lift,
+        max_antecedent=max_a,
+        max_consequent=max_c,
+        antecedent_items=left,
+        consequent_items=right,
+        max_total=None,
+    )
+
+
 @settings(max_examples=200, deadline=None)
 @given(
     baskets_st,
@@ -73,15 +86,7 @@ def named_itemsets(baskets: list[list[str]], min_count: int) -> dict:
 )
 def test_rules_match_a_plain_loop_in_order(baskets, min_count, confidence, lift, max_a, max_c, left, right):
     itemsets = named_itemsets(baskets, min_count)
-    f = RuleFilter(
-        min_confidence=confidence,
-        min_lift=lift,
-        max_antecedent=max_a,
-        max_consequent=max_c,
-        antecedent_items=left,
-        consequent_items=right,
-        max_total=None,
-    )
+    f = uncapped_filter(confidence, lift, max_a, max_c, left, right)
     found = [
         (r.antecedent, r.consequent, r.count, r.antecedent_count, r.consequent_count)
         for r in generate_rules(itemsets, len(baskets), f)
@@ -133,15 +138,7 @@ def both_ways(itemsets: dict, n: int, f: RuleFilter) -> list[list[list[int]]]:
     sides_st,
 )
 def test_the_compiled_loop_lists_the_same_splits(baskets, min_count, conf, lift, max_a, max_c, left, right):
-    f = RuleFilter(
-        min_confidence=conf,
-        min_lift=lift,
-        max_antecedent=max_a,
-        max_consequent=max_c,
-        antecedent_items=left,
-        consequent_items=right,
-        max_total=None,
-    )
+    f = uncapped_filter(conf, lift, max_a, max_c, left, right)
     numpy_way, compiled_way = both_ways(named_itemsets(baskets, min_count), len(baskets), f)
     assert compiled_way == numpy_way
 
