@@ -26,6 +26,7 @@ from stream_miner.cli.options import (
 )
 from stream_miner.cli.paths import check_directory, check_output_file, open_output
 from stream_miner.cli.reporting import SnapshotWriter, TickLine
+from stream_miner.cli.run_cluster import Member, check_cluster_options
 from stream_miner.cli.signals import stop_on_signals
 from stream_miner.connectors.dead_letters import DeadLetterCounter, DeadLetterFile
 from stream_miner.connectors.file_source import FileSource
@@ -128,6 +129,22 @@ def add_run_parser(commands: argparse._SubParsersAction) -> None:
         "the local checkpoint is always written; committing offsets, sending dead letters and "
         f"leaving the group get what is left (default: {DEFAULT_STOP_WITHIN:g}s)",
     )
+    group = run.add_argument_group("several processes")
+    group.add_argument(
+        "--coordination-topic",
+        metavar="TOPIC",
+        help="Kafka topic (one partition) the members of --group share: each member mines the window "
+        "of its own partitions and one of them merges the exact global result (--snapshot-out, "
+        "--events-out and the pattern metrics then hold that). Needs --window-time and "
+        "--tick-interval, which then counts event time",
+    )
+    group.add_argument(
+        "--tick-wait",
+        type=duration,
+        metavar="DURATION",
+        help="how long the aggregating member waits for every partition's part of a tick before "
+        "it closes the tick as incomplete (default: 30s)",
+    )
     metrics = run.add_argument_group("metrics")
     metrics.add_argument(
         "--metrics-port",
@@ -204,6 +221,7 @@ def run_run(args: argparse.Namespace) -> int:
     """The ``run`` command."""
     from stream_miner.runtime.runner import Runner  # numpy and the engine: only to mine
 
+    check_cluster_options(args)
     settings = _settings(args)
     _check_outputs(args)
     metrics = _metrics(args)
@@ -232,7 +250,13 @@ def run_run(args: argparse.Namespace) -> int:
             listeners.append(TickLine(sys.stderr))
         if metrics is not None and board is not None:
             listeners += [metrics, board]
-        runner = Runner(settings, source, dead_letters, listeners, events=events)
+        if args.coordination_topic is not None:
+            member = Member(args, settings, source, dead_letters, listeners, events, stop)  # type: ignore[arg-type]
+            resources.callback(member.close)
+            member.start()
+            runner: Runner = member.runner
+        else:
+            runner = Runner(settings, source, dead_letters, listeners, events=events)
         if metrics is not None:
             metrics.watch(runner.figures)
 

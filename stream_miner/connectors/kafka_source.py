@@ -269,6 +269,8 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         self.shares_partitions = True
         self.handover: Handover | None = None
         self._backlog: list[SourceRecord] = []
+        self._owned: set[int] = set()  # the partitions of the last assignment
+        self.pause_while_busy = True  # False: read on during a tick, into the backlog
         self._next_offsets: dict[int, int] = {}  # per partition, after the last record read
         self._lag: dict[int, int] = {}  # per assigned partition, as of the last fetch (replaced, never changed)
         self._stop = stop or StopClock()
@@ -312,7 +314,8 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         found = await self._consumer._coordinator.fetch_committed_offsets_async(asked)
         committed = {tp.partition: _offset(found.get(tp)) for tp in asked}
         starts = self.handover.on_assigned(committed, mine) if self.handover else committed
-        earliest = await self._earliest({tp for tp in assigned if starts.get(tp.partition)})
+        kept, self._owned = self._owned & mine, mine  # kept: this member knows their ids already
+        earliest = await self._earliest({tp for tp in assigned if starts.get(tp.partition) and tp.partition not in kept})
         self._learn_until = {}
         unplaced = set()
         for tp in assigned:
@@ -320,7 +323,7 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             if start is None:
                 unplaced.add(tp)
                 continue
-            first = max(start - self._lookback, earliest.get(tp, start))
+            first = start if tp.partition in kept else max(start - self._lookback, earliest.get(tp, start))
             self._consumer.seek(tp, first)
             if first < start:
                 self._learn_until[tp.partition] = start
@@ -461,11 +464,12 @@ class KafkaSource(AsyncConsumerRebalanceListener):
         """Keep the group membership alive while ``busy()`` (a tick on a worker thread) says
         so, by polling with every partition paused; records of partitions assigned meanwhile
         are kept for the next :meth:`poll`."""
-        paused = set(self._consumer.assignment())
+        paused = set(self._consumer.assignment()) if self.pause_while_busy else set()
         self._consumer.pause(*paused)
         try:
             while busy():
-                self._backlog += self._records(self._fetch(timeout_ms=100))
+                fetched = self._records(self._fetch(timeout_ms=100))  # a rebalance in here replaces the backlog
+                self._backlog = self._backlog + fetched
         finally:
             self._consumer.resume(*(paused & set(self._consumer.assignment())))
 
@@ -516,6 +520,32 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             if state.highwater is not None and state.position is not None:
                 lag[tp.partition] = max(0, state.highwater - state.position.offset)
         return lag
+
+    def assigned(self) -> set[int]:
+        """The partitions this member owns now."""
+        return {tp.partition for tp in self._consumer.assignment()}
+
+    def highwaters(self) -> dict[int, int]:
+        """The offset after the newest message per assigned partition, as of the last fetch
+        (where known)."""
+        return {
+            tp.partition: state.highwater
+            for tp, state in list(self._consumer._subscription.assignment.items())
+            if state.highwater is not None
+        }
+
+    def has_backlog(self) -> bool:
+        """Whether records read during a tick wait for the next :meth:`poll`."""
+        return bool(self._backlog)
+
+    def generation(self) -> int:
+        """The consumer group's generation this member last joined (-1: none yet)."""
+        return int(self._consumer._coordinator._generation.generation_id)
+
+    def partition_count(self) -> int | None:
+        """How many partitions the topic has (None: not known yet)."""
+        partitions = self._consumer.partitions_for_topic(self.topic)
+        return len(partitions) if partitions else None
 
     def commit(self, positions: dict[int, int]) -> tuple[dict[int, int], CommitOutcome]:
         """Commit the next offsets of the partitions this member owns (others are not its to

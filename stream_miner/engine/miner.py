@@ -250,6 +250,9 @@ class WindowMiner:
             cutoff = self._newest_ts - self.window.seconds
             expired = self.store.expire_until(cutoff)
             keep = pending_ts > cutoff
+            if self._keeping_past and not keep.all():  # arrived already out (a window rebuilt from its log)
+                gone = [b for b, k in zip(pending, keep.tolist(), strict=True) if not k]
+                self.past.append(BasketArrays.from_lists(gone), pending_ts[~keep])
             pending = [b for b, k in zip(pending, keep.tolist(), strict=True) if k]
             pending_ts, pending_tags = pending_ts[keep], pending_tags[keep]
         else:
@@ -372,6 +375,11 @@ class WindowMiner:
         """The origin tag of the oldest basket in the window (None: empty or untagged)."""
         self.flush()
         return self.store.oldest_tag()
+
+    def lowest_tags(self, shift: int) -> dict[int, int]:
+        """The lowest origin tag in the window per group of tags (``tag >> shift``)."""
+        self.flush()
+        return self.store.lowest_tags(shift)
 
     def count(self, itemsets: Sequence[Sequence[str]]) -> list[int]:
         """The exact number of baskets in the window holding each itemset (item names; an

@@ -233,6 +233,19 @@ class WindowStore:
                 return None if tag < 0 else tag
         return None
 
+    def lowest_tags(self, shift: int) -> dict[int, int]:
+        """The lowest origin tag of the live baskets per group (``tag >> shift``; untagged
+        baskets are left out)."""
+        lowest: dict[int, int] = {}
+        for chunk in self._chunks:
+            tags = chunk.tags[chunk.alive]
+            tags = tags[tags >= 0]
+            groups = tags >> shift
+            for group in np.unique(groups).tolist():
+                low = int(tags[groups == group].min())
+                lowest[group] = min(low, lowest.get(group, low))
+        return lowest
+
     def contents(self) -> tuple[BasketArrays, np.ndarray, np.ndarray]:
         """All live baskets, their event times and their origin tags, oldest first."""
         parts, ts, tags = [], [], []

@@ -31,10 +31,10 @@ import sys
 import threading
 import time
 from collections import Counter
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import TYPE_CHECKING, TextIO
+from typing import TYPE_CHECKING, TextIO, TypeVar
 
 from stream_miner.decoding.records import Basket, DeadLetter
 from stream_miner.drift.settings import DriftSettings
@@ -68,6 +68,7 @@ BUSY_WAIT = 0.05  # seconds between looks at a running tick
 ABANDON_AFTER = 0.2  # seconds a running tick gets to finish after a stop before it is abandoned
 TICK_THREAD = "stream-miner-tick"  # the name of the worker thread a tick runs on
 OFFSET_BITS = 40  # an origin tag is partition << OFFSET_BITS | offset
+Done = TypeVar("Done")
 
 
 def origin_tag(partition: int, offset: int) -> int:
@@ -247,10 +248,10 @@ class Runner:
                         self._learn(record.payload, record.partition, record.offset)
                     else:
                         self._take(record.payload, record.partition, record.offset)
-                if self.schedule.count_due(self.consumed):
+                if self._due_after_record():
                     self._tick()
             self.progress.update(self.source.position, self.consumed)
-            if self.schedule.interval_due():
+            if self._due_after_poll():
                 self._tick()
             if self._unsaved:
                 self._checkpoint_if_due()  # also between ticks: nothing read waits long for one
@@ -296,7 +297,7 @@ class Runner:
             return
         assert payload.ts is not None
         self.newest = max(self.newest, payload.ts)
-        watermark = self.newest - self.settings.allowed_lateness
+        watermark = self._watermark_after(partition, payload.ts)
         if payload.ts <= watermark - window.seconds:
             if self.settings.drop_late:
                 self.counts["dropped as too late"] += 1
@@ -305,6 +306,11 @@ class Runner:
             return
         heapq.heappush(self.waiting, (payload.ts, next(self._arrivals), payload, partition, offset))
         self._release(watermark)
+
+    def _watermark_after(self, partition: int, ts: float) -> float:
+        """The watermark once a basket of ``partition`` at event time ``ts`` was read: the
+        newest event time seen less the allowed lateness."""
+        return self.newest - self.settings.allowed_lateness
 
     def _release(self, watermark: float) -> None:
         """Move every waiting basket at or before the watermark into the window."""
@@ -332,6 +338,14 @@ class Runner:
         self.dead_letters.write(DeadLetter(raw, reason, detail, self.source.name, partition, offset))
 
     # ------------------------------------------------------------------- ticks
+    def _due_after_record(self) -> bool:
+        """Whether a tick is due after the record just taken (every N baskets)."""
+        return self.schedule.count_due(self.consumed)
+
+    def _due_after_poll(self) -> bool:
+        """Whether a tick is due after a poll's records were taken (every S seconds)."""
+        return self.schedule.interval_due()
+
     def _tick(self) -> None:
         if not self.silent_ticks:
             self.progress.close()
@@ -371,15 +385,19 @@ class Runner:
             self._checkpoint()
 
     def _refresh_off_the_main_thread(self) -> TickReport:
-        """Run :meth:`_refresh` on a worker thread, so that signals are handled at once and a
-        Kafka source keeps polling meanwhile. Once a stop is asked for, the tick gets
-        ``ABANDON_AFTER`` seconds to finish; then the interrupt is set, the tick is abandoned
+        """:meth:`_refresh` on a worker thread (see :meth:`_on_worker`)."""
+        return self._on_worker(self._refresh)
+
+    def _on_worker(self, job: Callable[[], Done]) -> Done:
+        """Run ``job`` on a worker thread, so that signals are handled at once and a Kafka
+        source keeps polling meanwhile; its result. Once a stop is asked for, the job gets
+        ``ABANDON_AFTER`` seconds to finish; then the interrupt is set, the job is abandoned
         and :class:`MiningInterrupted` is raised here."""
         outcome: dict[str, object] = {}
 
         def work() -> None:
             try:
-                outcome["report"] = self._refresh()
+                outcome["report"] = job()
             except BaseException as error:  # handed back to the loop's thread below
                 outcome["error"] = error
 
