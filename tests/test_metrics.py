@@ -391,3 +391,15 @@ def test_metrics_options_are_checked_in_one_line(tmp_path, capsys, options, mess
     code = main(["run", "--source", f"file:{data}", "--window-size", "10", "--tick-every", "10", *options])
     err = capsys.readouterr().err
     assert code == 2 and err.startswith(f"stream-miner: error: {message}") and err.count("\n") == 1, err
+
+
+def test_a_scale_out_member_says_whether_it_aggregates_and_counts_incomplete_ticks():
+    metrics = RunMetrics(TopPatterns())
+    figures = _figures()
+    metrics.watch(lambda: figures)
+    value = metrics.registry.get_sample_value
+    assert value("stream_miner_aggregating") is None  # a single process has no such series
+    figures = _figures(aggregating=True, incomplete=3)
+    assert value("stream_miner_aggregating") == 1 and value("stream_miner_ticks_incomplete_total") == 3
+    figures = _figures(aggregating=False, incomplete=3)
+    assert value("stream_miner_aggregating") == 0 and value("stream_miner_ticks_incomplete_total") == 3

@@ -143,3 +143,30 @@ def test_sigterm_stops_a_reader_of_a_quiet_open_stdin(command):
         child.kill()
     assert time.monotonic() - signalled < 2.0
     assert child.returncode == (0 if command == "run" else 128 + signal.SIGTERM), child.stderr.read()
+
+
+KAFKA_TIMED = ["--source", "kafka://127.0.0.1:9/t", "--group", "g"]
+KAFKA_TIMED += ["--window-time", "1h", "--tick-interval", "1m"]
+
+
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (["--source", "-", "--window-time", "1h", "--tick-interval", "1m"], "needs a Kafka source"),
+        (
+            ["--source", "kafka://127.0.0.1:9/t", "--group", "g", "--window-size", "10", "--tick-every", "5"],
+            "needs --window-time and --tick-interval",
+        ),
+        ([*KAFKA_TIMED, "--min-count", "3"], "needs --min-support"),
+        ([*KAFKA_TIMED, "--checkpoint-dir", "ck"], "--checkpoint-dir does not go with --coordination-topic"),
+        ([*KAFKA_TIMED, "--tick-wait", "0s"], "must be positive"),
+    ],
+)
+def test_coordination_options_are_checked_before_anything_is_read(capsys, args, message):
+    code, err = run(capsys, *args, "--coordination-topic", "coord")
+    assert code == 2 and message in err and err.count("\n") == 1
+
+
+def test_tick_wait_needs_a_coordination_topic(capsys):
+    code, err = run(capsys, *KAFKA_TIMED, "--tick-wait", "5s")
+    assert code == 2 and "--tick-wait needs --coordination-topic" in err and err.count("\n") == 1

@@ -85,6 +85,8 @@ def member(spawn, broker, topic: str, workdir) -> Child:
         str(workdir / "snap.jsonl"),
         "--events-out",
         str(workdir / "events.jsonl"),
+        "--metrics-port",
+        "0",
     )
     for option in GROUP_OPTIONS:
         command += ["--kafka-option", option]
@@ -105,7 +107,20 @@ def closes(broker, topic: str) -> list[Message]:
     return found
 
 
-def run_members(spawn, broker, topic: str, workdir, count: int, data, *, pace: float = 0.0, victim=None):
+def scrape(child: Child) -> dict[str, float]:
+    """The member's metrics now (unlabelled samples)."""
+    from urllib.request import urlopen
+
+    from prometheus_client.parser import text_string_to_metric_families
+
+    url = child.wait_for_line(r"metrics on (\S+)").group(1)
+    text = urlopen(url, timeout=10).read().decode()
+    return {s.name: s.value for f in text_string_to_metric_families(text) for s in f.samples if not s.labels}
+
+
+def run_members(
+    spawn, broker, topic: str, workdir, count: int, data, *, pace: float = 0.0, victim=None, before_stop=None
+):
     """Start ``count`` members, let them settle, write the data, optionally SIGKILL one
     (``victim(members)`` picks it) when 40 % is written; wait for the last tick's close."""
     broker.create_topic(topic, 6)
@@ -131,9 +146,11 @@ def run_members(spawn, broker, topic: str, workdir, count: int, data, *, pace: f
         "the last tick's close",
         members[0],
     )
-    for child in members:
-        if child.process.poll() is None:
-            child.stop()
+    alive = [child for child in members if child.process.poll() is None]
+    if before_stop is not None:
+        before_stop(alive)
+    for child in alive:
+        child.stop()
     return closes(broker, topic), killed_at
 
 
@@ -185,7 +202,31 @@ def test_one_member_ticks_exactly_and_finds_the_promotion(solo):
 
 
 def test_three_members_equal_one(solo, broker, spawn, tmp_path):
-    found, _ = run_members(spawn, broker, "trio", tmp_path, 3, rows())
+    seen: list[dict[str, float]] = []
+
+    def settled(alive: list[Child]) -> bool:  # the last tick reached the aggregator's metrics
+        seen[:] = map(scrape, alive)
+        return any(m.get("stream_miner_window_transactions") == expected(rows(), LAST_TICK)[0] for m in seen)
+
+    found, _ = run_members(
+        spawn,
+        broker,
+        "trio",
+        tmp_path,
+        3,
+        rows(),
+        before_stop=lambda alive: wait_until(lambda: settled(alive), 30),
+    )
+    assert sorted(m["stream_miner_aggregating"] for m in seen) == [0, 0, 1]
+    aggregator = next(m for m in seen if m["stream_miner_aggregating"] == 1)
+    assert aggregator["stream_miner_window_transactions"] == expected(rows(), LAST_TICK)[0]
+    assert (
+        aggregator["stream_miner_patterns_emerged_total"]
+        == aggregator["stream_miner_patterns_faded_total"]
+        == 1
+    )
+    taken = sum(m["stream_miner_transactions_total"] for m in seen)  # each member's own ingest
+    assert sum(row["ts"] <= LAST_TICK for row in rows()) <= taken <= N  # later ones may still wait
     ticks = check_exact(rows(), found)
     assert set(ticks) <= set(TICKS) and ticks == sorted(ticks)
     assert (
@@ -220,3 +261,18 @@ def test_a_killed_process_loses_and_repeats_nothing(solo, broker, spawn, tmp_pat
     events = events_of(tmp_path)
     assert len({e["id"] for e in events}) == len(events)
     assert [(e["event"], e["items"]) for e in events] == [(e["event"], e["items"]) for e in solo[1]]
+
+
+@pytest.mark.parametrize("partitions, message", [(None, "no such topic"), (2, "needs exactly one")])
+def test_a_missing_or_split_coordination_topic_is_one_line(broker, spawn, tmp_path, partitions, message):
+    topic = f"lonely-{partitions}"
+    broker.create_topic(topic, 2)
+    if partitions is not None:
+        broker.create_topic(f"{topic}-coord", partitions)
+    command = stream_miner(
+        "run", "--source", f"kafka://{broker.address}/{topic}", "--group", "g", "--coordination-topic",
+        f"{topic}-coord", *SETTINGS,
+    )  # fmt: skip
+    code, err = spawn(command).finish(60)
+    assert code == 2 and message in err
+    assert err.strip().splitlines()[-1].startswith("stream-miner: error: --coordination-topic")

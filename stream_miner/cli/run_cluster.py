@@ -97,6 +97,7 @@ class Member:
         self.aggregator = Aggregator(
             self.topic, name, settings.params, shape, drift=settings.drift, listeners=listeners, events=events
         )
+        self.runner.aggregator = self.aggregator
         print(f"stream-miner: member {name} of group {args.group}, coordinating on {args.coordination_topic}",
               file=sys.stderr, flush=True)  # fmt: skip
 

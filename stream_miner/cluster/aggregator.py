@@ -96,6 +96,11 @@ class Aggregator:
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._run, name="stream-miner-aggregator", daemon=True)
 
+    def drift_totals(self) -> tuple[int, int]:
+        """Patterns emerged and faded so far, as the newest state this member holds has them."""
+        detector = self._detector
+        return (0, 0) if detector is None else (detector.emerged_total, detector.faded_total)
+
     def start(self) -> None:
         self._thread.start()
 
@@ -121,6 +126,18 @@ class Aggregator:
                 self._aggregate(next_tick)
             except StoppedWaiting:
                 return
+            except Exception as error:  # one line, never a traceback from this thread
+                self._fail(error)
+
+    def _fail(self, error: Exception) -> None:
+        """An unexpected error: say it in one line and close the open tick as incomplete."""
+        tick = self._next_tick()
+        print(f"stream-miner: error: aggregating: {type(error).__name__}: {error}", file=self.log, flush=True)
+        if tick is not None:
+            self._close(
+                tick, {"complete": False, "missing": f"the aggregator failed ({type(error).__name__})"}
+            )
+            self.incomplete += 1
 
     def _next_tick(self) -> float | None:
         board = self.topic.board

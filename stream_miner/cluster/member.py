@@ -31,6 +31,7 @@ import time
 import uuid
 from collections.abc import Sequence
 from dataclasses import replace
+from typing import TYPE_CHECKING
 
 from stream_miner.cluster.merge import encode_itemsets, local_params
 from stream_miner.cluster.wire import ANSWER, PART, CoordinationTopic, Message
@@ -41,7 +42,10 @@ from stream_miner.engine.window import TimeWindow
 from stream_miner.runtime.health import DeadLetterWatch
 from stream_miner.runtime.outbox import DeadLetterOutbox
 from stream_miner.runtime.protocols import DeadLetterSink
-from stream_miner.runtime.runner import OFFSET_BITS, Runner, RunSettings
+from stream_miner.runtime.runner import OFFSET_BITS, RunFigures, Runner, RunSettings
+
+if TYPE_CHECKING:
+    from stream_miner.cluster.aggregator import Aggregator
 
 MEMBER_WAIT = 3  # a member waits at most this many --tick-wait for its tick to be closed
 QUIET_POLLS = 2  # polls in a row bringing nothing before a member that read all follows the group
@@ -77,6 +81,7 @@ class MemberRunner(Runner):
             tick_on_stop=False,
         )
         self.kafka = source
+        self.aggregator: Aggregator | None = None  # this process's aggregator (for the metrics)
         source.pause_while_busy = (
             False  # paused partitions can stall kafka-python's fetcher after a rebalance
         )
@@ -102,6 +107,22 @@ class MemberRunner(Runner):
         self._keep_from: float | None = -math.inf if keep_past else None  # past kept for the detector
         if keep_past:
             self.miner.keep_past(-math.inf, math.inf)
+
+    def figures(self) -> RunFigures:
+        """The loop's counts, with the aggregator's: its drift totals, whether it is elected
+        now, and the ticks it closed as incomplete."""
+        figures = super().figures()
+        aggregator = self.aggregator
+        if aggregator is None:
+            return figures
+        emerged, faded = aggregator.drift_totals()
+        return replace(
+            figures,
+            emerged=emerged,
+            faded=faded,
+            aggregating=self.topic.election.elected,
+            incomplete=aggregator.incomplete,
+        )
 
     # ----------------------------------------------------------------- records
     def _take(self, payload: Basket | DeadLetter, partition: int, offset: int) -> None:

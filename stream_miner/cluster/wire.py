@@ -139,10 +139,10 @@ class Board:
                     self.answers.setdefault((tick, int(body["round"])), {})[message.sender] = body
             elif message.kind == CLOSE:
                 if tick not in self.closed and tick > self.last_closed:
-                    self.closed[tick] = body
+                    self.closed[tick] = {k: v for k, v in body.items() if k not in ("state", "events")}
                     self.last_closed = tick
                     if "state" in body:
-                        self.state = body
+                        self.state = {**body, "tick": tick}  # only the newest state is kept
                     self._forget_up_to(tick)
             elif message.kind == DELIVERED:
                 self.delivered = body
@@ -269,8 +269,17 @@ class CoordinationTopic:
             for record in records:
                 message = self._reassembly.take(record.value, record.headers)
                 self.board.read_offset = record.offset + 1
-                if message is not None:
+                if message is None:
+                    continue
+                try:
                     self.board.take(message)
+                except (KeyError, TypeError, ValueError, AttributeError) as error:
+                    print(
+                        f"stream-miner: warning: coordination topic: skipped a {message.kind} message "
+                        f"of {message.sender} ({type(error).__name__})",
+                        file=self._log,
+                        flush=True,
+                    )
         if self._sync_to is not None:
             if self._sync_to < 0:
                 self._sync_to = self._reader.end_offsets([self._partition])[self._partition]

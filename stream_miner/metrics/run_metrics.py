@@ -125,6 +125,17 @@ def _loop_metrics(figures: RunFigures, now: float) -> Iterator[Metric]:
             "Wall-clock time now minus the event-time window's watermark.",
             now - figures.watermark,
         )
+    if figures.aggregating is not None:
+        yield _gauge(
+            "aggregating",
+            "1 while this member of a scale-out run is the elected aggregator, else 0.",
+            int(figures.aggregating),
+        )
+        yield _counter(
+            "ticks_incomplete",
+            "Scale-out ticks this member closed as incomplete while aggregating (nothing published).",
+            figures.incomplete,
+        )
     lag = GaugeMetricFamily(
         PREFIX + "consumer_lag_messages",
         "Kafka: high watermark minus the consumer's position, per assigned partition.",

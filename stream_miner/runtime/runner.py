@@ -112,7 +112,9 @@ class RunFigures:
     ``consumed`` + ``given_back`` only grows, as does ``rejected`` + ``rejected_given_back``
     per reason; the other counts only grow. ``watermark`` (event-time windows) and
     ``checkpointed_at`` (wall clock of the last checkpoint written, across restarts) are None
-    until known; ``lag`` is the source's lag per partition."""
+    until known; ``lag`` is the source's lag per partition. ``aggregating`` and
+    ``incomplete`` are a scale-out member's (None otherwise): whether it is the elected
+    aggregator now, and the ticks it closed as incomplete."""
 
     consumed: int
     given_back: int
@@ -126,6 +128,8 @@ class RunFigures:
     watermark: float | None
     checkpointed_at: float | None
     lag: dict[int, int]
+    aggregating: bool | None = None
+    incomplete: int = 0
 
 
 class Runner:
