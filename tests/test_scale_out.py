@@ -54,14 +54,14 @@ def expected(data: list[dict], tick: float) -> tuple[int, dict]:
 
 
 def produce(
-    broker, topic: str, data: list[dict], *, pace: float = 0.0, halfway: threading.Event | None = None
+    broker, topic: str, data: list[dict], *, pace: float = 0.0, halfway: threading.Event | None = None, into=6
 ):
-    """Write ``data`` round robin over the topic's 6 partitions, 100 at a time, ``pace`` s apart."""
+    """Write ``data`` round robin over the first ``into`` partitions, 100 at a time, ``pace`` s apart."""
     from kafka import KafkaProducer
 
     producer = KafkaProducer(bootstrap_servers=broker.address, acks="all")
     for n, row in enumerate(data):
-        producer.send(topic, value=json.dumps(row).encode(), partition=n % 6)
+        producer.send(topic, value=json.dumps(row).encode(), partition=n % into)
         if n % 100 == 99:
             producer.flush()
             time.sleep(pace)
@@ -119,10 +119,11 @@ def scrape(child: Child) -> dict[str, float]:
 
 
 def run_members(
-    spawn, broker, topic: str, workdir, count: int, data, *, pace: float = 0.0, victim=None, before_stop=None
+    spawn, broker, topic: str, workdir, count: int, data, *, pace=0.0, victim=None, before_stop=None, empty=0
 ):
-    """Start ``count`` members, let them settle, write the data, optionally SIGKILL one
-    (``victim(members)`` picks it) when 40 % is written; wait for the last tick's close."""
+    """Start ``count`` members, let them settle, write the data (into all 6 partitions but the
+    last ``empty``), optionally SIGKILL one (``victim(members)`` picks it) when 40 % is
+    written; wait for the last tick's close."""
     broker.create_topic(topic, 6)
     broker.create_topic(f"{topic}-coord", 1)
     members = [member(spawn, broker, topic, workdir) for _ in range(count)]
@@ -130,7 +131,9 @@ def run_members(
     wait_until(lambda: any("elected aggregator" in m.stderr for m in members), 60, "an elected aggregator")
     halfway = threading.Event()
     writer = threading.Thread(
-        target=produce, args=(broker, topic, data), kwargs={"pace": pace, "halfway": halfway}
+        target=produce,
+        args=(broker, topic, data),
+        kwargs={"pace": pace, "halfway": halfway, "into": 6 - empty},
     )
     writer.start()
     killed_at = None
@@ -276,3 +279,12 @@ def test_a_missing_or_split_coordination_topic_is_one_line(broker, spawn, tmp_pa
     code, err = spawn(command).finish(60)
     assert code == 2 and message in err
     assert err.strip().splitlines()[-1].startswith("stream-miner: error: --coordination-topic")
+
+
+def test_members_whose_partitions_stay_empty_still_take_part(solo, broker, spawn, tmp_path):
+    found, _ = run_members(spawn, broker, "sparse", tmp_path, 3, rows(), empty=2)
+    ticks = check_exact(rows(), found)
+    assert ticks[-15:] == TICKS[-15:]  # the member holding the two empty partitions answers too
+    assert [(e["event"], e["items"]) for e in events_of(tmp_path)] == [
+        (e["event"], e["items"]) for e in solo[1]
+    ]

@@ -87,7 +87,6 @@ class Aggregator:
         self.listeners = list(listeners)
         self.events = events
         self.log = log
-        self.completed = 0  # global ticks completed by this process
         self.incomplete = 0  # ticks this process closed as incomplete
         self._detector: DriftDetector | None = None
         self._last: MiningResult | None = None
@@ -228,7 +227,6 @@ class Aggregator:
         for listener in self.listeners:
             listener.on_tick(report)
         self._deliver(tick, events)
-        self.completed += 1
 
     def _cover(self, tick: float) -> list[str]:
         """Members whose parts of ``tick`` cover every partition exactly once (the newest

@@ -34,9 +34,8 @@ class Election(ConsumerRebalanceListener):
         stop: StopClock,
         log: TextIO = sys.stderr,
     ) -> None:
-        self.group, self._log = group, log
+        self._log = log
         self.elected = False
-        self.terms = 0  # how many times this member was elected
         settings = options | {"group_id": group, "enable_auto_commit": False}
         self._consumer = connect(
             servers, lambda: KafkaConsumer(bootstrap_servers=servers, **settings), stop, log
@@ -53,7 +52,6 @@ class Election(ConsumerRebalanceListener):
         self._consumer.pause(*assigned)
         if assigned:
             self.elected = True
-            self.terms += 1
             print("stream-miner: elected aggregator", file=self._log, flush=True)
 
     def keep_up(self) -> None:

@@ -174,15 +174,25 @@ class MemberRunner(Runner):
         return self._boundary_due()
 
     def _boundary_due(self) -> bool:
-        """Whether every basket up to the next boundary is in the window or waiting."""
-        if self.boundary is None or self.kafka.has_backlog():
+        """Whether every basket up to the next boundary is in the window or waiting. A
+        member that has read everything (two quiet polls in a row: what it knows of the
+        log's end is fresh) follows the group to a boundary another member reported; one
+        that never had a basket joins the oldest tick still open."""
+        if self.kafka.has_backlog():
             return False
+        read_all = self._quiet_polls >= QUIET_POLLS and bool(self.kafka.assigned()) and not self._behind()
+        if self.boundary is None:
+            board = self.topic.board
+            with board.changed:
+                open_ticks = [t for t in board.parts if t > board.last_closed]
+            if not (read_all and open_ticks):
+                return False
+            self.boundary = min(open_ticks)
         with self._lock:
             self._release(self._watermark())
         if self._watermark() > self.boundary:
             return True
-        read_all = self._quiet_polls >= QUIET_POLLS and bool(self.kafka.assigned()) and not self._behind()
-        return read_all and max(self.topic.board.parts, default=-math.inf) >= self.boundary
+        return read_all and self._newest_tick_said() >= self.boundary
 
     def _tick(self) -> None:
         while self.boundary is not None and not self.stopping and self._boundary_due():
@@ -205,7 +215,7 @@ class MemberRunner(Runner):
         local = self.miner.tick(self.local, refresh=self.settings.refresh, interrupt=self.interrupt)
         starts = self._window_starts()
         self._starts[tick] = starts
-        reading = {p: self._next[p] for p in self.kafka.assigned() if p in self._next}
+        reading = {p: self._next.get(p, self._reading_from.get(p, 0)) for p in self.kafka.assigned()}
         self.dead_letters.release(reading)
         body = {
             "generation": generation,

@@ -120,7 +120,6 @@ class Board:
     state: dict | None = None  # the newest close that carries the aggregator's state
     delivered: dict | None = None  # the newest delivery record
     read_to: dict[int, int] = field(default_factory=dict)
-    read_offset: int = 0  # the next coordination offset to read
 
     def take(self, message: Message) -> None:
         """Record ``message`` (under the lock) and wake the waiters."""
@@ -268,7 +267,6 @@ class CoordinationTopic:
         for records in batches.values():
             for record in records:
                 message = self._reassembly.take(record.value, record.headers)
-                self.board.read_offset = record.offset + 1
                 if message is None:
                     continue
                 try:
