@@ -221,6 +221,7 @@ class Aggregator:
         }
         body = {"complete": True, "number": number, "keep_past": keep, "state": state, "events": events}
         if not self._close(tick, body):
+            self._loaded = False  # another aggregator closed it: carry on from the state it published
             return
         self._detector, self._last = detector, result
         report = replace(report, refresh_seconds=time.perf_counter() - started)

@@ -257,6 +257,7 @@ class MemberRunner(Runner):
                     self.topic.send(
                         Message(ANSWER, tick, self.name, {"round": ask["round"], "counts": counts})
                     )
+                    deadline = time.monotonic() + MEMBER_WAIT * self.tick_wait  # the aggregator is at work
                 answered += 1
             if closed is not None:
                 self._keep_past(closed.get("keep_past"))
