@@ -236,21 +236,19 @@ class Aggregator:
         found: list[str] = []
 
         def covered() -> bool:
-            parts = board.parts.get(tick, {})
-            chosen: list[str] = []
-            seen: set[int] = set()
-            for member, body in sorted(parts.items(), key=lambda kv: -int(kv[1]["generation"])):
-                mine = {int(p) for p in body["partitions"]}
-                if not mine or mine & seen:
-                    continue
-                chosen.append(member)
-                seen |= mine
-            if seen == set(range(self.shape.partitions)):
+            chosen = self._disjoint_cover(board.parts.get(tick, {}))
+            if chosen is not None:
                 found[:] = chosen
                 return True
+            # the group moved on without it: a later tick is covered already (members that
+            # started after this tick never take part in it), or came from a newer generation
+            parts = board.parts.get(tick, {})
             newest = max((int(b["generation"]) for b in parts.values()), default=-1)
-            later = [b for t, p in board.parts.items() if t > tick for b in p.values()]
-            return any(int(b["generation"]) > newest for b in later)  # the group moved on without it
+            return any(
+                self._disjoint_cover(p) is not None or any(int(b["generation"]) > newest for b in p.values())
+                for t, p in board.parts.items()
+                if t > tick
+            )
 
         board.wait(covered, self.shape.wait, self._stop)
         if not found:
@@ -264,6 +262,19 @@ class Aggregator:
                 else "members' parts overlap"
             )
         return found
+
+    def _disjoint_cover(self, parts: dict[str, dict]) -> list[str] | None:
+        """Members whose parts name every partition exactly once (newest generation first);
+        None when there are none such."""
+        chosen: list[str] = []
+        seen: set[int] = set()
+        for member, body in sorted(parts.items(), key=lambda kv: -int(kv[1]["generation"])):
+            mine = {int(p) for p in body["partitions"]}
+            if not mine or mine & seen:
+                continue
+            chosen.append(member)
+            seen |= mine
+        return chosen if seen == set(range(self.shape.partitions)) else None
 
     def _ask(
         self, tick: float, round_: int, members: list[str], questions: list[dict]

@@ -93,9 +93,7 @@ class MemberRunner(Runner):
         self.dead_letters = DeadLetterOutbox(dead_letters, hold=True)
         self.watch = DeadLetterWatch(self.dead_letters.counts, self.log)
         self.boundary: float | None = None  # the next tick's event time
-        self._publish_after = (
-            -math.inf
-        )  # a partition rebuilt from its committed offset is exact after this tick
+        self._publish_after = -math.inf  # a partition taken over is exact after its last owner's tick
         self._quiet_polls = 0  # polls in a row that brought nothing (the log's end is known afresh)
         self._taken_at_poll = 0  # records taken up to the last poll
         self._newest_at: dict[int, float] = {}  # per partition: the newest event time read
@@ -188,11 +186,24 @@ class MemberRunner(Runner):
             if not (read_all and open_ticks):
                 return False
             self.boundary = min(open_ticks)
+        elif not self.schedule.ticks:
+            self._join_the_first_tick()
         with self._lock:
             self._release(self._watermark())
         if self._watermark() > self.boundary:
             return True
         return read_all and self._newest_tick_said() >= self.boundary
+
+    def _join_the_first_tick(self) -> None:
+        """Before its first tick, a member whose first basket came after a tick another
+        member opened takes part in that tick too, while nothing after it entered its window
+        (members starting at different boundaries would leave the earlier tick incomplete)."""
+        assert self.boundary is not None
+        board = self.topic.board
+        with board.changed:
+            earlier = [t for t in board.parts if board.last_closed < t < self.boundary]
+        if earlier and self.watermark <= min(earlier):
+            self.boundary = min(earlier)
 
     def _tick(self) -> None:
         while self.boundary is not None and not self.stopping and self._boundary_due():
@@ -242,7 +253,7 @@ class MemberRunner(Runner):
         deadline = time.monotonic() + MEMBER_WAIT * self.tick_wait
         while True:
             board.wait(
-                lambda: tick in board.closed or len(board.asks.get(tick, ())) > answered,  # noqa: B023
+                lambda: board.last_closed >= tick or len(board.asks.get(tick, ())) > answered,  # noqa: B023
                 max(0.0, min(0.2, deadline - time.monotonic())),
                 self.interrupt,
             )
@@ -261,6 +272,8 @@ class MemberRunner(Runner):
                 answered += 1
             if closed is not None:
                 self._keep_past(closed.get("keep_past"))
+                return
+            if board.last_closed > tick:  # the group closed a later tick: this one is given up
                 return
             if asks:
                 continue
@@ -345,7 +358,8 @@ class MemberRunner(Runner):
                     starts[partition] = self._next[partition]
                     continue
                 start = starts[partition] = committed.get(partition)
-                self._publish_after = max(self._publish_after, self._newest_tick_said())
+                claimed = self.topic.board.claimed.get(partition, -math.inf)  # its last owner's tick
+                self._publish_after = max(self._publish_after, claimed)
                 if start is not None:
                     self._reading_from[partition] = start
                 self._written_below[partition] = self.topic.board.read_to.get(partition, -1)

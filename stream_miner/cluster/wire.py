@@ -108,7 +108,8 @@ class Reassembly:
 class Board:
     """What was said on the coordination topic, as far as it was read: parts and answers of
     ticks not yet closed, the questions asked, which ticks were closed, the newest
-    aggregator state, and per source partition the offset its last owner had read to.
+    aggregator state, and per source partition the offset its last owner had read to and the
+    newest tick a part named it in.
     Waiters sleep on ``changed``."""
 
     changed: threading.Condition = field(default_factory=threading.Condition)
@@ -120,6 +121,9 @@ class Board:
     state: dict | None = None  # the newest close that carries the aggregator's state
     delivered: dict | None = None  # the newest delivery record
     read_to: dict[int, int] = field(default_factory=dict)
+    claimed: dict[int, float] = field(
+        default_factory=dict
+    )  # per partition: the newest tick a part named it in
 
     def take(self, message: Message) -> None:
         """Record ``message`` (under the lock) and wake the waiters."""
@@ -130,6 +134,7 @@ class Board:
                     self.parts.setdefault(tick, {})[message.sender] = body
                 for partition, (_, read_to) in body["partitions"].items():
                     self.read_to[int(partition)] = int(read_to)
+                    self.claimed[int(partition)] = max(tick, self.claimed.get(int(partition), tick))
             elif message.kind == ASK:
                 if tick > self.last_closed:
                     self.asks.setdefault(tick, []).append(body)
