@@ -4,7 +4,7 @@
         [--window 100000] [--tick 20000] [--min-support 0.01] [--first-at TICK/2]
         [--timeout 300] [--seed 7]
 
-One run (about 3 minutes on 2 cores): start the test broker, load ``--baskets`` Quest T10
+One run (about 2.5 minutes on 2 cores): start the test broker, load ``--baskets`` Quest T10
 baskets as JSON messages with event times (basket i at a tick boundary + ``--first-at`` + i
 seconds, so ``--window`` and ``--tick`` count baskets' worth of event time) into a topic of
 ``--partitions`` partitions, round robin, before any member starts. By default the first

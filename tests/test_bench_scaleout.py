@@ -35,6 +35,7 @@ def test_one_and_two_members(capsys: pytest.CaptureFixture[str]) -> None:
         assert 0 < run["tick_latency_s"]["median"] <= run["tick_latency_s"]["p90"]
         per_tick = run["per_tick"]
         assert per_tick["messages"]["part"] >= int(k) and per_tick["messages"]["close"] == 1
-        assert per_tick["bytes_all"] == sum(per_tick["bytes"].values()) > 0
+        assert per_tick["bytes_all"] > 0  # each figure is rounded on its own
+        assert abs(per_tick["bytes_all"] - sum(per_tick["bytes"].values())) <= len(per_tick["bytes"])
         assert run["member_exit_codes"] == [0] * int(k)
     assert "members  baskets/s" in captured.err
