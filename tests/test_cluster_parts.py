@@ -22,6 +22,7 @@ from hypothesis import strategies as st
 
 from brute_force import frequent_itemsets
 from stream_miner.cluster.merge import candidates, global_result, local_params, totals
+from stream_miner.cluster.retention import warn_short_retention
 from stream_miner.cluster.wire import CLOSE, PART, PART_BYTES, Board, Message, Reassembly
 from stream_miner.engine.miner import WindowMiner
 from stream_miner.engine.params import MiningParams
@@ -144,3 +145,13 @@ def test_the_board_keeps_the_first_close_and_forgets_closed_ticks():
     assert board.read_to == {0: 17}
     board.take(Message(PART, 30.0, "late", {"partitions": {"1": [0, 3]}, "generation": 1}))
     assert 30.0 not in board.parts  # a part of a closed tick is not waited for
+
+
+def test_a_log_kept_shorter_than_a_rebuild_reads_is_one_warning():
+    log = io.StringIO()
+    assert warn_short_retention("checkouts", 3 * 86400.0, 7 * 86400.0, log)
+    assert log.getvalue().count("\n") == 1 and "raise retention.ms" in log.getvalue()
+    assert not warn_short_retention("checkouts", float("inf"), 7 * 86400.0, log)  # kept forever
+    assert not warn_short_retention("checkouts", None, 7 * 86400.0, log)  # the broker does not say
+    assert not warn_short_retention("checkouts", 7 * 86400.0, 7 * 86400.0, log)
+    assert log.getvalue().count("\n") == 1

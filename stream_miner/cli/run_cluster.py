@@ -61,7 +61,7 @@ class Member:
     ) -> None:
         from stream_miner.cluster.aggregator import Aggregator, Shape
         from stream_miner.cluster.member import MemberRunner, member_name
-        from stream_miner.cluster.retention import warn_short_retention
+        from stream_miner.cluster.retention import retention_seconds, warn_short_retention
         from stream_miner.cluster.wire import CoordinationTopic
         from stream_miner.connectors.kafka_source import client_options, parse_kafka_url
         from stream_miner.engine.window import TimeWindow
@@ -76,7 +76,7 @@ class Member:
             self.topic.close()
             raise UsageError(str(error)) from None
         needed = settings.window.seconds * (2 if settings.drift is not None else 1)
-        warn_short_retention(servers, topic, needed, options)
+        warn_short_retention(topic, retention_seconds(servers, topic, options), needed)
         partitions = source.partition_count()
         if partitions is None:
             self.topic.close()

@@ -34,17 +34,17 @@ def retention_seconds(servers: str, topic: str, options: dict[str, object]) -> f
     return float("inf") if millis < 0 else millis / 1000
 
 
-def warn_short_retention(
-    servers: str, topic: str, needed: float, options: dict[str, object], log: TextIO = sys.stderr
-) -> None:
-    """One line when the topic's retention is shorter than ``needed`` seconds of event time
-    (a rebuilt window would miss baskets the log no longer holds)."""
-    kept = retention_seconds(servers, topic, options)
-    if kept is not None and kept < needed:
-        print(
-            f"stream-miner: warning: topic {topic} keeps its log {kept:g} s, less than the {needed:g} s "
-            "a member rebuilding a partition's window reads again; raise retention.ms or a handover "
-            "loses baskets",
-            file=log,
-            flush=True,
-        )
+def warn_short_retention(topic: str, kept: float | None, needed: float, log: TextIO = sys.stderr) -> bool:
+    """One line when the topic keeps its log (``kept`` seconds, None: unknown) shorter than
+    ``needed`` seconds of event time (a rebuilt window would miss baskets the log no longer
+    holds); whether it warned."""
+    if kept is None or kept >= needed:
+        return False
+    print(
+        f"stream-miner: warning: topic {topic} keeps its log {kept:g} s, less than the {needed:g} s "
+        "a member rebuilding a partition's window reads again; raise retention.ms or a handover "
+        "loses baskets",
+        file=log,
+        flush=True,
+    )
+    return True
