@@ -139,17 +139,18 @@ class MemberRunner(Runner):
             self.boundary = math.ceil(ts / self.interval) * self.interval
         return self._watermark()
 
-    def _watermark(self) -> float:
-        """The newest event time of the partitions with records still to take (of all, when
-        none has), less the lateness: no basket taken later is older, beyond that lateness."""
+    def _watermark(self, behind: list[int] | None = None) -> float:
+        """The newest event time of the partitions with records still to take (``behind``;
+        by default judged by the log's ends the last fetch saw), of all when none has, less
+        the lateness: no basket taken later is older, beyond that lateness."""
         bound = self.newest
-        for partition in self._behind():
+        for partition in self._behind(self.kafka.highwaters()) if behind is None else behind:
             bound = min(bound, self._newest_at.get(partition, -math.inf))
         return bound - self.settings.allowed_lateness
 
-    def _behind(self) -> list[int]:
-        """Assigned partitions with records not yet taken (or not known to have none)."""
-        ends = self.kafka.highwaters()
+    def _behind(self, ends: dict[int, int]) -> list[int]:
+        """Assigned partitions with records not yet taken before the log's ``ends`` (or
+        whose end is not known)."""
         return [
             p
             for p in self.kafka.assigned()
@@ -172,38 +173,42 @@ class MemberRunner(Runner):
         return self._boundary_due()
 
     def _boundary_due(self) -> bool:
-        """Whether every basket up to the next boundary is in the window or waiting. A
-        member that has read everything (two quiet polls in a row: what it knows of the
-        log's end is fresh) follows the group to a boundary another member reported; one
-        that never had a basket joins the oldest tick still open."""
-        if self.kafka.has_backlog():
+        """Whether every basket up to the next boundary is in the window or waiting: judged
+        first by the log's ends the last fetch saw, then (when that says yes) by the ends the
+        broker gives now, since a fetch's view can be older than records already written."""
+        if self.kafka.has_backlog() or not self._due_by(self.kafka.highwaters()):
             return False
-        read_all = self._quiet_polls >= QUIET_POLLS and bool(self.kafka.assigned()) and not self._behind()
-        if self.boundary is None:
-            board = self.topic.board
-            with board.changed:
-                open_ticks = [t for t in board.parts if t > board.last_closed]
-            if not (read_all and open_ticks):
-                return False
-            self.boundary = min(open_ticks)
-        elif not self.schedule.ticks:
-            self._join_the_first_tick()
-        with self._lock:
-            self._release(self._watermark())
-        if self._watermark() > self.boundary:
-            return True
-        return read_all and self._newest_tick_said() >= self.boundary
+        ends = self.kafka.end_offsets()
+        return ends is not None and self._due_by(ends, settle=True)
 
-    def _join_the_first_tick(self) -> None:
-        """Before its first tick, a member whose first basket came after a tick another
-        member opened takes part in that tick too, while nothing after it entered its window
-        (members starting at different boundaries would leave the earlier tick incomplete)."""
-        assert self.boundary is not None
+    def _due_by(self, ends: dict[int, int], *, settle: bool = False) -> bool:
+        """:meth:`_boundary_due` with the log's ends ``ends``; ``settle`` keeps the boundary
+        it chose. A member that has read everything follows the group to a boundary another
+        member reported; one that never had a basket joins the oldest tick still open; one
+        that has not ticked yet joins an earlier open tick while nothing after it entered its
+        window (members starting at different boundaries would leave it incomplete)."""
+        behind = self._behind(ends)
+        read_all = self._quiet_polls >= QUIET_POLLS and bool(self.kafka.assigned()) and not behind
         board = self.topic.board
         with board.changed:
-            earlier = [t for t in board.parts if board.last_closed < t < self.boundary]
-        if earlier and self.watermark <= min(earlier):
-            self.boundary = min(earlier)
+            open_ticks = sorted(t for t in board.parts if t > board.last_closed)
+        boundary = self.boundary
+        if boundary is None:
+            if not (read_all and open_ticks):
+                return False
+            boundary = open_ticks[0]
+        elif (
+            not self.schedule.ticks
+            and open_ticks
+            and open_ticks[0] < boundary
+            and self.watermark <= open_ticks[0]
+        ):
+            boundary = open_ticks[0]
+        if settle:
+            self.boundary = boundary
+        if self._watermark(behind) > boundary:
+            return True
+        return read_all and self._newest_tick_said() >= boundary
 
     def _tick(self) -> None:
         while self.boundary is not None and not self.stopping and self._boundary_due():

@@ -534,6 +534,16 @@ class KafkaSource(AsyncConsumerRebalanceListener):
             if state.highwater is not None
         }
 
+    def end_offsets(self) -> dict[int, int] | None:
+        """The offset after the newest message of each assigned partition, asked of the
+        broker now (None when it does not answer within ``COMMIT_TIMEOUT``)."""
+        assigned = list(self._consumer.assignment())
+        try:
+            found = self._consumer.end_offsets(assigned, timeout_ms=int(COMMIT_TIMEOUT * 1000))
+        except KafkaError:
+            return None
+        return {tp.partition: offset for tp, offset in found.items()}
+
     def has_backlog(self) -> bool:
         """Whether records read during a tick wait for the next :meth:`poll`."""
         return bool(self._backlog)
