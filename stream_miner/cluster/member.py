@@ -48,6 +48,7 @@ if TYPE_CHECKING:
     from stream_miner.cluster.aggregator import Aggregator
 
 MEMBER_WAIT = 3  # a member waits at most this many --tick-wait for its tick to be closed
+SYNC_TIMEOUT = 10.0  # seconds a member waits to read the coordination topic to its end
 QUIET_POLLS = 2  # polls in a row bringing nothing before a member that read all follows the group
 
 
@@ -93,6 +94,7 @@ class MemberRunner(Runner):
         self.dead_letters = DeadLetterOutbox(dead_letters, hold=True)
         self.watch = DeadLetterWatch(self.dead_letters.counts, self.log)
         self.boundary: float | None = None  # the next tick's event time
+        self._acquired: set[int] = set()  # partitions taken over since the board was last read to its end
         self._publish_after = -math.inf  # a partition taken over is exact after its last owner's tick
         self._quiet_polls = 0  # polls in a row that brought nothing (the log's end is known afresh)
         self._taken_at_poll = 0  # records taken up to the last poll
@@ -216,6 +218,8 @@ class MemberRunner(Runner):
             with self._lock:
                 Runner._release(self, tick)
                 self.miner.advance_time(tick)
+            if self._acquired:
+                self._catch_up_on_board()
             if tick > max(self.topic.board.last_closed, self._publish_after):
                 self._on_worker(lambda: self._take_part(tick))  # noqa: B023 - run before the loop goes on
             self.schedule.ticked(self.consumed)
@@ -223,6 +227,23 @@ class MemberRunner(Runner):
             self._quiet_polls = 0  # what is known of the log's end is from before the tick
             self._withdraw()
         self._checkpoint()
+
+    def _catch_up_on_board(self) -> None:
+        """After taking partitions over: read the coordination topic to its end, then take
+        from it the newest tick their previous owners took part in (no part before it: the
+        committed rebuild point is exact only from there) and the offsets they had read to
+        (their dead letters below are out already). The board read at the handover may lag."""
+        if not self.topic.sync(SYNC_TIMEOUT):
+            return  # tried again at the next tick
+        board = self.topic.board
+        with board.changed:
+            claimed = {p: board.claimed.get(p, -math.inf) for p in self._acquired}
+            read_to = {p: board.read_to.get(p, -1) for p in self._acquired}
+        self._publish_after = max(self._publish_after, *claimed.values())
+        for partition, offset in read_to.items():
+            self._written_below[partition] = max(offset, self._written_below.get(partition, -1))
+        self.dead_letters.release(read_to, write=False)  # held, but written by the previous owner
+        self._acquired = set()
 
     def _take_part(self, tick: float) -> None:
         """Phase 1 for ``tick``, then the answers to the aggregator until the tick is closed
@@ -358,6 +379,7 @@ class MemberRunner(Runner):
                 )
                 for held in held_maps:
                     held.pop(partition, None)
+                self._acquired.discard(partition)
             for partition in assigned:
                 if partition in self._next:
                     starts[partition] = self._next[partition]
@@ -365,6 +387,7 @@ class MemberRunner(Runner):
                 start = starts[partition] = committed.get(partition)
                 claimed = self.topic.board.claimed.get(partition, -math.inf)  # its last owner's tick
                 self._publish_after = max(self._publish_after, claimed)
+                self._acquired.add(partition)  # looked up again once the board is read to its end
                 if start is not None:
                     self._reading_from[partition] = start
                 self._written_below[partition] = self.topic.board.read_to.get(partition, -1)
