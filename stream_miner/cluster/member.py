@@ -350,11 +350,12 @@ class MemberRunner(Runner):
     def _checkpoint(self, *, final: bool = False) -> None:
         """Commit where a next owner of each partition rebuilds its window from."""
         self._last_checkpoint_at = time.monotonic()
-        points = {p: o for p, o in self._committable.items() if p in self._next}
+        points = self.before_revoke()
         if points:
             self.source.commit(points)
 
     def before_revoke(self) -> dict[int, int]:
+        """The rebuild points of the partitions this member reads (committed on revoke too)."""
         return {p: o for p, o in self._committable.items() if p in self._next}
 
     def after_commit(self, positions: dict[int, int], outcome: object) -> None:

@@ -27,6 +27,7 @@ from kafka.errors import KafkaError
 
 from stream_miner.cluster.election import Election
 from stream_miner.connectors.kafka_source import CLOSE_TIMEOUT, Retry, connect, describe
+from stream_miner.connectors.sinks import safe_producer
 from stream_miner.runtime.protocols import StoppedWaiting
 from stream_miner.runtime.stop_clock import StopClock
 
@@ -190,11 +191,7 @@ class CoordinationTopic:
         self.board = Board()
         consumer_options = {k: v for k, v in options.items() if k in KafkaConsumer.DEFAULT_CONFIG}
         consumer_options.pop("group_id", None)
-        producer_options = {k: v for k, v in options.items() if k in KafkaProducer.DEFAULT_CONFIG}
-        settings = producer_options | {"acks": "all", "enable_idempotence": True, "linger_ms": 0}
-        self._producer = connect(
-            servers, lambda: KafkaProducer(bootstrap_servers=servers, **settings), stop, log
-        )
+        self._producer, _ = safe_producer(f"kafka://{servers}/{topic}", options, stop, {"linger_ms": 0})
         reader_options = consumer_options | {"enable_auto_commit": False, "auto_offset_reset": "earliest"}
         self._reader = connect(
             servers, lambda: KafkaConsumer(bootstrap_servers=servers, **reader_options), stop, log

@@ -38,7 +38,7 @@ FLUSH_STEP = 5.0  # seconds one attempt to deliver the dead letters waits for th
 RESEND_AFTER = (RetriableError, UnknownProducerIdError)
 
 
-def _producer(
+def safe_producer(
     url: str,
     options: dict[str, object] | None,
     stop: threading.Event | None = None,
@@ -69,7 +69,7 @@ class _ConfirmedSends(CannotCutBack):
         log: TextIO = sys.stderr,
     ) -> None:
         self._stop = stop or StopClock()
-        self._producer, self.topic = _producer(url, options, self._stop, DEAD_LETTER_DEFAULTS)
+        self._producer, self.topic = safe_producer(url, options, self._stop, DEAD_LETTER_DEFAULTS)
         self.servers = parse_kafka_url(url)[0]
         self._log = log
         self._retry = Retry(f"sending {self.what} to topic {self.topic}", self.servers, log)
